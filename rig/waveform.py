@@ -1,0 +1,122 @@
+"""One captured event on disk: raw ADC codes plus the scaling that turns them into SI values.
+
+File format (``.npz``, written with :func:`numpy.savez`, read with ``allow_pickle=False``):
+
+==============  =====================  ===================================================
+key             dtype / shape          meaning
+==============  =====================  ===================================================
+``codes``       int8 or int16 (c, n)   raw codes, one row per channel
+``gain``        float64 (c,)           SI units per code
+``offset``      float64 (c,)           SI value of code 0: ``value = codes * gain + offset``
+``code_min``    int64 (c,)             lowest code of the ADC (a sample there is clipped)
+``code_max``    int64 (c,)             highest code of the ADC
+``dt``          float64 ()             seconds per sample
+``t0``          float64 ()             time of sample 0 relative to the trigger, seconds
+``channels``    str (c,)               channel names, e.g. "current", "voltage"
+``units``       str (c,)               SI unit of each row after scaling, e.g. "A", "V"
+==============  =====================  ===================================================
+
+The file is written to a temporary name in the same folder, flushed, fsynced and renamed, so
+a reader never sees half a file.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["Waveform", "load_waveform", "save_waveform", "sha256_file"]
+
+_KEYS = ("codes", "gain", "offset", "code_min", "code_max", "dt", "t0", "channels", "units")
+
+
+@dataclass(frozen=True)
+class Waveform:
+    """Raw codes of one event with their scaling (see the module docstring)."""
+
+    codes: np.ndarray
+    gain: np.ndarray
+    offset: np.ndarray
+    code_min: np.ndarray
+    code_max: np.ndarray
+    dt: float
+    t0: float
+    channels: tuple[str, ...]
+    units: tuple[str, ...]
+
+    @property
+    def n(self) -> int:
+        """Samples per channel."""
+        return int(self.codes.shape[1])
+
+    def index(self, channel: str) -> int:
+        """Row of a named channel (ValueError if absent)."""
+        return self.channels.index(channel)
+
+    def values(self, channel: str = "current") -> np.ndarray:
+        """The channel in SI units (float64)."""
+        k = self.index(channel)
+        return self.codes[k].astype(np.float64) * self.gain[k] + self.offset[k]
+
+    def time(self) -> np.ndarray:
+        """Sample times relative to the trigger, seconds."""
+        return self.t0 + self.dt * np.arange(self.n)
+
+
+def save_waveform(path: str | Path, wf: Waveform) -> str:
+    """Write ``wf`` atomically to ``path`` (``.npz``); returns the file's SHA-256 (hex)."""
+    path = Path(path)
+    tmp = path.with_name(path.name + ".tmp")
+    with open(tmp, "wb") as fh:
+        np.savez(
+            fh,
+            codes=np.ascontiguousarray(wf.codes),
+            gain=np.asarray(wf.gain, dtype=np.float64),
+            offset=np.asarray(wf.offset, dtype=np.float64),
+            code_min=np.asarray(wf.code_min, dtype=np.int64),
+            code_max=np.asarray(wf.code_max, dtype=np.int64),
+            dt=np.float64(wf.dt),
+            t0=np.float64(wf.t0),
+            channels=np.asarray(wf.channels, dtype=str),
+            units=np.asarray(wf.units, dtype=str),
+        )
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+    return sha256_file(path)
+
+
+def load_waveform(path: str | Path) -> Waveform:
+    """Read a waveform file; ValueError naming the file and key if it is incomplete."""
+    path = Path(path)
+    with np.load(path, allow_pickle=False) as z:
+        missing = [k for k in _KEYS if k not in z.files]
+        if missing:
+            raise ValueError(f"{path}: waveform file lacks {', '.join(missing)}")
+        codes = z["codes"]
+        if codes.ndim != 2 or codes.dtype not in (np.int8, np.int16):
+            raise ValueError(f"{path} [codes]: expected a 2-D int8 or int16 array")
+        return Waveform(
+            codes=codes,
+            gain=z["gain"],
+            offset=z["offset"],
+            code_min=z["code_min"],
+            code_max=z["code_max"],
+            dt=float(z["dt"]),
+            t0=float(z["t0"]),
+            channels=tuple(str(s) for s in z["channels"]),
+            units=tuple(str(s) for s in z["units"]),
+        )
+
+
+def sha256_file(path: str | Path) -> str:
+    """SHA-256 of a file's bytes, hex."""
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
