@@ -128,6 +128,10 @@ class World(Protocol):
     def meter_mode(self) -> str:
         """Current mode name."""
 
+    def meter_connect(self, meter_model: str) -> None:
+        """Swap the meter under test for the netlist at path ``meter_model`` (an operator
+        change between meters); the new meter's input starts discharged, in its first mode."""
+
     # scope inputs ---------------------------------------------------------------------------
     def scope_inputs(self, t: np.ndarray, bandwidth_hz: Sequence[float | None]) -> np.ndarray:
         """Volts at scope inputs 1..len(bandwidth_hz) at absolute times ``t`` (all <= now).
