@@ -15,12 +15,29 @@ ignored (and later overwritten on resume).
 from __future__ import annotations
 
 import json
+import logging
+import os
+import re
+import shutil
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 from drivers.errors import RunFolderError
+from rig.waveform import Waveform, save_waveform, sha256_file
 
-__all__ = ["read_journal", "read_manifest", "read_plan"]
+__all__ = [
+    "RunWriter",
+    "Verification",
+    "new_run_id",
+    "read_journal",
+    "read_manifest",
+    "read_plan",
+    "verify_run",
+]
+
+log = logging.getLogger(__name__)
 
 MANIFEST = "manifest.json"
 PLAN = "plan.json"
@@ -72,3 +89,272 @@ def read_journal(run_dir: str | Path) -> list[dict[str, Any]]:
         except json.JSONDecodeError as exc:
             raise RunFolderError(f"{path}:{lineno}: journal line is not JSON ({exc.msg})") from None
     return rows
+
+
+# --------------------------------------------------------------------------------------------
+# writing
+
+
+def _write_json_atomic(path: Path, obj: Any) -> None:
+    """Write JSON to a temporary name, fsync, rename: a reader sees the old or the new file."""
+    tmp = path.with_name(path.name + ".tmp")
+    with open(tmp, "w", encoding="utf-8") as fh:
+        json.dump(obj, fh, indent=2, default=_json_default)
+        fh.write("\n")
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+
+
+def _json_default(obj: Any) -> Any:
+    if isinstance(obj, Path):
+        return str(obj)
+    if hasattr(obj, "item"):  # numpy scalars
+        return obj.item()
+    if isinstance(obj, (set, frozenset, tuple)):
+        return list(obj)
+    raise TypeError(f"not JSON-serialisable: {type(obj).__name__}")
+
+
+def new_run_id(name: str, when: datetime | None = None) -> str:
+    """A sortable, file-system-safe run id: ``20261201-221530-qualification``."""
+    when = when or datetime.now(UTC)
+    stem = re.sub(r"[^A-Za-z0-9_.-]+", "-", name).strip("-") or "run"
+    return f"{when:%Y%m%d-%H%M%S}-{stem}"
+
+
+class RunWriter:
+    """Append-only writer of one run folder. Use :meth:`create` or :meth:`reopen`."""
+
+    def __init__(self, path: Path) -> None:
+        self.path = path
+        self._journal = None
+        self._done: set[int] = set()
+
+    # -- life cycle ---------------------------------------------------------------------------
+    @classmethod
+    def create(
+        cls,
+        results_dir: str | Path,
+        run_id: str,
+        manifest: dict[str, Any],
+        plan: list[dict[str, Any]],
+        inputs: dict[str, Path] | None = None,
+    ) -> RunWriter:
+        """Make ``results_dir/run_id`` with its manifest, plan and copies of the input files.
+
+        ``inputs`` maps a file name in the run folder (``sequence.toml``, ``bench.toml``) to the
+        file to copy, so a run can be resumed and audited without its original files.
+        """
+        base = Path(results_dir) / run_id
+        path, k = base, 1
+        while path.exists():
+            k += 1
+            path = base.with_name(f"{base.name}-{k}")
+        (path / WAVEFORMS).mkdir(parents=True)
+        for name, src in (inputs or {}).items():
+            shutil.copyfile(src, path / name)
+        manifest = {**manifest, "run_id": path.name, "format": 1, "planned_events": len(plan)}
+        _write_json_atomic(path / PLAN, plan)
+        _write_json_atomic(path / MANIFEST, manifest)
+        writer = cls(path)
+        writer._open_journal()
+        return writer
+
+    @classmethod
+    def reopen(cls, run_dir: str | Path) -> RunWriter:
+        """Open an interrupted run to continue it: drop a torn last journal line and any
+        waveform file the journal does not name (the event in flight is planned again)."""
+        path = Path(run_dir)
+        read_manifest(path)
+        read_plan(path)
+        journal = path / JOURNAL
+        if journal.exists():
+            data = journal.read_bytes()
+            cut = data.rfind(b"\n") + 1
+            if cut != len(data):
+                with open(journal, "r+b") as fh:
+                    fh.truncate(cut)
+                    fh.flush()
+                    os.fsync(fh.fileno())
+                log.warning(
+                    "%s: dropped a torn last journal line (%d bytes)", journal, len(data) - cut
+                )
+        rows = read_journal(path)
+        named = {r["file"] for r in rows if r.get("file")}
+        for f in (path / WAVEFORMS).iterdir():
+            rel = f"{WAVEFORMS}/{f.name}"
+            if rel not in named:
+                f.unlink()
+                log.warning("%s: removed %s (not in the journal)", path, rel)
+        writer = cls(path)
+        writer._done = {int(r["event"]) for r in rows}
+        writer._open_journal()
+        return writer
+
+    def _open_journal(self) -> None:
+        self._journal = open(self.path / JOURNAL, "ab")  # noqa: SIM115 - kept open for the run
+
+    def close(self) -> None:
+        """Close the journal (safe to call twice)."""
+        if self._journal is not None:
+            self._journal.close()
+            self._journal = None
+
+    def __enter__(self) -> RunWriter:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # -- events -------------------------------------------------------------------------------
+    @property
+    def done(self) -> set[int]:
+        """Plan indices already journalled."""
+        return set(self._done)
+
+    def waveform_path(self, event: int) -> tuple[Path, str]:
+        """Absolute path and run-relative name of an event's waveform file."""
+        rel = f"{WAVEFORMS}/e{event:06d}.npz"
+        return self.path / rel, rel
+
+    def commit(self, row: dict[str, Any], waveform: Waveform | None) -> dict[str, Any]:
+        """Write the event's waveform (atomically), then append its journal line and fsync.
+
+        Returns the row as journalled (with ``file`` and ``sha256``). The waveform goes first:
+        a crash between the two leaves an orphan file that :meth:`reopen` removes, never a
+        journal line without its data.
+        """
+        if self._journal is None:
+            raise RunFolderError(f"{self.path}: journal is closed")
+        event = int(row["event"])
+        if event in self._done:
+            raise RunFolderError(f"{self.path}: event {event} is already in the journal")
+        row = dict(row)
+        if waveform is not None:
+            abs_path, rel = self.waveform_path(event)
+            row["file"] = rel
+            row["sha256"] = save_waveform(abs_path, waveform)
+        else:
+            row["file"] = None
+            row["sha256"] = None
+        line = json.dumps(row, default=_json_default, separators=(",", ":")).encode() + b"\n"
+        self._journal.write(line)
+        self._journal.flush()
+        os.fsync(self._journal.fileno())
+        self._done.add(event)
+        return row
+
+    # -- manifest and end of run ----------------------------------------------------------------
+    def update_manifest(self, **fields: Any) -> dict[str, Any]:
+        """Merge ``fields`` into the manifest (atomic rewrite)."""
+        manifest = read_manifest(self.path)
+        manifest.update(fields)
+        _write_json_atomic(self.path / MANIFEST, manifest)
+        return manifest
+
+    def write_event_table(self) -> Path:
+        """Consolidate the journal into ``events.parquet`` (plan order)."""
+        import pandas as pd
+
+        rows = read_journal(self.path)
+        df = pd.DataFrame(rows)
+        if len(df):
+            df = df.sort_values("event", kind="stable").reset_index(drop=True)
+        out = self.path / EVENTS
+        tmp = out.with_name(out.name + ".tmp")
+        df.to_parquet(tmp, index=False)
+        os.replace(tmp, out)
+        return out
+
+
+# --------------------------------------------------------------------------------------------
+# verification
+
+
+@dataclass
+class Verification:
+    """What :func:`verify_run` found."""
+
+    path: Path
+    status: str
+    planned: int
+    journalled: int
+    captured: int
+    problems: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        """True when nothing is corrupt (an interrupted run can be ok and resumable)."""
+        return not self.problems
+
+    @property
+    def missing(self) -> int:
+        return self.planned - self.journalled
+
+
+def verify_run(run_dir: str | Path) -> Verification:
+    """Check a run folder: counts against the plan, duplicates, files and their checksums."""
+    path = Path(run_dir)
+    manifest = read_manifest(path)
+    plan = read_plan(path)
+    planned_idx = {int(p["event"]) if "event" in p else int(p["index"]) for p in plan}
+    problems: list[str] = []
+    notes: list[str] = []
+    journal = path / JOURNAL
+    if journal.exists():
+        data = journal.read_bytes()
+        if data and not data.endswith(b"\n"):
+            notes.append(
+                f"{JOURNAL}: last line is torn (event in flight when the run stopped); "
+                "resume drops it"
+            )
+    try:
+        rows = read_journal(path)
+    except RunFolderError as exc:
+        problems.append(str(exc))
+        rows = []
+    seen: set[int] = set()
+    captured = 0
+    for r in rows:
+        ev = int(r.get("event", -1))
+        if ev in seen:
+            problems.append(f"{JOURNAL}: event {ev} appears more than once")
+        seen.add(ev)
+        if ev not in planned_idx:
+            problems.append(f"{JOURNAL}: event {ev} is not in the plan")
+        f = r.get("file")
+        if f:
+            captured += 1
+            fp = path / f
+            if not fp.exists():
+                problems.append(f"{f}: missing (journalled for event {ev})")
+            elif sha256_file(fp) != r.get("sha256"):
+                problems.append(f"{f}: checksum differs from the journal (event {ev})")
+    wf_dir = path / WAVEFORMS
+    if wf_dir.exists():
+        named = {r.get("file") for r in rows}
+        for f in sorted(wf_dir.iterdir()):
+            rel = f"{WAVEFORMS}/{f.name}"
+            if rel not in named:
+                notes.append(f"{rel}: not in the journal (left by an interrupted event)")
+    status = str(manifest.get("status", "unknown"))
+    missing = len(planned_idx - seen)
+    if status == "complete" and missing:
+        problems.append(f"{MANIFEST}: status complete but {missing} planned events are missing")
+    if missing and status != "complete":
+        notes.append(
+            f"{missing} of {len(planned_idx)} planned events not done: `rig resume` continues"
+        )
+    events = path / EVENTS
+    if status == "complete" and events.exists():
+        import pyarrow.parquet as pq
+
+        try:
+            n = pq.ParquetFile(events).metadata.num_rows
+            if n != len(rows):
+                problems.append(f"{EVENTS}: {n} rows, journal has {len(rows)}")
+        except Exception as exc:  # pyarrow raises several types for a damaged file
+            problems.append(f"{EVENTS}: unreadable ({exc})")
+    return Verification(path, status, len(planned_idx), len(rows), captured, problems, notes)

@@ -1,0 +1,426 @@
+"""The event cycle as a state machine, with the safe state on every exit path.
+
+One discharge event (DESIGN.md):
+
+    PRECHECK   supply off, charge and discharge open, residual below the limit
+    CHARGE     limits checked, charge relay closed (break before make), supply on, dwell
+    ISOLATE    supply off at 0 V, charge relay open and verified, planned delay
+    ARM        scope single shot
+    DISCHARGE  discharge relay closed (charge and bleed verified open first), acquisition
+    FETCH      waveform and its scaling, discharge relay opened and verified
+    BLEED      bleed until the residual is safe, hold
+    COMMIT     waveform file and journal line, fsynced
+
+Whatever ends the run - the last event, Ctrl-C, SIGTERM, an instrument error, a lost
+connection, a timeout, an interlock, any exception - :meth:`Runner.run` drives the bench to
+the safe state, records which exit path it took in the manifest, and returns a
+:class:`RunOutcome`. The runner computes no metrics: it stores raw codes and scaling.
+"""
+
+from __future__ import annotations
+
+import logging
+import signal
+import socket
+import sys
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from enum import Enum
+from typing import Any
+
+import numpy as np
+
+from drivers.errors import (
+    ConnectionLost,
+    InstrumentError,
+    InstrumentTimeout,
+    LimitError,
+    SafetyError,
+)
+from rig.safety import Interlocks, SafeReport
+from rig.store import RunWriter
+from rig.waveform import Waveform
+
+__all__ = ["ExitPath", "Phase", "RunOutcome", "Runner", "Terminated"]
+
+log = logging.getLogger(__name__)
+
+
+class Phase(Enum):
+    """Where in the event cycle the runner is."""
+
+    IDLE = "idle"
+    SETUP = "set-up"
+    PRECHECK = "pre-check"
+    CHARGE = "charge"
+    ISOLATE = "isolate"
+    ARM = "arm"
+    DISCHARGE = "discharge"
+    FETCH = "fetch"
+    BLEED = "bleed"
+    COMMIT = "commit"
+    SAFE = "safe state"
+
+
+class ExitPath(Enum):
+    """How a run ended."""
+
+    NORMAL = "normal end"
+    CTRL_C = "Ctrl-C"
+    SIGTERM = "SIGTERM"
+    INSTRUMENT = "instrument error"
+    CONNECTION = "lost connection"
+    TIMEOUT = "timeout"
+    INTERLOCK = "interlock"
+    LIMIT = "limit"
+    EXCEPTION = "exception"
+
+
+class Terminated(BaseException):
+    """Raised in the main thread when SIGTERM arrives (a BaseException, like Ctrl-C)."""
+
+
+@dataclass
+class RunOutcome:
+    """What :meth:`Runner.run` did."""
+
+    exit_path: ExitPath
+    status: str  # "complete" | "interrupted" | "failed"
+    error: str | None
+    phase: Phase
+    safe: SafeReport
+    done: int
+    planned: int
+    timing: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def ok(self) -> bool:
+        return self.status == "complete" and self.safe.reached
+
+
+class Observer:
+    """Receives progress (the CLI's live display subclasses this). All methods optional."""
+
+    def start(self, planned: int, done: int) -> None: ...
+
+    def phase(self, event: Any, phase: Phase) -> None: ...
+
+    def committed(self, row: dict[str, Any], waveform: Waveform | None) -> None: ...
+
+    def message(self, text: str) -> None: ...
+
+
+def _classify(exc: BaseException) -> ExitPath:
+    if isinstance(exc, KeyboardInterrupt):
+        return ExitPath.CTRL_C
+    if isinstance(exc, Terminated):
+        return ExitPath.SIGTERM
+    if isinstance(exc, InstrumentTimeout):
+        return ExitPath.TIMEOUT
+    if isinstance(exc, ConnectionLost | ConnectionError):
+        return ExitPath.CONNECTION
+    if isinstance(exc, SafetyError):
+        return ExitPath.INTERLOCK
+    if isinstance(exc, LimitError):
+        return ExitPath.LIMIT
+    if isinstance(exc, InstrumentError):
+        return ExitPath.INSTRUMENT
+    return ExitPath.EXCEPTION
+
+
+class Runner:
+    """Runs the planned events of a sequence on an open bench into a run folder."""
+
+    def __init__(
+        self,
+        bench: Any,
+        bench_config: Any,
+        sequence: Any,
+        plan: Any,
+        writer: RunWriter,
+        *,
+        observer: Observer | None = None,
+        now: Callable[[], datetime] = lambda: datetime.now(UTC),
+    ) -> None:
+        self.bench = bench
+        self.cfg = bench_config
+        self.seq = sequence
+        self.plan = plan
+        self.writer = writer
+        self.obs = observer or Observer()
+        self.now = now
+        self.interlocks = Interlocks(bench, bench_config)
+        self.phase = Phase.IDLE
+        self.timing = {"io": 0.0, "transfer": 0.0, "storage": 0.0, "total": 0.0, "events": 0}
+        self._meter: int | None = None
+        self._mode: str | None = None
+        self._scope_key: Any = None
+        self._load: str | None = None
+        sense = bench_config.sense
+        # volts at scope input 1 per ampere through the load
+        self.volts_per_amp = (
+            float(sense.ohms) if sense.kind == "shunt" else 1.0 / float(sense.amps_per_volt)
+        )
+
+    # -- the run ----------------------------------------------------------------------------------
+    def run(self) -> RunOutcome:
+        """Run every planned event not yet journalled; always end in the safe state."""
+        todo = [e for e in self.plan.events if e.index not in self.writer.done]
+        planned = len(self.plan.events)
+        self.obs.start(planned, planned - len(todo))
+        exit_path, error = ExitPath.NORMAL, None
+        restore = self._install_sigterm()
+        self.writer.update_manifest(status="running", resumed_at=self._iso())
+        try:
+            for event in todo:
+                self._event(event)
+        except BaseException as exc:  # every exit path, Ctrl-C included, goes to the safe state
+            exit_path, error = _classify(exc), f"{type(exc).__name__}: {exc}"
+            if not isinstance(exc, Exception):
+                error = exit_path.value
+            log.error("run stopped during %s: %s", self.phase.value, error)
+            if not isinstance(exc, KeyboardInterrupt | Terminated | Exception):
+                raise  # SystemExit and the like: the finally clause still makes the bench safe
+        finally:
+            failed_phase = self.phase
+            safe = self._make_safe()
+            restore()
+            done = len(self.writer.done)
+            if exit_path is ExitPath.NORMAL and done == planned:
+                status = "complete"
+            elif exit_path in (ExitPath.CTRL_C, ExitPath.SIGTERM):
+                status = "interrupted"
+            else:
+                status = "failed"
+            self.writer.write_event_table()
+            self.writer.update_manifest(
+                status=status,
+                exit_path=exit_path.value,
+                error=error,
+                failed_phase=None if exit_path is ExitPath.NORMAL else failed_phase.value,
+                ended=self._iso(),
+                safe_state=safe.to_dict(),
+                timing=dict(self.timing),
+            )
+            self.obs.message(f"run ended by {exit_path.value}; {safe.summary()}")
+        return RunOutcome(
+            exit_path, status, error, failed_phase, safe, done, planned, dict(self.timing)
+        )
+
+    def _make_safe(self) -> SafeReport:
+        """Safe-state procedure, shielded from a second Ctrl-C while it runs."""
+        self.phase = Phase.SAFE
+        in_main = threading.current_thread() is threading.main_thread()
+        old = signal.signal(signal.SIGINT, signal.SIG_IGN) if in_main else None
+        try:
+            return self.interlocks.make_safe(
+                bleed_s=max(self.seq.hold_s, 0.01), max_wait_s=max(30.0, 10 * self.seq.hold_s)
+            )
+        finally:
+            if in_main:
+                signal.signal(signal.SIGINT, old)
+
+    def _install_sigterm(self) -> Callable[[], None]:
+        if threading.current_thread() is not threading.main_thread():
+            return lambda: None
+
+        def handler(signum: int, frame: object) -> None:
+            raise Terminated("SIGTERM")
+
+        old = signal.signal(signal.SIGTERM, handler)
+        return lambda: signal.signal(signal.SIGTERM, old)
+
+    def _iso(self) -> str:
+        return self.now().isoformat(timespec="seconds")
+
+    # -- one event --------------------------------------------------------------------------------
+    def _enter(self, event: Any, phase: Phase) -> None:
+        self.phase = phase
+        self.obs.phase(event, phase)
+
+    def _event(self, e: Any) -> None:
+        t_start = time.perf_counter()
+        b, lock, ch = self.bench, self.interlocks, self.cfg.channels
+        clock = b.clock
+        io0 = time.perf_counter()
+        self._enter(e, Phase.SETUP)
+        lock.check_voltage(e.volts)  # before any command is sent for this event
+        self._setup_for(e)
+        self._enter(e, Phase.PRECHECK)
+        lock.precheck()
+
+        self._enter(e, Phase.CHARGE)
+        b.supply.set_current_limit(self.cfg.limits.current_limit_amps)
+        b.supply.set_voltage(e.volts)
+        # break before make: discharge and bleed verified open before the charge relay closes
+        b.switch.transfer([ch.discharge, ch.bleed], [ch.charge], clock=clock, settle_s=0.0)
+        b.supply.output(True)
+        self._dwell()
+        supply_volts = b.supply.measure_voltage()
+
+        self._enter(e, Phase.ISOLATE)
+        b.supply.output(False)
+        b.supply.set_voltage(0.0)
+        b.switch.open([ch.charge])
+        lock.require_open((ch.charge,), "after charging")
+        clock.sleep(e.delay_s)
+
+        self._enter(e, Phase.ARM)
+        b.scope.arm()
+
+        self._enter(e, Phase.DISCHARGE)
+        b.switch.transfer([ch.charge, ch.bleed], [ch.discharge], clock=clock, settle_s=0.0)
+        s = self.seq.scope_for(e.mode)
+        record_s = s.points * s.sample_interval_s
+        clock.sleep(record_s)
+        captured = b.scope.wait_complete(
+            clock, timeout_s=s.acquisition_timeout_s, poll_s=max(record_s, 1e-3)
+        )
+        t_io = time.perf_counter() - io0
+
+        self._enter(e, Phase.FETCH)
+        t0 = time.perf_counter()
+        wf = self._fetch(s) if captured else None
+        t_transfer = time.perf_counter() - t0
+        io1 = time.perf_counter()
+        if not captured:
+            b.scope.abort()
+        b.switch.open([ch.discharge])
+        lock.require_open((ch.discharge,), "after the discharge")
+
+        self._enter(e, Phase.BLEED)
+        residual = lock.bleed_until_safe(
+            bleed_s=max(self.seq.hold_s, 1e-3), max_wait_s=max(30.0, 10 * self.seq.hold_s)
+        )
+        clock.sleep(self.seq.hold_s)
+        t_io += time.perf_counter() - io1
+
+        self._enter(e, Phase.COMMIT)
+        t0 = time.perf_counter()
+        row = {
+            **e.to_dict(),
+            "event": e.index,
+            "status": "captured" if captured else "not_captured",
+            "time": self._iso(),
+            "t_bench_s": clock.now(),
+            "supply_volts": supply_volts,
+            "residual_volts": residual,
+        }
+        row.pop("index", None)
+        row = self.writer.commit(row, wf)
+        t_store = time.perf_counter() - t0
+        self.obs.committed(row, wf)
+        tm = self.timing
+        tm["io"] += t_io
+        tm["transfer"] += t_transfer
+        tm["storage"] += t_store
+        tm["total"] += time.perf_counter() - t_start
+        tm["events"] += 1
+
+    def _dwell(self) -> None:
+        """Charge dwell: the planned time, or less once the supply current falls below the
+        sequence's ``charge_done_amps`` (polled ten times per dwell)."""
+        clock, seq = self.bench.clock, self.seq
+        if seq.charge_done_amps is None:
+            clock.sleep(seq.dwell_s)
+            return
+        step = seq.dwell_s / 10
+        for _ in range(10):
+            clock.sleep(step)
+            if abs(self.bench.supply.measure_current()) < seq.charge_done_amps:
+                return
+
+    def _setup_for(self, e: Any) -> None:
+        """Meter, mode, load and scope set-up, each only when it changes."""
+        b, ch = self.bench, self.cfg.channels
+        if e.meter_index != self._meter:
+            meter = self.seq.meters[e.meter_index]
+            b.connect_meter(meter.model, meter.serial, meter.sim_model)
+            self._meter, self._mode = e.meter_index, None
+        if e.mode != self._mode:
+            self.obs.message(f"mode change: {e.meter} -> {e.mode}")
+            b.meter.set_mode(e.mode)
+            self._mode = e.mode
+        if e.load != self._load:
+            loads = {ld.name: ld for ld in self.cfg.loads}
+            selectors = [ld.channel for ld in self.cfg.loads if ld.channel is not None]
+            target = loads[e.load].channel
+            others = [c for c in selectors if c != target]
+            b.switch.open([ch.discharge])
+            b.switch.transfer(others, [target] if target is not None else [], clock=b.clock, settle_s=0.0)
+            self._load = e.load
+        s = self.seq.scope_for(e.mode)
+        if s != self._scope_key:
+            self._configure_scope(s)
+            self._scope_key = s
+
+    def _configure_scope(self, s: Any) -> None:
+        sc, vpa = self.bench.scope, self.volts_per_amp
+        sc.configure_channel(
+            1,
+            coupling=s.coupling,
+            impedance_ohms=s.impedance_ohms,
+            bandwidth_hz=s.bandwidth_hz,
+            range_volts=s.current_range_amps * vpa,
+            offset_volts=s.current_offset_amps * vpa,
+        )
+        if self.cfg.divider_ratio:
+            sc.configure_channel(
+                2,
+                coupling="DC",
+                impedance_ohms=1e6,
+                bandwidth_hz=s.bandwidth_hz,
+                range_volts=s.voltage_range_volts / self.cfg.divider_ratio,
+                offset_volts=0.0,
+            )
+        sc.configure_acquisition(s.sample_interval_s, s.points, s.trigger_offset_s)
+        sc.configure_trigger(1, s.trigger_level_amps * vpa, s.trigger_slope)
+        sc.set_format(s.bits, "big")
+
+    def _fetch(self, s: Any) -> Waveform:
+        """Raw codes of the current (and voltage) inputs with scaling to amperes (and volts)."""
+        sc = self.bench.scope
+        inputs = [(1, "current", "A", 1.0 / self.volts_per_amp)]
+        if self.cfg.divider_ratio:
+            inputs.append((2, "voltage", "V", float(self.cfg.divider_ratio)))
+        traces = [(sc.fetch(k), name, unit, scale) for k, name, unit, scale in inputs]
+        first = traces[0][0]
+        n = min(len(t.codes) for t, *_ in traces)
+        codes = np.stack([t.codes[:n] for t, *_ in traces])
+        gain = np.array([t.y_increment * scale for t, _, _, scale in traces])
+        offset = np.array(
+            [(t.y_origin - t.y_reference * t.y_increment) * scale for t, _, _, scale in traces]
+        )
+        lo, hi = np.iinfo(codes.dtype).min, np.iinfo(codes.dtype).max
+        return Waveform(
+            codes=codes,
+            gain=gain,
+            offset=offset,
+            code_min=np.full(len(traces), lo),
+            code_max=np.full(len(traces), hi),
+            dt=float(first.x_increment),
+            t0=float(first.x_origin),
+            channels=tuple(name for _, name, _, _ in traces),
+            units=tuple(unit for _, _, unit, _ in traces),
+        )
+
+
+def host_info() -> dict[str, str]:
+    """Host and software identity for the manifest."""
+    import platform
+
+    import pyvisa
+
+    from rig import __version__
+
+    return {
+        "host": socket.gethostname(),
+        "platform": platform.platform(),
+        "python": sys.version.split()[0],
+        "rig": __version__,
+        "numpy": np.__version__,
+        "pyvisa": pyvisa.__version__,
+    }

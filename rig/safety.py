@@ -1,0 +1,212 @@
+"""Interlocks: limits checked before commands are sent, readbacks, residual voltage, safe state.
+
+The safe state is: supply output off and programmed to 0 V, charge and discharge relays (and
+load selectors) open, bleed relay closed, residual voltage on the meter input verified below
+the bench's limit. :meth:`Interlocks.make_safe` drives the bench there from any state and
+tries every step even when an earlier one fails, then says what it could and could not
+confirm.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+from drivers.errors import LimitError, SafetyError
+
+__all__ = ["Interlocks", "SafeReport"]
+
+log = logging.getLogger(__name__)
+
+
+@dataclass
+class SafeReport:
+    """What the safe-state procedure confirmed by readback."""
+
+    supply_off: bool | None = None
+    relays_open: bool | None = None
+    bleed_closed: bool | None = None
+    residual_volts: float | None = None
+    residual_limit: float = 1.0
+    problems: list[str] = field(default_factory=list)
+
+    @property
+    def reached(self) -> bool:
+        """True when every readback confirmed the safe state."""
+        residual_ok = self.residual_volts is None or abs(self.residual_volts) < self.residual_limit
+        return (
+            not self.problems
+            and bool(self.supply_off)
+            and bool(self.relays_open)
+            and bool(self.bleed_closed)
+            and residual_ok
+        )
+
+    def summary(self) -> str:
+        """One line for the operator."""
+        if self.residual_volts is None:
+            res = "residual not measured (no divider probe): treat the input as live"
+        else:
+            res = f"residual {self.residual_volts:.3g} V"
+        if self.reached:
+            return f"safe state reached: supply off at 0 V, relays open, bleed closed, {res}"
+        return "SAFE STATE NOT CONFIRMED: " + "; ".join(self.problems or [res])
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "reached": self.reached,
+            "supply_off": self.supply_off,
+            "relays_open": self.relays_open,
+            "bleed_closed": self.bleed_closed,
+            "residual_volts": self.residual_volts,
+            "problems": list(self.problems),
+            "summary": self.summary(),
+        }
+
+
+class Interlocks:
+    """Limits and safe-state logic for one open bench (``rig.benchopen.OpenBench``)."""
+
+    def __init__(self, bench: Any, config: Any) -> None:
+        self.bench = bench
+        self.config = config
+        self.limits = config.limits
+        ch = config.channels
+        self.charge = int(ch.charge)
+        self.discharge = int(ch.discharge)
+        self.bleed = int(ch.bleed)
+        self.selectors = tuple(int(ld.channel) for ld in config.loads if ld.channel is not None)
+        self.divider = config.divider_ratio
+
+    # -- limits (checked before any command is sent) --------------------------------------------
+    def check_voltage(self, volts: float) -> None:
+        """LimitError if a charge voltage is outside the bench's limits."""
+        if not math.isfinite(volts) or volts < 0:
+            raise LimitError(f"charge voltage {volts!r} V is not a non-negative number")
+        if volts > self.limits.max_volts:
+            raise LimitError(
+                f"charge voltage {volts:g} V exceeds the bench limit max_volts = "
+                f"{self.limits.max_volts:g} V"
+            )
+
+    # -- readbacks ------------------------------------------------------------------------------
+    def residual(self) -> float | None:
+        """Meter input voltage from the divider probe on scope input 2 (None if not fitted)."""
+        if not self.divider:
+            return None
+        return float(self.bench.scope.measure_dc(2)) * float(self.divider)
+
+    def require_open(self, channels: tuple[int, ...], why: str) -> None:
+        """SafetyError unless every listed relay reads back open."""
+        states = self.bench.switch.closed(list(channels))
+        stuck = [c for c, s in zip(channels, states, strict=True) if s]
+        if stuck:
+            raise SafetyError(f"relay channel(s) {stuck} read back closed {why}")
+
+    def precheck(self) -> float | None:
+        """Before an event: supply off, charge and discharge open, residual below the limit."""
+        if self.bench.supply.output_is_on():
+            raise SafetyError("pre-check: supply output reads back ON before charging")
+        self.require_open((self.charge, self.discharge), "before charging")
+        r = self.residual()
+        if r is not None and abs(r) >= self.limits.safe_residual_volts:
+            raise SafetyError(
+                f"pre-check: residual {r:.3g} V on the meter input is above "
+                f"safe_residual_volts = {self.limits.safe_residual_volts:g} V"
+            )
+        return r
+
+    # -- bleeding -------------------------------------------------------------------------------
+    def bleed_until_safe(
+        self, bleed_s: float, max_wait_s: float, settle_s: float = 0.01
+    ) -> float | None:
+        """Close the bleed relay, wait, open it and read the residual with the bleed open
+        (charge held behind a series capacitor comes back once the bleed lets go); repeat
+        until safe or ``max_wait_s`` is spent. Returns the residual (None if not measured);
+        SafetyError if it stays above the limit. Leaves the bleed open."""
+        clock = self.bench.clock
+        switch = self.bench.switch
+        waited = 0.0
+        step = max(bleed_s, 1e-3)
+        while True:
+            switch.close([self.bleed])
+            clock.sleep(step)
+            waited += step
+            switch.open([self.bleed])
+            clock.sleep(settle_s)
+            r = self.residual()
+            if r is None or abs(r) < self.limits.safe_residual_volts:
+                return r
+            if waited >= max_wait_s:
+                switch.close([self.bleed])
+                raise SafetyError(
+                    f"residual {r:.3g} V still above {self.limits.safe_residual_volts:g} V after "
+                    f"{waited:.3g} s of bleeding; bleed left closed"
+                )
+            step = min(step * 2, max_wait_s)
+
+    # -- the safe state -------------------------------------------------------------------------
+    def make_safe(self, bleed_s: float = 1.0, max_wait_s: float = 30.0) -> SafeReport:
+        """Drive the bench to the safe state from anywhere; never raises."""
+        rep = SafeReport(residual_limit=self.limits.safe_residual_volts)
+        b = self.bench
+        try:
+            b.supply.make_safe()
+        except Exception as exc:
+            rep.problems.append(f"supply: could not switch off ({exc})")
+        try:
+            b.scope.abort()
+        except Exception:  # an idle scope may refuse; not a safety matter
+            pass
+        risky = (self.charge, self.discharge, *self.selectors)
+        try:
+            b.switch.open(list(risky))
+        except Exception as exc:
+            rep.problems.append(f"switch: could not open {list(risky)} ({exc})")
+        try:
+            b.switch.close([self.bleed])
+        except Exception as exc:
+            rep.problems.append(f"switch: could not close bleed channel {self.bleed} ({exc})")
+        # readbacks
+        try:
+            rep.supply_off = not b.supply.output_is_on()
+            if not rep.supply_off:
+                rep.problems.append("supply output still reads back ON")
+        except Exception as exc:
+            rep.problems.append(f"supply readback failed ({exc})")
+        try:
+            states = b.switch.closed([*risky, self.bleed])
+            rep.relays_open = not any(states[:-1])
+            rep.bleed_closed = bool(states[-1])
+            if not rep.relays_open:
+                stuck = [c for c, s in zip(risky, states[:-1], strict=True) if s]
+                rep.problems.append(f"relay channel(s) {stuck} still read back closed")
+            if not rep.bleed_closed:
+                rep.problems.append(f"bleed channel {self.bleed} does not read back closed")
+        except Exception as exc:
+            rep.problems.append(f"switch readback failed ({exc})")
+        try:
+            if self.divider:
+                waited = 0.0
+                step = max(bleed_s, 1e-3)
+                while True:
+                    b.clock.sleep(step)
+                    waited += step
+                    rep.residual_volts = self.residual()
+                    if abs(rep.residual_volts) < self.limits.safe_residual_volts:
+                        break
+                    if waited >= max_wait_s:
+                        rep.problems.append(
+                            f"residual {rep.residual_volts:.3g} V above "
+                            f"{self.limits.safe_residual_volts:g} V after {waited:.3g} s"
+                        )
+                        break
+                    step = min(step * 2, max_wait_s - waited)
+            else:
+                b.clock.sleep(bleed_s)
+        except Exception as exc:
+            rep.problems.append(f"residual measurement failed ({exc})")
+        log.info("%s", rep.summary())
+        return rep
