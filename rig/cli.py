@@ -1,0 +1,523 @@
+"""The ``rig`` command: check, run, resume, verify, analyse, compare, report, simulate.
+
+Exit codes: 0 success; 1 a verdict or check said no (failed limits, not equivalent, run
+incomplete); 2 bad input (a file, a key, a value); 3 instrument or interlock trouble;
+130 interrupted by the operator.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+from drivers.errors import (
+    FileFormatError,
+    InstrumentError,
+    LimitError,
+    RigError,
+    RunFolderError,
+    SafetyError,
+)
+
+__all__ = ["main"]
+
+log = logging.getLogger("rig")
+
+CAUTION = """\
+HIGH VOLTAGE. This tool charges a meter's input to up to about a kilovolt; the voltages and
+stored charges on the bench can injure or kill. Follow your local electrical codes, your
+lab's safety rules and licensed practice: this software does not replace them. Use an
+enclosed, interlocked bench with a hardware emergency stop; treat every input and lead as
+live until measured discharged; keep hands off the bench while a run is active (Ctrl-C
+stops a run and drives the bench to its safe state)."""
+
+SOURCE_ROOT = Path(__file__).resolve().parent.parent
+DEMO_SEQUENCE = SOURCE_ROOT / "sequences" / "qualification.toml"
+DEMO_BENCH = SOURCE_ROOT / "sequences" / "benches" / "sim-demo.toml"
+
+EXIT_OK, EXIT_NO, EXIT_INPUT, EXIT_BENCH, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
+
+
+def _out(text: str = "") -> None:
+    print(text, flush=True)
+
+
+# ---------------------------------------------------------------------------------------------
+# commands
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+    from rig.files import load_bench, load_sequence
+    from rig.plan import build_plan, describe, safety_review
+
+    bench = load_bench(args.bench)
+    seq = load_sequence(args.sequence, bench)
+    plan = build_plan(seq, bench)
+    _out(describe(plan, bench, seq))
+    findings = safety_review(plan, bench, seq)
+    return EXIT_NO if any(f.level == "stop" for f in findings) else EXIT_OK
+
+
+def _operator_prompt(message: str) -> None:
+    """Ask the operator to act and confirm (real hardware)."""
+    if not sys.stdin.isatty():
+        raise SafetyError(f"operator action needed but no terminal to ask: {message}")
+    input(f"\n>>> {message} [Enter] ")
+
+
+def _confirm_hv(plan: Any, bench: Any, confirm: float | None) -> None:
+    """Real hardware above the hazardous-live limit needs an explicit confirmation."""
+    if bench.simulation is not None or plan.max_volts <= bench.limits.hazardous_live_volts:
+        return
+    if confirm is not None and abs(confirm - plan.max_volts) < 1e-9:
+        return
+    if confirm is not None:
+        raise LimitError(
+            f"--confirm-hv {confirm:g} does not match the plan's highest voltage "
+            f"{plan.max_volts:g} V"
+        )
+    _out(CAUTION)
+    if not sys.stdin.isatty():
+        raise SafetyError(
+            f"the plan charges to {plan.max_volts:g} V, above the hazardous-live limit "
+            f"{bench.limits.hazardous_live_volts:g} V: pass --confirm-hv {plan.max_volts:g}"
+        )
+    typed = input(f"Type the highest voltage ({plan.max_volts:g}) to confirm: ").strip()
+    if typed != f"{plan.max_volts:g}":
+        raise SafetyError("high-voltage confirmation not given; nothing was switched on")
+
+
+def _execute(
+    writer: Any,
+    bench_cfg: Any,
+    seq: Any,
+    plan: Any,
+    quiet: bool,
+    open_bench_fn: Callable[..., Any] | None = None,
+) -> Any:
+    """Open the bench, run the remaining events, close the bench; returns the RunOutcome."""
+    from rig.benchopen import open_bench
+    from rig.display import LiveDisplay
+    from rig.runner import Runner
+
+    first = next((e for e in plan.events if e.index not in writer.done), None)
+    sim_model = seq.meters[first.meter_index].sim_model if first else None
+    opener = open_bench_fn or open_bench
+    with opener(bench_cfg, first_sim_model=sim_model, operator=_operator_prompt) as ob:
+        writer.update_manifest(instruments=ob.identities)
+        display = LiveDisplay(plan, quiet=quiet)
+        with display:
+            outcome = Runner(ob, bench_cfg, seq, plan, writer, observer=display).run()
+    return outcome
+
+
+def _finish(outcome: Any, run_dir: Path, report: bool) -> int:
+    _out(f"run folder: {run_dir}")
+    _out(f"ended by {outcome.exit_path.value}: {outcome.done}/{outcome.planned} events")
+    _out(outcome.safe.summary())
+    if outcome.error:
+        _out(f"error: {outcome.error}")
+    if outcome.status == "complete" and report:
+        _analyse_and_report(run_dir, None)
+    if outcome.status == "interrupted":
+        _out(f"continue with: rig resume {run_dir}")
+        return EXIT_INTERRUPTED
+    if outcome.status != "complete":
+        _out(f"continue with: rig resume {run_dir}")
+        return EXIT_BENCH
+    return EXIT_OK if outcome.safe.reached else EXIT_BENCH
+
+
+def _analyse_and_report(run_dir: Path, baseline: Path | None) -> None:
+    from rig.analysis import analyze_run
+
+    result = analyze_run(run_dir)
+    for p in getattr(result, "paths", {}).values() if hasattr(result, "paths") else []:
+        _out(f"wrote {p}")
+    from rig.report import write_report
+
+    _out(f"report: {write_report(run_dir, baseline)}")
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    from rig.files import load_bench, load_sequence
+    from rig.plan import build_plan, describe, safety_review
+    from rig.runner import host_info
+    from rig.store import RunWriter, new_run_id
+
+    bench = load_bench(args.bench)
+    seq = load_sequence(args.sequence, bench)
+    plan = build_plan(seq, bench)
+    findings = safety_review(plan, bench, seq)
+    if not args.quiet:
+        _out(CAUTION)
+        _out()
+        _out(describe(plan, bench, seq))
+    if any(f.level == "stop" for f in findings):
+        _out("rig: the safety review stops this run; nothing was switched on")
+        return EXIT_NO
+    _confirm_hv(plan, bench, args.confirm_hv)
+    manifest = {
+        "sequence_file": str(Path(args.sequence).resolve()),
+        "bench_file": str(Path(args.bench).resolve()),
+        "sequence": seq.raw,
+        "bench": bench.raw,
+        "simulated": bench.simulation is not None,
+        "software": host_info(),
+        "started": _now_iso(),
+        "status": "created",
+    }
+    writer = RunWriter.create(
+        args.results,
+        new_run_id(seq.name),
+        manifest,
+        [{**e.to_dict(), "event": e.index} for e in plan.events],
+        inputs={"sequence.toml": Path(args.sequence), "bench.toml": Path(args.bench)},
+    )
+    with writer:
+        outcome = _execute(writer, bench, seq, plan, args.quiet)
+    return _finish(outcome, writer.path, report=not args.no_report)
+
+
+def cmd_resume(args: argparse.Namespace) -> int:
+    from rig.files import load_bench, load_sequence
+    from rig.plan import build_plan
+    from rig.store import RunWriter, read_plan
+
+    run = Path(args.run)
+    bench = load_bench(run / "bench.toml")
+    seq = load_sequence(run / "sequence.toml", bench)
+    plan = build_plan(seq, bench)
+    stored = [p["key"] for p in read_plan(run)]
+    if stored != [e.key for e in plan.events]:
+        raise RunFolderError(
+            f"{run / 'plan.json'}: the stored plan differs from the one its sequence gives now"
+        )
+    writer = RunWriter.reopen(run)
+    remaining = len(plan.events) - len(writer.done)
+    _out(f"resuming {run}: {len(writer.done)} done, {remaining} to go")
+    with writer:
+        outcome = _execute(writer, bench, seq, plan, args.quiet)
+    return _finish(outcome, run, report=not args.no_report)
+
+
+def cmd_verify(args: argparse.Namespace) -> int:
+    from rig.store import verify_run
+
+    v = verify_run(args.run)
+    _out(
+        f"{v.path}: status {v.status}; {v.journalled}/{v.planned} events journalled, "
+        f"{v.captured} with waveforms"
+    )
+    for n in v.notes:
+        _out(f"  note: {n}")
+    for p in v.problems:
+        _out(f"  PROBLEM: {p}")
+    if not v.ok:
+        return EXIT_NO
+    _out("  consistent" + ("" if v.status == "complete" else " (incomplete; resumable)"))
+    return EXIT_OK if v.status == "complete" else EXIT_NO
+
+
+def cmd_instruments(args: argparse.Namespace) -> int:
+    from rig.benchopen import open_bench
+    from rig.files import load_bench
+
+    bench = load_bench(args.bench)
+    with open_bench(bench, operator=_operator_prompt) as ob:
+        for s in ob._sessions:
+            errs = s.errors()
+            q = "error queue empty" if not errs else "; ".join(f"{c},{m!r}" for c, m in errs)
+            _out(f"{s.name:8s} {s.resource}  {ob.identities.get(s.name, '?')}  ({q})")
+        if ob.sim is not None:
+            _out("(simulated bench, started in-process on loopback)")
+    return EXIT_OK
+
+
+def cmd_analyze(args: argparse.Namespace) -> int:
+    from rig.analysis import analyze_run
+
+    result = analyze_run(args.run, confidence=args.confidence, coverage=args.coverage)
+    for name, p in result.paths.items():
+        _out(f"{name}: {p}")
+    groups = result.groups
+    if len(groups) and "verdict" in groups:
+        counts = groups["verdict"].value_counts().to_dict()
+        _out("verdicts: " + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())))
+        return EXIT_NO if counts.get("fail", 0) else EXIT_OK
+    return EXIT_OK
+
+
+def cmd_compare(args: argparse.Namespace) -> int:
+    from rig.compare import all_equivalent, compare_runs, write_comparison
+
+    df = compare_runs(args.run, args.baseline, tolerance=args.tolerance)
+    path = write_comparison(df, args.run, args.baseline)
+    with _pd_display():
+        _out(df.to_string(index=False))
+    _out(f"wrote {path}")
+    ok = all_equivalent(df)
+    _out("all groups equivalent" if ok else "not every group is equivalent")
+    return EXIT_OK if ok else EXIT_NO
+
+
+def cmd_measure(args: argparse.Namespace) -> int:
+    import json
+
+    from rig.measure import measure_file
+
+    m = measure_file(
+        args.file,
+        dt=args.dt,
+        shunt_ohms=args.shunt,
+        charge_volts=args.charge_volts,
+        load_ohms=args.load_ohms,
+    )
+    if args.json:
+        _out(json.dumps(m, indent=2, default=float))
+    else:
+        from rig.units import eng, metric_unit
+
+        width = max(len(k) for k in m)
+        for k, v in m.items():
+            _out(f"{k:<{width}}  {eng(v, metric_unit(k)) if isinstance(v, float) else v}")
+    return EXIT_OK
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from rig.report import write_report
+
+    run = Path(args.run)
+    if not (run / "metrics.parquet").exists():
+        from rig.analysis import analyze_run
+
+        analyze_run(run)
+    _out(f"report: {write_report(run, Path(args.baseline) if args.baseline else None)}")
+    return EXIT_OK
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    _out(CAUTION)
+    _out()
+    _out("Demo: qualification of two invented candidate meters on the simulated bench.")
+    ns = argparse.Namespace(
+        sequence=str(DEMO_SEQUENCE),
+        bench=str(DEMO_BENCH),
+        results=args.results,
+        confirm_hv=None,
+        quiet=args.quiet,
+        no_report=False,
+    )
+    return cmd_run(ns)
+
+
+def cmd_sim_serve(args: argparse.Namespace) -> int:
+    import time
+
+    from drivers.clock import RealClock
+    from drivers.sim.bench import start_sim_bench
+    from rig.files import load_bench, resolve_meter_model
+
+    bench = load_bench(args.bench)
+    if bench.simulation is None:
+        raise FileFormatError(args.bench, "simulation", "this bench file has no [simulation] table")
+    from dataclasses import replace
+
+    cfg = bench.simulation.world
+    if args.meter:
+        cfg = replace(cfg, meter_model=str(resolve_meter_model(args.meter)))
+    with start_sim_bench(cfg, RealClock()) as sim:
+        _out(CAUTION.splitlines()[0] + " (simulated: no voltage leaves this computer)")
+        _out(f"simulated bench running in real time, meter model {cfg.meter_model}")
+        for role, res in sim.resources.items():
+            _out(f"  {role:8s} {res}")
+        _out("profile: drivers/profiles/scpi1999.toml; Ctrl-C stops")
+        try:
+            while True:
+                time.sleep(args.poll)
+        except KeyboardInterrupt:
+            _out("stopped")
+    return EXIT_OK
+
+
+# ---------------------------------------------------------------------------------------------
+# plumbing
+
+
+def _now_iso() -> str:
+    from datetime import UTC, datetime
+
+    return datetime.now(UTC).isoformat(timespec="seconds")
+
+
+class _pd_display:
+    def __enter__(self) -> None:
+        import pandas as pd
+
+        self._ctx = pd.option_context("display.width", 160, "display.max_columns", 20)
+        self._ctx.__enter__()
+
+    def __exit__(self, *exc: object) -> None:
+        self._ctx.__exit__(*exc)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="rig",
+        description="Controller and analysis for a meter input-discharge test bench.",
+        epilog=CAUTION,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("-v", "--verbose", action="count", default=0, help="more logging (-vv: SCPI)")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    def add(
+        name: str, fn: Callable[[argparse.Namespace], int], help: str
+    ) -> argparse.ArgumentParser:
+        sp = sub.add_parser(
+            name,
+            help=help,
+            description=help,
+            epilog=CAUTION,
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+        sp.set_defaults(func=fn)
+        return sp
+
+    sp = add(
+        "demo",
+        cmd_demo,
+        "run the bundled two-meter qualification on the simulated bench, "
+        "analyse it and write the report",
+    )
+    sp.add_argument("--results", default="results", help="folder for run folders (default results)")
+    sp.add_argument("--quiet", action="store_true", help="no live display")
+
+    sp = add("check", cmd_check, "print the plan and the safety review; touches no instrument")
+    sp.add_argument("sequence", help="sequence file (TOML)")
+    sp.add_argument("--bench", required=True, help="bench file (TOML)")
+
+    sp = add("run", cmd_run, "run a sequence on a bench into a new run folder")
+    sp.add_argument("sequence", help="sequence file (TOML)")
+    sp.add_argument("--bench", required=True, help="bench file (TOML)")
+    sp.add_argument("--results", default="results", help="folder for run folders (default results)")
+    sp.add_argument(
+        "--confirm-hv",
+        type=float,
+        metavar="VOLTS",
+        help="confirm, without a prompt, the highest voltage of the plan (real hardware)",
+    )
+    sp.add_argument("--no-report", action="store_true", help="skip analysis and report at the end")
+    sp.add_argument("--quiet", action="store_true", help="no live display")
+
+    sp = add("resume", cmd_resume, "continue an interrupted run (no gaps, no duplicates)")
+    sp.add_argument("run", help="run folder")
+    sp.add_argument("--no-report", action="store_true", help="skip analysis and report at the end")
+    sp.add_argument("--quiet", action="store_true", help="no live display")
+
+    sp = add("verify", cmd_verify, "check a run folder's counts and checksums")
+    sp.add_argument("run", help="run folder")
+
+    sp = add(
+        "instruments",
+        cmd_instruments,
+        "identify each instrument of a bench and read its error queue",
+    )
+    sp.add_argument("bench", help="bench file (TOML)")
+
+    sp = add(
+        "analyze",
+        cmd_analyze,
+        "per-event metrics (metrics.parquet) and group statistics (groups.csv) of a run",
+    )
+    sp.add_argument("run", help="run folder")
+    sp.add_argument(
+        "--confidence",
+        type=float,
+        default=0.95,
+        help="confidence of the tolerance bound (default 0.95)",
+    )
+    sp.add_argument(
+        "--coverage",
+        type=float,
+        default=0.99,
+        help="coverage of the tolerance bound (default 0.99)",
+    )
+
+    sp = add(
+        "compare",
+        cmd_compare,
+        "compare a run with a baseline run; exit 0 only if every group is equivalent",
+    )
+    sp.add_argument("run", help="run folder (e.g. after repair)")
+    sp.add_argument("--baseline", required=True, help="baseline run folder")
+    sp.add_argument(
+        "--tolerance",
+        type=float,
+        default=0.10,
+        help="equivalence margin on the ratio of medians (default 0.10 = +-10 %%)",
+    )
+
+    sp = add("measure", cmd_measure, "metrics of one waveform saved elsewhere (CSV or .npy)")
+    sp.add_argument("file", help="CSV with time and current (or voltage) columns, or .npy")
+    sp.add_argument("--charge-volts", type=float, required=True, help="charge voltage, V")
+    sp.add_argument("--load-ohms", type=float, required=True, help="load resistance, ohms")
+    sp.add_argument(
+        "--shunt",
+        type=float,
+        metavar="OHMS",
+        help="the CSV holds shunt voltage; divide by this resistance",
+    )
+    sp.add_argument("--dt", type=float, metavar="SECONDS", help="sample interval of a .npy file")
+    sp.add_argument("--json", action="store_true", help="print JSON")
+
+    sp = add("report", cmd_report, "write report.html and figures/ for a run")
+    sp.add_argument("run", help="run folder")
+    sp.add_argument("--baseline", help="baseline run folder to overlay and compare")
+
+    sim = add("sim", lambda a: (sim.print_help(), EXIT_INPUT)[1], "simulated bench tools")
+    simsub = sim.add_subparsers(dest="sim_command", metavar="SUBCOMMAND")
+    sp = simsub.add_parser(
+        "serve",
+        help="serve the simulated bench on loopback in real time "
+        "and print each instrument's VISA resource string",
+        description="serve the simulated bench on loopback in real time",
+    )
+    sp.set_defaults(func=cmd_sim_serve)
+    sp.add_argument("bench", help="bench file with a [simulation] table")
+    sp.add_argument("--meter", help="meter model id or netlist path (default: the bench's)")
+    sp.add_argument("--poll", type=float, default=0.5, help=argparse.SUPPRESS)
+    return p
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``rig`` console script."""
+    args = build_parser().parse_args(argv)
+    level = (logging.WARNING, logging.INFO, logging.DEBUG)[min(args.verbose, 2)]
+    logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
+    try:
+        return int(args.func(args))
+    except (FileFormatError, LimitError, RunFolderError) as exc:
+        print(f"rig: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except (InstrumentError, SafetyError) as exc:
+        print(f"rig: error: {exc}", file=sys.stderr)
+        return EXIT_BENCH
+    except RigError as exc:
+        print(f"rig: error: {exc}", file=sys.stderr)
+        return EXIT_BENCH
+    except OSError as exc:  # a file that cannot be read or written
+        where = exc.filename or ""
+        print(f"rig: error: {where}: {exc.strerror or exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("rig: interrupted", file=sys.stderr)
+        return EXIT_INTERRUPTED
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,156 @@
+"""Live display of a run: a progress bar with ETA and a small table per group.
+
+The numbers in the table come from the analysis module applied to each committed waveform
+(the runner itself computes no metrics). With ``quiet`` or without a terminal, one log line
+per group change and per tenth of the plan is printed instead.
+"""
+
+from __future__ import annotations
+
+import statistics
+import sys
+from collections import OrderedDict
+from dataclasses import dataclass, field
+from typing import Any
+
+from rich.console import Console, Group
+from rich.live import Live
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+from rich.table import Table
+
+from rig.runner import Observer, Phase
+from rig.units import eng
+from rig.waveform import Waveform
+
+__all__ = ["LiveDisplay"]
+
+
+@dataclass
+class _GroupRow:
+    done: int = 0
+    peaks: list[float] = field(default_factory=list)
+    flags: int = 0
+    last: float | None = None
+
+
+def _event_peak(wf: Waveform) -> tuple[float | None, bool]:
+    """|Peak current| of one event and whether analysis flagged it (via rig.analysis)."""
+    from rig.analysis import quick_metrics
+
+    m = quick_metrics(wf)
+    return m["abs_peak_a"], bool(m["flagged"])
+
+
+class LiveDisplay(Observer):
+    """Observer that renders progress; a context manager around the run."""
+
+    def __init__(self, plan: Any, *, quiet: bool = False, console: Console | None = None) -> None:
+        self.plan = plan
+        self.console = console or Console(stderr=True)
+        self.quiet = quiet or not self.console.is_terminal
+        self.groups: OrderedDict[tuple, _GroupRow] = OrderedDict()
+        self.progress = Progress(
+            TextColumn("[bold]{task.description}"),
+            BarColumn(),
+            MofNCompleteColumn(),
+            TextColumn("events"),
+            TimeRemainingColumn(),
+            console=self.console,
+        )
+        self.task = self.progress.add_task("run", total=len(plan.events))
+        self._live: Live | None = None
+        self._done = 0
+        self._planned = len(plan.events)
+
+    # -- context ---------------------------------------------------------------------------------
+    def __enter__(self) -> LiveDisplay:
+        if not self.quiet:
+            self._live = Live(self._render(), console=self.console, refresh_per_second=4)
+            self._live.__enter__()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        if self._live is not None:
+            self._live.update(self._render())
+            self._live.__exit__(*exc)
+            self._live = None
+
+    # -- observer --------------------------------------------------------------------------------
+    def start(self, planned: int, done: int) -> None:
+        self._done = done
+        self.progress.update(self.task, completed=done)
+        if done:
+            self.message(f"{done} of {planned} events already done; continuing")
+
+    def phase(self, event: Any, phase: Phase) -> None:
+        if phase is Phase.SETUP:
+            self.progress.update(
+                self.task, description=f"{event.meter} {event.mode} {event.volts:g} V"
+            )
+
+    def committed(self, row: dict[str, Any], waveform: Waveform | None) -> None:
+        key = (row["meter"], row["mode"], row["volts"], row["load"], row["delay_s"])
+        g = self.groups.setdefault(key, _GroupRow())
+        g.done += 1
+        if waveform is None:
+            g.flags += 1
+            g.last = None
+        else:
+            peak, flagged = _event_peak(waveform)
+            g.flags += int(flagged)
+            g.last = peak
+            if peak is not None and peak == peak:  # NaN-safe
+                g.peaks.append(peak)
+        self._done += 1
+        self.progress.update(self.task, completed=self._done)
+        if self._live is not None:
+            self._live.update(self._render())
+        elif g.done == 1 or self._done % max(1, self._planned // 10) == 0:
+            self.message(f"{self._done}/{self._planned} events; {self._describe(key, g)}")
+
+    def message(self, text: str) -> None:
+        if self._live is not None:
+            self._live.console.print(text)
+        else:
+            print(text, file=sys.stderr, flush=True)
+
+    # -- rendering -------------------------------------------------------------------------------
+    @staticmethod
+    def _describe(key: tuple, g: _GroupRow) -> str:
+        meter, mode, volts, load, delay = key
+        med = statistics.median(g.peaks) if g.peaks else None
+        return (
+            f"{meter} {mode} {volts:g} V {load}: {g.done} done, last "
+            f"{eng(g.last, 'A')}, median {eng(med, 'A')}, flagged {g.flags}"
+        )
+
+    def _render(self) -> Group:
+        table = Table(title=None, expand=False, pad_edge=False)
+        for col in (
+            "meter",
+            "mode",
+            "volts",
+            "load",
+            "delay",
+            "done",
+            "last |peak|",
+            "median",
+            "flagged",
+        ):
+            table.add_column(
+                col, justify="right" if col not in ("meter", "mode", "load") else "left"
+            )
+        for (meter, mode, volts, load, delay), g in list(self.groups.items())[-12:]:
+            med = statistics.median(g.peaks) if g.peaks else None
+            table.add_row(
+                str(meter),
+                str(mode),
+                f"{volts:g} V",
+                str(load),
+                eng(delay, "s"),
+                str(g.done),
+                eng(g.last, "A"),
+                eng(med, "A"),
+                str(g.flags),
+            )
+        return Group(self.progress, table)

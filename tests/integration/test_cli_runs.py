@@ -1,0 +1,153 @@
+"""The `rig` command as a user runs it: in a subprocess, killed at random moments, resumed."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from rig.cli import main
+from rig.store import read_journal, read_plan
+
+from .test_runner import BENCH, write_sequence
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def rig(*args: str, timeout: float = 300) -> subprocess.CompletedProcess:
+    return subprocess.run(
+        [sys.executable, "-m", "rig.cli", *args],
+        capture_output=True,
+        text=True,
+        timeout=timeout,
+        cwd=ROOT,
+    )
+
+
+def only_run(results: Path) -> Path:
+    runs = [p for p in results.iterdir() if p.is_dir()]
+    assert len(runs) == 1, runs
+    return runs[0]
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGKILL], ids=["SIGINT", "SIGKILL"])
+def test_killed_run_verifies_and_resumes(tmp_path, seed, sig):
+    rng = np.random.default_rng(seed)
+    seq = write_sequence(tmp_path, modes=("AC V", "DC V"), volts=(1000,), reps=15, points=2000)
+    results = tmp_path / "results"
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "rig.cli",
+            "run",
+            str(seq),
+            "--bench",
+            str(BENCH),
+            "--results",
+            str(results),
+            "--no-report",
+            "--quiet",
+        ],
+        cwd=ROOT,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    # wait until the run has started journalling, then strike at a random moment
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline:
+        runs = [p for p in results.glob("*") if (p / "journal.jsonl").exists()]
+        if runs and (runs[0] / "journal.jsonl").stat().st_size > 0:
+            break
+        time.sleep(0.05)
+    time.sleep(float(rng.uniform(0.0, 1.5)))
+    if proc.poll() is None:
+        os.kill(proc.pid, sig)
+    out, err = proc.communicate(timeout=120)
+    run = only_run(results)
+    if sig == signal.SIGINT and proc.returncode == 130:
+        assert "Ctrl-C" in out + err
+        assert "safe state reached" in out + err
+
+    journal_before = read_journal(run)  # readable whatever the moment of the kill
+    v = rig("verify", str(run))
+    assert "events journalled" in v.stdout
+    if len(journal_before) < len(read_plan(run)):
+        assert v.returncode == 1 and "rig resume" in v.stdout
+
+    r = rig("resume", str(run), "--no-report", "--quiet")
+    assert r.returncode == 0, r.stdout + r.stderr
+    v = rig("verify", str(run))
+    assert v.returncode == 0, v.stdout
+    table = pd.read_parquet(run / "events.parquet")
+    planned = [p["event"] for p in read_plan(run)]
+    assert sorted(table["event"].tolist()) == planned  # each planned event exactly once
+
+
+def test_run_analyze_report_from_the_cli(tmp_path):
+    seq = write_sequence(tmp_path, modes=("AC V", "DC V"), volts=(500, 1000), reps=5, points=4000)
+    results = tmp_path / "results"
+    r = rig("run", str(seq), "--bench", str(BENCH), "--results", str(results), "--quiet")
+    assert r.returncode == 0, r.stdout + r.stderr
+    assert "HIGH VOLTAGE" in r.stdout
+    run = only_run(results)
+    for name in (
+        "manifest.json",
+        "plan.json",
+        "journal.jsonl",
+        "events.parquet",
+        "metrics.parquet",
+        "groups.csv",
+        "report.html",
+        "sequence.toml",
+        "bench.toml",
+    ):
+        assert (run / name).exists(), name
+    assert rig("verify", str(run)).returncode == 0
+
+
+BAD_INPUTS = {
+    "unknown-key": ("[sequence]\nname='x'\nnmae='y'\n", "nmae"),
+    "toml-syntax": ("[sequence\nname='x'\n", "line"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(BAD_INPUTS))
+def test_bad_sequence_is_one_line_and_exit_2(tmp_path, capsys, case):
+    text, must = BAD_INPUTS[case]
+    p = tmp_path / f"{case}.toml"
+    p.write_text(text)
+    code = main(["check", str(p), "--bench", str(BENCH)])
+    err = capsys.readouterr().err.strip()
+    assert code == 2
+    assert len(err.splitlines()) == 1, err
+    assert str(p) in err and must in err
+
+
+def test_missing_file_is_one_line_and_exit_2(tmp_path, capsys):
+    code = main(["check", str(tmp_path / "nope.toml"), "--bench", str(BENCH)])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and len(err.splitlines()) == 1 and "nope.toml" in err
+
+
+def test_corrupt_run_folder_is_one_line_and_exit_2(tmp_path, capsys):
+    (tmp_path / "manifest.json").write_text("{not json")
+    code = main(["verify", str(tmp_path)])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and "manifest.json" in err and len(err.splitlines()) == 1
+
+
+def test_help_shows_the_caution(capsys):
+    with pytest.raises(SystemExit):
+        main(["--help"])
+    out = capsys.readouterr().out
+    assert "HIGH VOLTAGE" in out and "licensed practice" in out

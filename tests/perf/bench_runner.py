@@ -1,0 +1,87 @@
+"""Wall time per event of a 1,000-event run on the simulated bench in virtual time.
+
+Prints the split: instrument I/O (SCPI exchanges, including the simulated instruments'
+own work, which runs in this process), waveform transfer, storage (waveform file, journal,
+fsync), and everything else (the controller itself). Target: controller overhead -
+everything but I/O and transfer - below 5 ms per event.
+
+    python tests/perf/bench_runner.py [EVENTS] [POINTS]
+"""
+
+from __future__ import annotations
+
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+from rig.benchopen import open_bench  # noqa: E402
+from rig.files import load_bench, load_sequence  # noqa: E402
+from rig.plan import build_plan  # noqa: E402
+from rig.runner import Runner  # noqa: E402
+from rig.store import RunWriter  # noqa: E402
+
+SEQ = """
+[sequence]
+name = "bench-runner"
+[[meters]]
+model = "Benchmark meter"
+serial = "B-1"
+rating = "CAT III 1000 V"
+modes = ["AC V", "DC V"]
+sim_model = "demo-a"
+[charge]
+volts = [1000]
+repetitions = {reps}
+dwell_s = 1.0
+hold_s = 0.05
+delays_s = [0.0]
+loads = ["short"]
+[scope]
+sample_interval_s = 1e-9
+points = {points}
+trigger_offset_s = -1e-6
+current_range_amps = 40.0
+trigger_level_amps = 0.2
+bits = 8
+bandwidth_hz = 500e6
+"""
+
+
+def main() -> None:
+    events = int(sys.argv[1]) if len(sys.argv) > 1 else 1000
+    points = int(sys.argv[2]) if len(sys.argv) > 2 else 20000
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        seq_path = tmp / "seq.toml"
+        seq_path.write_text(SEQ.format(reps=events // 2, points=points))
+        bench = load_bench(ROOT / "sequences" / "benches" / "sim-demo.toml")
+        seq = load_sequence(seq_path, bench)
+        plan = build_plan(seq, bench)
+        plan_rows = [{**e.to_dict(), "event": e.index} for e in plan.events]
+        writer = RunWriter.create(tmp, "bench", {"status": "created"}, plan_rows)
+        t0 = time.perf_counter()
+        with writer, open_bench(bench, first_sim_model=seq.meters[0].sim_model) as ob:
+            outcome = Runner(ob, bench, seq, plan, writer).run()
+        wall = time.perf_counter() - t0
+    tm = outcome.timing
+    n = max(int(tm["events"]), 1)
+    other = tm["total"] - tm["io"] - tm["transfer"] - tm["storage"]
+    ms = 1e3 / n
+    print(f"events: {n} ({outcome.status}), {points} points per record, wall {wall:.1f} s "
+          f"({wall / n * 1e3:.1f} ms per event incl. set-up and safe state)")
+    print(f"  instrument I/O     {tm['io'] * ms:8.2f} ms/event")
+    print(f"  waveform transfer  {tm['transfer'] * ms:8.2f} ms/event")
+    print(f"  storage            {tm['storage'] * ms:8.2f} ms/event")
+    print(f"  everything else    {other * ms:8.2f} ms/event")
+    overhead = (tm["storage"] + other) * ms
+    verdict = "met" if overhead < 5.0 else "NOT met"
+    print(f"controller overhead (storage + everything else): {overhead:.2f} ms/event; "
+          f"target < 5 ms: {verdict}")
+
+
+if __name__ == "__main__":
+    main()
