@@ -1,0 +1,276 @@
+"""The digitising oscilloscope role: input set-up, single-shot acquisition, raw-code fetch.
+
+A fetched :class:`Trace` keeps the raw ADC codes plus the preamble's scaling, so the run
+folder can store codes (small, exact) and analysis can scale them later:
+``volts = (code - y_reference) * y_increment + y_origin`` and
+``seconds from trigger = x_origin + index * x_increment``.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+
+from drivers.clock import Clock
+from drivers.errors import BlockFormatError, InstrumentError, LimitError
+from drivers.profile import Profile
+from drivers.session import ByteOrder, ScpiSession
+
+__all__ = ["Scope", "Trace"]
+
+log = logging.getLogger(__name__)
+
+# SCPI-1999 STATus:OPERation bits (as the shipped profile states): 3 sweeping (acquiring),
+# 5 waiting for trigger.
+SWEEPING_BIT = 1 << 3
+WAITING_BIT = 1 << 5
+
+_COUPLINGS = {"AC", "DC"}
+_SLOPES = {
+    "positive": "POSitive",
+    "pos": "POSitive",
+    "rising": "POSitive",
+    "negative": "NEGative",
+    "neg": "NEGative",
+    "falling": "NEGative",
+    "either": "EITHer",
+    "eith": "EITHer",
+    "both": "EITHer",
+}
+# FORMat:BORDer NORMal sends the most significant byte first (big-endian), SWAPped the
+# least significant first. Common practice, no source at hand ([M] SCPI-1999 vol. 2).
+_ORDERS: dict[str, str] = {"big": "NORMal", "little": "SWAPped"}
+
+
+@dataclass(frozen=True)
+class Trace:
+    """One channel's raw codes with the scaling from the scope's preamble."""
+
+    codes: np.ndarray  # int8 or int16, one per sample
+    x_increment: float  # seconds per sample
+    x_origin: float  # seconds from the trigger to sample 0
+    y_increment: float  # volts per code
+    y_origin: float  # volts at code y_reference
+    y_reference: float  # code of y_origin
+    bits: int  # 8 or 16
+
+    def volts(self) -> np.ndarray:
+        """The samples in volts (float64)."""
+        return (self.codes.astype(np.float64) - self.y_reference) * self.y_increment + self.y_origin
+
+    def time(self) -> np.ndarray:
+        """Sample times in seconds from the trigger (float64)."""
+        return self.x_origin + self.x_increment * np.arange(len(self.codes), dtype=np.float64)
+
+
+class Scope:
+    """An oscilloscope driven through the profile's ``[scope]`` templates."""
+
+    ROLE = "scope"
+
+    def __init__(self, session: ScpiSession, profile: Profile) -> None:
+        profile.require_role(self.ROLE)
+        self.session = session
+        self.profile = profile
+        self._ranges = profile.ranges(self.ROLE)
+        self._format: tuple[int, ByteOrder] | None = None
+
+    @property
+    def name(self) -> str:
+        """Instrument name used in errors."""
+        return self.session.name
+
+    # -- helpers ------------------------------------------------------------------------------
+    def _cmd(self, operation: str, **fields: object) -> str:
+        return self.profile.command(self.ROLE, operation, **fields)
+
+    def _write(self, operation: str, **fields: object) -> None:
+        self.session.write(self._cmd(operation, **fields))
+
+    def _in_range(self, key: str, value: float, what: str) -> None:
+        low, high = self._ranges[key]
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            raise LimitError(f"{self.name}: {what} must be a number, got {value!r}")
+        if not (math.isfinite(value) and low <= value <= high):
+            raise LimitError(
+                f"{self.name}: {what} {value!r} outside [{low:g}, {high:g}] "
+                f"(profile {self.profile.path.name} [scope.ranges] {key})"
+            )
+
+    def _positive(self, value: float | None, what: str) -> float:
+        if (
+            isinstance(value, bool)
+            or not isinstance(value, int | float)
+            or not (math.isfinite(value) and value > 0)
+        ):
+            raise LimitError(f"{self.name}: {what} must be a positive number, got {value!r}")
+        return float(value)
+
+    def _finite(self, value: float, what: str) -> float:
+        if (
+            isinstance(value, bool)
+            or not isinstance(value, int | float)
+            or not math.isfinite(value)
+        ):
+            raise LimitError(f"{self.name}: {what} must be a finite number, got {value!r}")
+        return float(value)
+
+    # -- set-up -------------------------------------------------------------------------------
+    def configure_channel(
+        self,
+        ch: int,
+        *,
+        coupling: str,
+        impedance_ohms: float,
+        bandwidth_hz: float | None,
+        range_volts: float,
+        offset_volts: float,
+        enabled: bool = True,
+    ) -> None:
+        """Set up input ``ch``: coupling ``"AC"``/``"DC"``, input impedance (ohms), bandwidth
+        limit (Hz; None = limit off), full-scale peak-to-peak range (volts), offset at
+        mid-scale (volts), and whether the channel is acquired. All values are checked
+        before the first command is sent."""
+        self._in_range("channel", ch, "channel")
+        coup = str(coupling).upper()
+        if coup not in _COUPLINGS:
+            raise LimitError(f"{self.name}: coupling {coupling!r} is not AC or DC")
+        ohms = self._positive(impedance_ohms, "impedance_ohms")
+        hz = None if bandwidth_hz is None else self._positive(bandwidth_hz, "bandwidth_hz")
+        span = self._positive(range_volts, "range_volts")
+        offset = self._finite(offset_volts, "offset_volts")
+        self._write("set_channel_state", ch=ch, state="ON" if enabled else "OFF")
+        self._write("set_coupling", ch=ch, coupling=coup)
+        self._write("set_impedance", ch=ch, ohms=ohms)
+        if hz is None:
+            self._write("set_bandwidth_state", ch=ch, state="OFF")
+        else:
+            self._write("set_bandwidth", ch=ch, hz=hz)
+            self._write("set_bandwidth_state", ch=ch, state="ON")
+        self._write("set_range", ch=ch, volts=span)
+        self._write("set_offset", ch=ch, volts=offset)
+
+    def configure_acquisition(
+        self, sample_interval_s: float, points: int, trigger_offset_s: float
+    ) -> None:
+        """Sample interval (seconds), record length (points) and time of the first sample
+        relative to the trigger (seconds; negative keeps pre-trigger samples)."""
+        self._in_range("seconds", sample_interval_s, "sample_interval_s")
+        if isinstance(points, bool) or not isinstance(points, int | np.integer):
+            raise LimitError(f"{self.name}: points must be an integer, got {points!r}")
+        self._in_range("points", int(points), "points")
+        offset = self._finite(trigger_offset_s, "trigger_offset_s")
+        self._write("set_sample_interval", seconds=float(sample_interval_s))
+        self._write("set_points", points=int(points))
+        self._write("set_trigger_offset", seconds=offset)
+
+    def configure_trigger(self, ch: int, level_volts: float, slope: str) -> None:
+        """Edge trigger on input ``ch`` at ``level_volts`` (volts); ``slope`` is
+        ``"positive"``, ``"negative"`` or ``"either"`` (SCPI forms accepted too)."""
+        self._in_range("channel", ch, "trigger channel")
+        level = self._finite(level_volts, "level_volts")
+        word = _SLOPES.get(str(slope).strip().lower())
+        if word is None:
+            raise LimitError(f"{self.name}: slope {slope!r} is not positive, negative or either")
+        self._write("set_trigger_source", ch=ch)
+        self._write("set_trigger_level", volts=level)
+        self._write("set_trigger_slope", slope=word)
+
+    def set_format(self, bits: int, byte_order: ByteOrder) -> None:
+        """Raw-code transfer format: 8 or 16 bit signed integers, ``"big"``/``"little"``."""
+        if bits not in (8, 16) or isinstance(bits, bool):
+            raise LimitError(f"{self.name}: bits must be 8 or 16, got {bits!r}")
+        if byte_order not in _ORDERS:
+            raise LimitError(f"{self.name}: byte order {byte_order!r} is not big or little")
+        self._write("set_format", fmt=f"INT,{bits}")
+        self._write("set_byte_order", order=_ORDERS[byte_order])
+        self._format = (bits, byte_order)
+
+    # -- acquisition --------------------------------------------------------------------------
+    def arm(self) -> None:
+        """Start one single-shot acquisition (it then waits for its trigger)."""
+        self._write("single")
+
+    def abort(self) -> None:
+        """Stop the acquisition in progress, if any."""
+        self._write("abort")
+
+    def condition(self) -> int:
+        """The STATus:OPERation condition register."""
+        return self.session.query_int(self._cmd("get_condition"))
+
+    def state(self) -> Literal["waiting", "acquiring", "complete"]:
+        """``"waiting"`` for the trigger, ``"acquiring"`` (sweeping), or ``"complete"``."""
+        cond = self.condition()
+        if cond & WAITING_BIT:
+            return "waiting"
+        if cond & SWEEPING_BIT:
+            return "acquiring"
+        return "complete"
+
+    def wait_complete(self, clock: Clock, timeout_s: float, poll_s: float) -> bool:
+        """Poll :meth:`state` every ``poll_s`` seconds on ``clock`` (a virtual clock advances)
+        until the acquisition is complete (True) or ``timeout_s`` seconds have passed
+        (False)."""
+        poll = self._positive(poll_s, "poll_s")
+        limit = self._finite(timeout_s, "timeout_s")
+        start = clock.now()
+        while True:
+            if self.state() == "complete":
+                return True
+            left = limit - (clock.now() - start)
+            if left <= 0:
+                log.info(
+                    "%s: acquisition not complete after %g s",
+                    self.name,
+                    limit,
+                    extra={"instrument": self.name},
+                )
+                return False
+            clock.sleep(min(poll, left))
+
+    def fetch(self, ch: int) -> Trace:
+        """Raw codes and scaling of input ``ch`` from the last acquisition.
+
+        Uses the format last set with :meth:`set_format`; if none was set, sets 8-bit
+        big-endian first so the driver and the instrument agree.
+        """
+        self._in_range("channel", ch, "channel")
+        if self._format is None:
+            self.set_format(8, "big")
+        assert self._format is not None
+        bits, order = self._format
+        pre_cmd = self._cmd("preamble", ch=ch)
+        text = self.session.query(pre_cmd)
+        fields = self.profile.preamble_fields
+        try:
+            values = [float(v) for v in text.split(",")]
+            pick = {k: values[i] for k, i in fields.items()}
+        except (ValueError, IndexError):
+            raise InstrumentError(
+                self.name, pre_cmd, f"preamble {text!r} does not fit [scope.preamble_fields]"
+            ) from None
+        cmd = self._cmd("fetch", ch=ch)
+        codes = self.session.query_block(cmd, "int8" if bits == 8 else "int16", order)
+        if len(codes) != int(pick["points"]):
+            raise BlockFormatError(
+                self.name, cmd, f"block holds {len(codes)} points, preamble says {pick['points']:g}"
+            )
+        return Trace(
+            codes=codes,
+            x_increment=pick["x_increment"],
+            x_origin=pick["x_origin"],
+            y_increment=pick["y_increment"],
+            y_origin=pick["y_origin"],
+            y_reference=pick["y_reference"],
+            bits=bits,
+        )
+
+    def measure_dc(self, ch: int) -> float:
+        """Mean voltage at input ``ch`` now, volts."""
+        self._in_range("channel", ch, "channel")
+        return self.session.query_float(self._cmd("measure_dc", ch=ch))
