@@ -1,0 +1,471 @@
+"""The plan: the ordered list of discharge events, its duration estimate and a safety review.
+
+Events are grouped by meter, then by mode (so that the operator turns the dial, or the rig
+sends a function command, as seldom as possible), and inside a mode by voltage, load, delay
+and repetition, in the order the sequence file lists them. With ``order = "shuffled"`` the
+events of each (meter, mode) block are put in a seeded random order, and only inside that
+block: drift in the bench then spreads over all groups instead of biasing the last ones,
+while the number of mode changes stays the same.
+
+Nothing here touches an instrument.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import tomllib
+from dataclasses import asdict, dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from rig.files import Bench, MeterSpec, Sequence
+
+__all__ = [
+    "EVENT_OVERHEAD_S",
+    "METER_CHANGE_S",
+    "MODE_CHANGE_MANUAL_S",
+    "MODE_CHANGE_SCPI_S",
+    "Event",
+    "Finding",
+    "Plan",
+    "build_plan",
+    "describe",
+    "meter_capacitance_f",
+    "safety_review",
+]
+
+log = logging.getLogger(__name__)
+
+# Allowances for the duration estimate (our own rough figures, common practice, no source):
+EVENT_OVERHEAD_S = 0.3  # SCPI exchanges per event: program, switch, arm, fetch, commit
+MODE_CHANGE_MANUAL_S = 15.0  # operator reads the prompt, turns the dial, confirms
+MODE_CHANGE_SCPI_S = 1.0  # function command and the meter settling
+METER_CHANGE_S = 120.0  # operator swaps the meter under test and its leads
+
+
+@dataclass(frozen=True)
+class Event:
+    """One planned discharge event (what the runner does and the journal records)."""
+
+    index: int  # position in the plan, 0-based
+    key: str  # stable identity, e.g. "m0|AC V|1000|short|0|r007"
+    meter_index: int  # index into sequence.meters
+    meter: str  # meter model
+    serial: str
+    mode: str
+    volts: float  # charge setpoint, V
+    load: str  # load name
+    load_ohms: float  # its resistance, ohm
+    delay_s: float  # open-circuit wait between charge and discharge, s
+    rep: int  # repetition number inside its group, 0-based
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain JSON-ready dict of every field."""
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class Plan:
+    """The ordered events and figures about them."""
+
+    events: tuple[Event, ...]
+    mode_changes: int  # times the mode is set after the first event (a new meter counts)
+    meter_changes: int  # times the meter under test is swapped
+    max_volts: float  # highest charge voltage in the plan, V
+    estimated_s: float  # rough real-time duration, s (see module constants)
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One result of the safety review: "stop" forbids the run, "warn" and "info" inform."""
+
+    level: str  # "info" | "warn" | "stop"
+    message: str
+
+
+def _number_text(value: float) -> str:
+    return f"{value:.10g}"
+
+
+def event_key(
+    meter_index: int, mode: str, volts: float, load: str, delay_s: float, rep: int
+) -> str:
+    """The stable key of an event; unchanged as long as the sequence file is unchanged."""
+    return f"m{meter_index}|{mode}|{_number_text(volts)}|{load}|{_number_text(delay_s)}|r{rep:03d}"
+
+
+def build_plan(sequence: Sequence, bench: Bench) -> Plan:
+    """Order the sequence's events and estimate the run's duration (s, real time)."""
+    blocks: list[list[tuple[Any, ...]]] = []
+    for m_index, meter in enumerate(sequence.meters):
+        for k, mode in enumerate(meter.modes):
+            block = [
+                (m_index, meter, mode, volts, load, delay, rep)
+                for volts in sequence.volts
+                for load in sequence.loads
+                for delay in sequence.delays_s
+                for rep in range(sequence.repetitions)
+            ]
+            if sequence.order == "shuffled":
+                # One generator per block, seeded from (seed, meter, mode): a block's order
+                # does not change when another meter or mode is added to the file.
+                seed = np.random.SeedSequence([int(sequence.shuffle_seed or 0), m_index, k])
+                rng = np.random.default_rng(seed)
+                block = [block[i] for i in rng.permutation(len(block))]
+            blocks.append(block)
+    events: list[Event] = []
+    for block in blocks:
+        for m_index, meter, mode, volts, load, delay, rep in block:
+            events.append(
+                Event(
+                    index=len(events),
+                    key=event_key(m_index, mode, volts, load, delay, rep),
+                    meter_index=m_index,
+                    meter=meter.model,
+                    serial=meter.serial,
+                    mode=mode,
+                    volts=float(volts),
+                    load=load,
+                    load_ohms=bench.load(load).ohms,
+                    delay_s=float(delay),
+                    rep=rep,
+                )
+            )
+    mode_changes = sum(
+        1
+        for a, b in zip(events, events[1:], strict=False)
+        if (a.meter_index, a.mode) != (b.meter_index, b.mode)
+    )
+    meter_changes = sum(
+        1 for a, b in zip(events, events[1:], strict=False) if a.meter_index != b.meter_index
+    )
+    plan = Plan(
+        events=tuple(events),
+        mode_changes=mode_changes,
+        meter_changes=meter_changes,
+        max_volts=max((e.volts for e in events), default=0.0),
+        estimated_s=_estimate_s(events, sequence, bench),
+    )
+    log.info(
+        "plan: %s events, %s mode changes, %s meter changes, about %.0f s",
+        len(events),
+        mode_changes,
+        meter_changes,
+        plan.estimated_s,
+    )
+    return plan
+
+
+def meter_capacitance_f(meter: MeterSpec) -> float | None:
+    """Sum of every capacitance in the meter's simulated netlist, F (None when unknown).
+
+    Switches are ignored, so this is an upper estimate of what the input can store in any
+    mode. The netlist is read directly (``[[element]]`` tables with ``kind = "C"`` and
+    ``farads``).
+    """
+    if meter.sim_model is None:
+        return None
+    try:
+        data = tomllib.loads(Path(meter.sim_model).read_text(encoding="utf-8"))
+    except (OSError, tomllib.TOMLDecodeError):
+        return None
+    total = 0.0
+    for element in data.get("element", []):
+        if isinstance(element, dict) and element.get("kind") == "C":
+            farads = element.get("farads")
+            if isinstance(farads, int | float) and not isinstance(farads, bool):
+                total += float(farads)
+    return total if total > 0 else None
+
+
+def _bleed_s(volts: float, c_f: float | None, bench: Bench) -> float:
+    """Time for the bleed to bring ``volts`` below the safe residual (0 when C is unknown)."""
+    if c_f is None or volts <= bench.limits.safe_residual_volts:
+        return 0.0
+    return bench.bleed_ohms * c_f * math.log(volts / bench.limits.safe_residual_volts)
+
+
+def _estimate_s(events: list[Event], sequence: Sequence, bench: Bench) -> float:
+    caps = [meter_capacitance_f(m) for m in sequence.meters]
+    manual = bench.instruments["meter"].control == "manual"
+    total = 0.0
+    previous: Event | None = None
+    for e in events:
+        if previous is None or previous.meter_index != e.meter_index:
+            total += METER_CHANGE_S if previous is not None else 0.0
+        if previous is None or (previous.meter_index, previous.mode) != (e.meter_index, e.mode):
+            total += MODE_CHANGE_MANUAL_S if manual else MODE_CHANGE_SCPI_S
+        scope = sequence.scope_for(e.mode)
+        total += (
+            sequence.dwell_s
+            + e.delay_s
+            + scope.record_s
+            + _bleed_s(e.volts, caps[e.meter_index], bench)
+            + sequence.hold_s
+            + EVENT_OVERHEAD_S
+        )
+        previous = e
+    return total
+
+
+# --------------------------------------------------------------------------------------------
+# Safety review
+# --------------------------------------------------------------------------------------------
+
+
+def _si(value: float, unit: str) -> str:
+    """Engineering notation: 1.03e-07 F -> '103 nF'."""
+    if value == 0 or not math.isfinite(value):
+        return f"{value:g} {unit}"
+    prefixes = {-12: "p", -9: "n", -6: "u", -3: "m", 0: "", 3: "k", 6: "M", 9: "G"}
+    exp = int(math.floor(math.log10(abs(value)) / 3) * 3)
+    exp = max(-12, min(9, exp))
+    return f"{value / 10**exp:.3g} {prefixes[exp]}{unit}"
+
+
+def safety_review(plan: Plan, bench: Bench, sequence: Sequence) -> list[Finding]:
+    """Check the plan against the bench's limits and the physics of its charge and bleed paths.
+
+    "stop" findings forbid the run; "warn" findings need the operator's attention; "info"
+    findings say what was assumed. Capacitances come from the meters' simulated netlists
+    (sum of all capacitors: an upper estimate); for real meters without one they are unknown.
+    """
+    out: list[Finding] = []
+    lim = bench.limits
+    vmax = plan.max_volts
+    sim = bench.simulation
+    simulated = bench.uses_simulation
+
+    # 1. voltage against the bench's own maximum and the supply's capability
+    if vmax > lim.max_volts:
+        out.append(
+            Finding(
+                "stop",
+                f"highest voltage {vmax:g} V is above the bench's max_volts {lim.max_volts:g} V",
+            )
+        )
+    if sim is not None and vmax > sim.world.supply_max_volts:
+        out.append(
+            Finding(
+                "stop",
+                f"highest voltage {vmax:g} V is above the simulated "
+                f"supply's {sim.world.supply_max_volts:g} V",
+            )
+        )
+    # 2. hazardous-live threshold (IEC 61010-1, see rig.files.Limits)
+    if vmax > lim.hazardous_live_volts:
+        if simulated:
+            out.append(
+                Finding(
+                    "info",
+                    f"highest voltage {vmax:g} V is above the hazardous-live "
+                    f"limit {lim.hazardous_live_volts:g} V; simulated here, "
+                    "real hardware would ask for confirmation",
+                )
+            )
+        else:
+            out.append(
+                Finding(
+                    "warn",
+                    f"HIGH VOLTAGE: the plan charges to {vmax:g} V, above the "
+                    f"hazardous-live limit {lim.hazardous_live_volts:g} V; "
+                    "the run will ask for an explicit confirmation",
+                )
+            )
+    # 3. current limit against the charge path and the supply
+    r_charge = bench.charge_ohms + (sim.world.wiring.supply_output_ohms if sim else 0.0)
+    i_peak = vmax / r_charge if r_charge > 0 else math.inf
+    if sim is not None and lim.current_limit_amps > sim.world.supply_max_amps:
+        out.append(
+            Finding(
+                "warn",
+                f"current_limit_amps {lim.current_limit_amps:g} A is above "
+                f"the simulated supply's {sim.world.supply_max_amps:g} A",
+            )
+        )
+    if lim.current_limit_amps < i_peak:
+        out.append(
+            Finding(
+                "warn",
+                f"supply current limit {_si(lim.current_limit_amps, 'A')} is "
+                f"below the charge path's initial current V/R_charge = "
+                f"{_si(i_peak, 'A')}: charging starts at constant current "
+                "and takes longer than 5 time constants",
+            )
+        )
+    else:
+        out.append(
+            Finding(
+                "info",
+                f"charge current at most V/R_charge = {_si(i_peak, 'A')} "
+                f"(supply limit {_si(lim.current_limit_amps, 'A')})",
+            )
+        )
+    # 4-6. per meter: dwell vs 5 tau, stored charge, bleed time vs hold
+    for meter in sequence.meters:
+        out.extend(_meter_findings(meter, plan, bench, sequence, r_charge))
+    # 7. how the residual is checked
+    if bench.divider_ratio is not None:
+        out.append(
+            Finding(
+                "info",
+                f"residual measured through the {bench.divider_ratio:g}:1 divider on scope input 2",
+            )
+        )
+        if len(sequence.delays_s) > 1:
+            out.append(
+                Finding(
+                    "info",
+                    f"during the delays the divider's {_si(bench.divider_ohms, 'ohm')}"
+                    " also drains the meter's input; the self-discharge time "
+                    "constant includes it",
+                )
+            )
+    else:
+        out.append(
+            Finding(
+                "warn",
+                "no divider probe fitted: the residual is only inferred from "
+                "the bleed time, never measured",
+            )
+        )
+    return out
+
+
+def _meter_findings(
+    meter: MeterSpec, plan: Plan, bench: Bench, sequence: Sequence, r_charge: float
+) -> list[Finding]:
+    out: list[Finding] = []
+    lim = bench.limits
+    vmax = max(
+        (e.volts for e in plan.events if e.serial == meter.serial and e.meter == meter.model),
+        default=plan.max_volts,
+    )
+    c_f = meter_capacitance_f(meter)
+    name = meter.label
+    if c_f is None:
+        c_ok = sequence.dwell_s / (5 * r_charge)
+        out.append(
+            Finding(
+                "info",
+                f"{name}: input capacitance unknown; dwell_s "
+                f"{sequence.dwell_s:g} s covers 5 time constants for up to "
+                f"{_si(c_ok, 'F')} through R_charge",
+            )
+        )
+        return out
+    tau = r_charge * c_f
+    if sequence.dwell_s < 5 * tau:
+        reached = 1 - math.exp(-sequence.dwell_s / tau)
+        out.append(
+            Finding(
+                "warn",
+                f"{name}: dwell_s {sequence.dwell_s:g} s is shorter than "
+                f"5 time constants ({5 * tau:.3g} s for {_si(c_f, 'F')} "
+                f"through {_si(r_charge, 'ohm')}): charged to about "
+                f"{100 * reached:.0f} %",
+            )
+        )
+    else:
+        out.append(
+            Finding(
+                "info",
+                f"{name}: dwell_s {sequence.dwell_s:g} s >= 5 time constants "
+                f"({5 * tau:.3g} s; C <= {_si(c_f, 'F')} from its netlist)",
+            )
+        )
+    if sequence.charge_done_amps is not None:
+        out.append(
+            Finding(
+                "info",
+                f"{name}: the dwell may end early once the supply current "
+                f"falls below {_si(sequence.charge_done_amps, 'A')}",
+            )
+        )
+    stored = c_f * vmax
+    if stored > lim.stored_charge_limit_c:
+        out.append(
+            Finding(
+                "warn",
+                f"{name}: its input may store up to {_si(stored, 'C')} at "
+                f"{vmax:g} V, above the stored-charge limit "
+                f"{_si(lim.stored_charge_limit_c, 'C')} (IEC 61010-1)",
+            )
+        )
+    t_bleed = _bleed_s(vmax, c_f, bench)
+    if t_bleed > sequence.hold_s:
+        out.append(
+            Finding(
+                "warn",
+                f"{name}: the bleed needs about {t_bleed:.3g} s to bring "
+                f"{vmax:g} V below {lim.safe_residual_volts:g} V "
+                f"(tau = {bench.bleed_ohms * c_f:.3g} s), longer than "
+                f"hold_s {sequence.hold_s:g} s: the residual check will wait",
+            )
+        )
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# Text for `rig check`
+# --------------------------------------------------------------------------------------------
+
+
+def _duration_text(seconds: float) -> str:
+    seconds = int(round(seconds))
+    h, rest = divmod(seconds, 3600)
+    m, s = divmod(rest, 60)
+    if h:
+        return f"{h} h {m:02d} min"
+    if m:
+        return f"{m} min {s:02d} s"
+    return f"{s} s"
+
+
+def describe(plan: Plan, bench: Bench, sequence: Sequence) -> str:
+    """The summary `rig check` prints: events, counts per meter and mode, changes, highest
+    voltage, estimated duration and the safety review's findings."""
+    lines = [
+        f"sequence  {sequence.name}  ({sequence.path})",
+        f"bench     {bench.name}  ({bench.path}){'  [simulated]' if bench.uses_simulation else ''}",
+    ]
+    if sequence.operator_note:
+        lines.append(f"note      {sequence.operator_note}")
+    lines.append(
+        f"events    {len(plan.events)}  ({sequence.order}"
+        + (f", seed {sequence.shuffle_seed}" if sequence.order == "shuffled" else "")
+        + f"; {sequence.repetitions} per group)"
+    )
+    counts: dict[tuple[int, str], int] = {}
+    for e in plan.events:
+        counts[(e.meter_index, e.mode)] = counts.get((e.meter_index, e.mode), 0) + 1
+    for m_index, meter in enumerate(sequence.meters):
+        lines.append(
+            f"  meter {m_index}: {meter.label}" + (f"  ({meter.rating})" if meter.rating else "")
+        )
+        for mode in meter.modes:
+            lines.append(f"    {mode:<10s} {counts.get((m_index, mode), 0):6d} events")
+    volts = ", ".join(f"{v:g}" for v in sequence.volts)
+    delays = ", ".join(f"{d:g}" for d in sequence.delays_s)
+    lines += [
+        f"volts     {volts} V;  loads {', '.join(sequence.loads)};  delays {delays} s",
+        f"changes   {plan.mode_changes} mode changes, {plan.meter_changes} meter changes",
+        f"highest   {plan.max_volts:g} V  (bench max_volts {bench.limits.max_volts:g} V)",
+        f"duration  about {_duration_text(plan.estimated_s)} in real time"
+        + (
+            "  (virtual clock: much faster)"
+            if bench.simulation and bench.simulation.clock == "virtual"
+            else ""
+        ),
+    ]
+    findings = safety_review(plan, bench, sequence)
+    lines.append("safety review:")
+    order = {"stop": 0, "warn": 1, "info": 2}
+    for f in sorted(findings, key=lambda f: order[f.level]):
+        lines.append(f"  {f.level.upper():5s} {f.message}")
+    if not findings:
+        lines.append("  (nothing to report)")
+    return "\n".join(lines)
