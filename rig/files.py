@@ -131,7 +131,7 @@ _NUMBER_RE = re.compile(r"^\s*([+-]?(?:\d[\d_]*(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)
 
 def _unit_suffix(name: str) -> str | None:
     for suffix in _UNITS:
-        if name.endswith(suffix):
+        if name.endswith(suffix) or name == suffix[1:]:  # "volts", "ohms", "henry" too
             return suffix
     return None
 
@@ -301,8 +301,10 @@ _REQUIRED: Any = object()
 
 
 def _nearest(name: str, valid: Iterable[str]) -> str | None:
-    hits = difflib.get_close_matches(name, list(valid), n=1, cutoff=0.6)
-    return hits[0] if hits else None
+    """The valid name closest to ``name`` (case-insensitive), or None if none is close."""
+    by_lower = {v.lower(): v for v in valid}
+    hits = difflib.get_close_matches(name.lower(), list(by_lower), n=1, cutoff=0.6)
+    return by_lower[hits[0]] if hits else None
 
 
 def _fmt(value: float, name: str) -> str:
@@ -473,18 +475,27 @@ class _Table:
         )
 
     def string(
-        self, name: str, default: Any = _REQUIRED, *, choices: Iterable[str] | None = None
+        self,
+        name: str,
+        default: Any = _REQUIRED,
+        *,
+        choices: Iterable[str] | None = None,
+        what: str = "value",
     ) -> Any:
         if name not in self.data:
             return self._get(name, default)
         value = self.data[name]
         if not isinstance(value, str):
             raise self.error(name, f"must be a string, not {_type_name(value)}")
-        self._check_choice(value, (name,), choices)
+        self._check_choice(value, (name,), choices, what)
         return value
 
     def _check_choice(
-        self, value: str, key: tuple[str | int, ...], choices: Iterable[str] | None
+        self,
+        value: str,
+        key: tuple[str | int, ...],
+        choices: Iterable[str] | None,
+        what: str = "value",
     ) -> None:
         if choices is None:
             return
@@ -492,10 +503,15 @@ class _Table:
         if value not in choices:
             hint = _nearest(value, choices)
             tip = f"did you mean {hint!r}?" if hint else "choose one of " + ", ".join(choices)
-            raise self.error(key, f"{value!r} is not allowed; {tip}")
+            raise self.error(key, f"unknown {what} {value!r}; {tip}")
 
     def strings(
-        self, name: str, default: Any = _REQUIRED, *, choices: Iterable[str] | None = None
+        self,
+        name: str,
+        default: Any = _REQUIRED,
+        *,
+        choices: Iterable[str] | None = None,
+        what: str = "value",
     ) -> Any:
         """A non-empty list of distinct strings (a single string is a list of one)."""
         if name not in self.data:
@@ -509,7 +525,7 @@ class _Table:
             key = (name, i) if isinstance(value, list) else (name,)
             if not isinstance(item, str):
                 raise self.error(key, f"must be a string, not {_type_name(item)}")
-            self._check_choice(item, key, choices)
+            self._check_choice(item, key, choices, what)
             if item in out:
                 raise self.error(key, f"{item!r} is listed twice")
             out.append(item)
@@ -1114,7 +1130,7 @@ def _read_meters(top: _Table, bench: Bench, base_dir: Path) -> tuple[MeterSpec, 
         serial = t.string("serial")
         if any(m.model == model and m.serial == serial for m in meters):
             raise t.error("serial", f"meter {model!r} s/n {serial!r} is listed twice")
-        modes = t.strings("modes", choices=scpi_functions)
+        modes = t.strings("modes", choices=scpi_functions, what="meter-profile mode")
         sim_model = None
         if t.has("sim_model"):
             sim_model = _resolve_file(
@@ -1174,8 +1190,8 @@ def _read_scope(t: _Table, base: ScopeSettings) -> ScopeSettings:
     if s.trigger_offset_s <= -s.record_s:
         raise t.error(
             "trigger_offset_s",
-            f"pre-trigger {-s.trigger_offset_s:g} s is longer than the record "
-            f"({s.points} x {s.sample_interval_s:g} s = {s.record_s:g} s)",
+            f"pre-trigger {-s.trigger_offset_s:.4g} s is longer than the record "
+            f"({s.points} points x {s.sample_interval_s:.4g} s = {s.record_s:.4g} s)",
         )
     if abs(s.trigger_level_amps - s.current_offset_amps) >= s.current_range_amps / 2:
         raise t.error(
@@ -1196,12 +1212,12 @@ def _read_limit(
                 key = ("volts", i) if isinstance(t.data["volts"], list) else "volts"
                 raise t.error(key, f"{v:g} V is not one of the sequence's charge.volts")
     return LimitSpec(
-        metric=t.string("metric", choices=METRICS),
+        metric=t.string("metric", choices=METRICS, what="metric"),
         max=t.number("max"),
-        statistic=t.string("statistic", "utl", choices=STATISTICS),
-        modes=t.strings("modes", None, choices=modes),
+        statistic=t.string("statistic", "utl", choices=STATISTICS, what="statistic"),
+        modes=t.strings("modes", None, choices=modes, what="mode"),
         volts=lim_volts,
-        loads=t.strings("loads", None, choices=loads),
+        loads=t.strings("loads", None, choices=loads, what="load"),
     )
 
 
@@ -1219,7 +1235,7 @@ def load_sequence(path: str | Path, bench: Bench) -> Sequence:
     name = head.string("name")
     operator_note = head.string("operator_note", "")
     repetitions = head.integer("repetitions", minimum=1)
-    order = head.string("order", "grouped", choices=("grouped", "shuffled"))
+    order = head.string("order", "grouped", choices=("grouped", "shuffled"), what="order")
     shuffle_seed = head.integer("shuffle_seed", None, minimum=0)
     if order == "shuffled" and shuffle_seed is None:
         raise head.error("shuffle_seed", "order = 'shuffled' needs a shuffle_seed (an integer)")
@@ -1234,7 +1250,7 @@ def load_sequence(path: str | Path, bench: Bench) -> Sequence:
     dwell_s = charge.number("dwell_s", positive=True)
     done_amps = charge.number("done_amps", None, positive=True)
     dis = top.table("discharge", ("loads", "delays_s"), required=True)
-    loads = dis.strings("loads", choices=[spec.name for spec in bench.loads])
+    loads = dis.strings("loads", choices=[spec.name for spec in bench.loads], what="load")
     delays = dis.numbers("delays_s", (0.0,), minimum=0.0)
     hold_s = top.table("bleed", ("hold_s",)).number("hold_s", 0.0, minimum=0.0)
     modes = tuple(dict.fromkeys(m for meter in meters for m in meter.modes))
