@@ -392,7 +392,7 @@ def _meter_findings(
                 "warn",
                 f"{name}: its input may store up to {_si(stored, 'C')} at "
                 f"{vmax:g} V, above the stored-charge limit "
-                f"{_si(lim.stored_charge_limit_c, 'C')} (IEC 61010-1)",
+                f"{_si(lim.stored_charge_limit_c, 'C')} (IEC 61010-1); C is the sum of its netlist's capacitors, an upper estimate",
             )
         )
     t_bleed = _bleed_s(vmax, c_f, bench)
