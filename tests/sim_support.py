@@ -23,11 +23,19 @@ import threading
 from collections.abc import Sequence
 
 import numpy as np
+import pyvisa
 
 from drivers.clock import Clock
 from drivers.sim.interfaces import WorldConfig
 
-__all__ = ["MODE_FARADS", "SimpleRcWorld"]
+__all__ = [
+    "MODE_FARADS",
+    "SimpleRcWorld",
+    "drain_errors",
+    "error_codes",
+    "open_instrument",
+    "query_raw_block",
+]
 
 # invented input capacitances per mode (test values only)
 MODE_FARADS = {"AC V": 100e-9, "AC mV": 100e-9, "DC V": 1e-9, "DC mV": 1e-9, "Ohm": 1e-9}
@@ -222,3 +230,51 @@ class SimpleRcWorld:
     def exp_decay(v0: float, tau: float, t: np.ndarray) -> np.ndarray:
         """``v0 exp(-t/tau)``; textbook RC discharge (REFERENCES.md section 6)."""
         return v0 * np.exp(-np.asarray(t) / tau)
+
+
+# -- pyvisa helpers for the integration tests ---------------------------------------------------
+
+TIMEOUT_MS = 5000
+
+
+def open_instrument(rm: pyvisa.ResourceManager, resource: str, timeout_ms: int = TIMEOUT_MS):
+    """Open a raw-socket resource the way the drivers do (LF both ways, PYVISA-NOTES.md)."""
+    inst = rm.open_resource(resource, read_termination="\n", write_termination="\n")
+    inst.timeout = timeout_ms
+    return inst
+
+
+def query_raw_block(inst, command: str) -> bytes:
+    """Send ``command`` and return its whole reply (block header, payload and LF) as bytes.
+
+    Reads the header, then one counted read with the read termination off (PYVISA-NOTES.md:
+    the stock block reader stops at every LF inside the payload).
+    """
+    inst.write(command)
+    head = bytes(inst.read_bytes(2))
+    if head[:1] != b"#":
+        raise AssertionError(f"not a block: {head!r}")
+    digits = bytes(inst.read_bytes(int(head[1:2])))
+    saved = inst.read_termination
+    inst.read_termination = None
+    try:
+        rest = bytes(inst.read_bytes(int(digits) + 1))
+    finally:
+        inst.read_termination = saved
+    return head + digits + rest
+
+
+def drain_errors(inst) -> list[tuple[int, str]]:
+    """Read SYSTem:ERRor? until 0 (SCPI-1999 error queue)."""
+    out = []
+    for _ in range(100):
+        code, _, message = inst.query("SYST:ERR?").partition(",")
+        if int(code) == 0:
+            return out
+        out.append((int(code), message))
+    raise AssertionError("error queue never emptied")
+
+
+def error_codes(inst) -> list[int]:
+    """Just the numbers of :func:`drain_errors`."""
+    return [code for code, _ in drain_errors(inst)]

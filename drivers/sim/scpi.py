@@ -197,7 +197,10 @@ def match_nodes(nodes: Sequence[Node], typed: Sequence[str]) -> dict[str, int] |
             number = None
             ok = node.accepts(token)
         if ok:
-            found = rec(pi + 1, ti + 1, {**suffixes, node.long: 1 if number is None else number})
+            taken = suffixes
+            if node.numbered:
+                taken = {**suffixes, node.long: 1 if number is None else number}
+            found = rec(pi + 1, ti + 1, taken)
             if found is not None:
                 return found
         if node.optional:
