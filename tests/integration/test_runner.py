@@ -29,6 +29,7 @@ SEQUENCE = """
 [sequence]
 name = "e2e"
 operator_note = "integration test"
+repetitions = {reps}
 order = "grouped"
 
 [[meters]]
@@ -40,12 +41,14 @@ sim_model = "demo-a"
 
 [charge]
 volts = {volts}
-repetitions = {reps}
 dwell_s = 1.0
-hold_s = 0.05
+
+[discharge]
+loads = ["short"]
 delays_s = [0.0]
 
-loads = ["short"]
+[bleed]
+hold_s = 0.05
 
 [scope]
 sample_interval_s = 1e-9

@@ -27,6 +27,7 @@ from rig.store import RunWriter  # noqa: E402
 SEQ = """
 [sequence]
 name = "bench-runner"
+repetitions = {reps}
 [[meters]]
 model = "Benchmark meter"
 serial = "B-1"
@@ -35,11 +36,12 @@ modes = ["AC V", "DC V"]
 sim_model = "demo-a"
 [charge]
 volts = [1000]
-repetitions = {reps}
 dwell_s = 1.0
-hold_s = 0.05
-delays_s = [0.0]
+[discharge]
 loads = ["short"]
+delays_s = [0.0]
+[bleed]
+hold_s = 0.05
 [scope]
 sample_interval_s = 1e-9
 points = {points}

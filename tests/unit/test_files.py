@@ -548,7 +548,7 @@ def test_netlist_modes_and_meter_model_resolution(tmp_path):
 
 
 def test_line_index_handles_arrays_of_tables_dotted_and_quoted_keys():
-    from rig.files import _index_lines
+    from rig.tomlcheck import _index_lines
 
     text = "\n".join(
         [
