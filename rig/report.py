@@ -1,0 +1,942 @@
+"""The self-contained HTML report of an analysed run (assembly only; figures in rig.figures).
+
+``write_report(run_dir)`` reads the run folder (manifest.json, metrics.parquet, groups.csv,
+selfdischarge.csv, compare-<baseline-id>.csv, waveforms) and writes ``report.html`` plus every
+figure as PNG and SVG under ``figures/``. The HTML carries its CSS inline and its figures as
+base64 PNG (thumbnails as inline SVG); it loads nothing from anywhere, so it opens from a USB
+stick. A Content-Security-Policy meta tag forbids any fetch besides ``data:`` images.
+Every string that comes from a file is HTML-escaped.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import logging
+import math
+import re
+import time
+from collections.abc import Iterable, Sequence
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from drivers.errors import RunFolderError
+from rig import figures as F
+from rig.store import read_manifest
+from rig.units import eng, metric_label, metric_unit
+from rig.waveform import load_waveform
+
+__all__ = ["FLAG_TEXT", "SECTIONS", "write_report"]
+
+log = logging.getLogger(__name__)
+
+REPORT = "report.html"
+FIGURES = "figures"
+IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure up to 15 kV (REFERENCES.md 3)
+MAX_WAVE_ROWS = 4  # (voltage, load) rows per waveform figure
+MAX_THUMBNAILS = 60
+
+# (id, heading) in the order the report shows them; the baseline section only with a baseline.
+SECTIONS = (
+    ("tested", "What was tested"),
+    ("glance", "At a glance"),
+    ("verdicts", "Verdicts against the limits"),
+    ("caution", "High-voltage caution"),
+    ("waveforms", "Discharge waveforms"),
+    ("peaks", "Peak current per event"),
+    ("trends", "Peak current and charge against charge voltage"),
+    ("iec-charge", "Charge against the IEC 61010-1 45 µC figure"),
+    ("bounce", "Contact bounce"),
+    ("selfdischarge", "Self-discharge"),
+    ("flagged", "Flagged events"),
+    ("groups", "Group table"),
+    ("baseline", "Comparison with the baseline run"),
+)
+FLAG_TEXT = {
+    "flag_not_captured": "not captured",
+    "flag_clipped": "clipped (beyond the scope range)",
+    "flag_truncated": "truncated (record ended before the tail)",
+    "flag_below_noise": "below noise",
+}
+_GROUP_KEYS = ["meter", "serial", "mode", "volts", "load", "delay_s"]
+_NEEDED = ["meter", "mode", "volts", "load", "delay_s", "abs_peak_a", "charge_c", "file"]
+
+
+def esc(value: object) -> str:
+    """HTML-escaped text of any value (quotes too, so it is safe in attributes)."""
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def _plain(value: object) -> str:
+    """A manifest value as short plain text (not escaped)."""
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        return f"{value:g}"
+    if isinstance(value, list | tuple):
+        return ", ".join(_plain(v) for v in value)
+    if isinstance(value, dict):
+        return ", ".join(f"{k}={_plain(v)}" for k, v in value.items())
+    return "" if value is None else str(value)
+
+
+def _slug(s: str) -> str:
+    return re.sub(r"[^a-z0-9]+", "-", s.lower()).strip("-") or "x"
+
+
+# --- loading -----------------------------------------------------------------------------------
+
+
+def _load_metrics(run: Path) -> pd.DataFrame:
+    path = run / "metrics.parquet"
+    if not path.exists():
+        raise RunFolderError(f"{path}: no metrics; analyse the run before the report")
+    try:
+        from rig import api  # the notebook API, when present, is the one reader of runs
+    except ImportError:
+        api = None
+    df = api.load_run(run) if api is not None else pd.read_parquet(path)
+    missing = [c for c in _NEEDED if c not in df.columns]
+    if missing:
+        raise RunFolderError(f"{path} [{', '.join(missing)}]: column missing")
+    flags = [c for c in FLAG_TEXT if c in df.columns]
+    df = df.copy()
+    df["flagged"] = df[flags].fillna(False).astype(bool).any(axis=1) if flags else False
+    return df
+
+
+def _load_groups(run: Path) -> pd.DataFrame:
+    path = run / "groups.csv"
+    if not path.exists():
+        raise RunFolderError(f"{path}: no group statistics; analyse the run before the report")
+    g = pd.read_csv(path, keep_default_na=True)
+    need = ["meter", "mode", "volts", "metric", "median", "verdict"]
+    missing = [c for c in need if c not in g.columns]
+    if missing:
+        raise RunFolderError(f"{path} [{', '.join(missing)}]: column missing")
+    for c in _GROUP_KEYS:
+        if c not in g.columns:
+            g[c] = np.nan
+    g["verdict"] = g["verdict"].fillna("").astype(str).str.strip()
+    return g
+
+
+def _group_waveforms(run: Path, metrics: pd.DataFrame, **filters: Any):
+    """(t, values events x samples, rows) of the captured events matching ``filters``."""
+    rows = metrics
+    for k, v in filters.items():
+        rows = rows[rows[k] == v]
+    rows = rows[rows["file"].notna()]
+    if rows.empty:
+        return None
+    try:
+        from rig import api
+    except ImportError:
+        api = None
+    if api is not None and hasattr(api, "group_waveforms"):
+        t, values, r = api.group_waveforms(run, channel="current", **filters)
+        return np.asarray(t, float), np.atleast_2d(np.asarray(values, float)), r
+    traces, t = [], None
+    for f in rows["file"]:
+        wf = load_waveform(run / f)
+        traces.append(wf.values("current"))
+        if t is None:
+            t = wf.time()
+    n = min(len(x) for x in traces)
+    return t[:n], np.vstack([x[:n] for x in traces]), rows
+
+
+# --- sections ----------------------------------------------------------------------------------
+
+
+def _table(header: Sequence[str], rows: Iterable[Sequence[str]], cls: str = "") -> str:
+    """A table; cells are HTML already (callers escape text from files). Columns that are
+    empty in every row are left out."""
+    rows = [list(r) for r in rows]
+    keep = [i for i in range(len(header)) if not rows or any(r[i] not in ("", "–") for r in rows)]
+    head = "".join(f"<th>{header[i]}</th>" for i in keep)
+    body = "".join("<tr>" + "".join(f"<td>{r[i]}</td>" for i in keep) + "</tr>" for r in rows)
+    c = f' class="{cls}"' if cls else ""
+    return f"<table{c}><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def _verdict_cell(v: str) -> str:
+    k = v.lower()
+    cls = (
+        "pass"
+        if k in ("pass", "passed", "ok", "equivalent")
+        else ("fail" if k in ("fail", "failed", "not equivalent", "different") else "other")
+    )
+    return f'<span class="v {cls}">{esc(v) or "–"}</span>'
+
+
+def _section_tested(run: Path, man: dict[str, Any], m: pd.DataFrame) -> str:
+    seq = man.get("sequence") if isinstance(man.get("sequence"), dict) else {}
+    bench = man.get("bench") if isinstance(man.get("bench"), dict) else {}
+    info = [
+        ("Run", man.get("run_id") or run.name),
+        ("Status", man.get("status")),
+        ("Started", man.get("started")),
+        ("Ended", man.get("ended")),
+        ("Host", man.get("host")),
+        ("Sequence", seq.get("name") or seq.get("path")),
+        ("Bench", bench.get("name") or bench.get("path")),
+    ]
+    sw = man.get("software")
+    info.append(("Software", _plain(sw)))
+    note = (
+        man.get("operator_note") or man.get("note") or seq.get("operator_note") or seq.get("note")
+    )
+    parts = ["<dl class='kv'>"]
+    for k, v in info:
+        if v not in (None, ""):
+            parts.append(f"<dt>{esc(k)}</dt><dd>{esc(_plain(v))}</dd>")
+    parts.append("</dl>")
+    if note:
+        parts.append(f"<p class='note'><b>Operator note:</b> {esc(note)}</p>")
+    # meters: what the data holds, completed with the sequence's meter entries (ratings...)
+    decl = seq.get("meters") or []
+    if isinstance(decl, dict):
+        decl = [dict(v, name=k) if isinstance(v, dict) else {"name": k} for k, v in decl.items()]
+    by_name = {str(d.get("name")): d for d in decl if isinstance(d, dict)}
+    rows = []
+    for (meter, serial), g in m.groupby(["meter", "serial"], sort=False, dropna=False):
+        d = by_name.get(str(meter), {})
+        extra = {k: v for k, v in d.items() if k not in ("name", "serial", "modes")}
+        rating = extra.pop("rating", "")
+        rows.append(
+            [
+                esc(meter),
+                esc(serial if serial == serial else d.get("serial", "")),
+                esc(_plain(rating)),
+                esc(", ".join(map(str, dict.fromkeys(g["mode"])))),
+                esc(", ".join(eng(v, "V") for v in sorted(g["volts"].unique()))),
+                esc(", ".join(map(str, dict.fromkeys(g["load"])))),
+                f"{int(g['file'].notna().sum())} / {len(g)}",
+                esc(_plain(extra)),
+            ]
+        )
+    parts.append(
+        _table(
+            [
+                "Meter",
+                "Serial",
+                "Rating",
+                "Modes",
+                "Charge voltages",
+                "Loads",
+                "Events captured / run",
+                "Other",
+            ],
+            rows,
+        )
+    )
+    loads = m.groupby("load", sort=False)["load_ohms"].first() if "load_ohms" in m else None
+    if loads is not None:
+        parts.append(
+            "<p><b>Loads:</b> "
+            + esc("; ".join(f"{k}: {eng(v, 'Ω')}" for k, v in loads.items()))
+            + "</p>"
+        )
+    delays = sorted(m["delay_s"].dropna().unique())
+    if len(delays) > 1:
+        parts.append(
+            "<p><b>Delays before discharge:</b> "
+            + esc(", ".join(eng(d, "s") for d in delays))
+            + "</p>"
+        )
+    inst = man.get("instruments")
+    if isinstance(inst, dict) and inst:
+        irows = []
+        for role, v in inst.items():
+            if isinstance(v, dict):
+                ident = v.get("idn") or v.get("identity") or v.get("id") or ""
+                res = v.get("resource") or v.get("address") or ""
+                rest = {
+                    k: x
+                    for k, x in v.items()
+                    if k not in ("idn", "identity", "id", "resource", "address")
+                }
+                irows.append([esc(role), esc(_plain(ident)), esc(_plain(res)), esc(_plain(rest))])
+            else:
+                irows.append([esc(role), esc(_plain(v)), "", ""])
+        parts.append(
+            "<h3>Instruments</h3>" + _table(["Role", "Identity", "Resource", "Other"], irows)
+        )
+    items = [(k, v) for k, v in bench.items() if k not in ("name", "path")]
+    if items:
+        parts.append(
+            "<h3>Bench</h3><dl class='kv'>"
+            + "".join(f"<dt>{esc(k)}</dt><dd>{esc(_plain(v))}</dd>" for k, v in items)
+            + "</dl>"
+        )
+    return "".join(parts)
+
+
+def _main_load(m: pd.DataFrame) -> str:
+    return str(m["load"].value_counts().index[0])
+
+
+def _at_zero_delay(df: pd.DataFrame) -> pd.DataFrame:
+    """Rows at the smallest delay of their (meter, mode, volts, load) group."""
+    if df.empty:
+        return df
+    d = df["delay_s"].fillna(0.0)
+    keys = [k for k in ("meter", "mode", "volts", "load") if k in df.columns]
+    dmin = d.groupby([df[k] for k in keys]).transform("min")
+    return df[d == dmin]
+
+
+def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
+    """Per mode and load: each meter's medians at the highest common voltage; which is lower."""
+    mz = _at_zero_delay(m[m["file"].notna()])
+    gz = _at_zero_delay(g)
+    meters = list(dict.fromkeys(mz["meter"]))
+    rows = []
+    for (mode, load), d in mz.groupby(["mode", "load"], sort=False):
+        per = d.groupby("meter")["volts"].apply(set)
+        common = set.intersection(*per.tolist()) if len(per) else set()
+        if not common:
+            continue
+        v = max(common)
+        cells = {}
+        for metric, unit in (("abs_peak_a", "A"), ("charge_c", "C")):
+            stats = {}
+            for meter in meters:
+                x = d[(d["meter"] == meter) & (d["volts"] == v)][metric].dropna()
+                if x.empty:
+                    continue
+                sel = gz[
+                    (gz["meter"] == meter)
+                    & (gz["mode"] == mode)
+                    & (gz["volts"] == v)
+                    & (gz["load"] == load)
+                    & (gz["metric"] == metric)
+                ]
+                lo = (
+                    float(sel["median_ci_low"].iloc[0])
+                    if "median_ci_low" in sel and len(sel)
+                    else np.nan
+                )
+                hi = (
+                    float(sel["median_ci_high"].iloc[0])
+                    if "median_ci_high" in sel and len(sel)
+                    else np.nan
+                )
+                stats[meter] = (float(x.median()), lo, hi, x.size)
+            cells[metric] = (stats, unit)
+        row = [esc(mode), esc(load), esc(eng(v, "V"))]
+        winners = []
+        for metric in ("abs_peak_a", "charge_c"):
+            stats, unit = cells[metric]
+            row.append(
+                "<br>".join(
+                    f"{esc(k)}: {esc(eng(s[0], unit))} <span class='n'>(n={s[3]})</span>"
+                    for k, s in stats.items()
+                )
+            )
+            w, text = _lower(stats)
+            winners.append(w)
+            row.append(text)
+        if len(stats) < 2:
+            verdict = "single meter: no comparison"
+        elif winners[0][0] and winners[0][0] == winners[1][0]:
+            how = "clearly" if winners[0][1] and winners[1][1] else "not clearly (CIs overlap)"
+            verdict = f"<b>{esc(winners[0][0])}</b>, {how}"
+        else:
+            verdict = "mixed: neither is lower on both"
+        row.append(verdict)
+        rows.append(row)
+    if not rows:
+        return "<p>No mode was tested at a voltage common to all meters.</p>"
+    intro = (
+        "<p>Per mode: each meter's median |peak current| and median charge at the highest "
+        "charge voltage tested by every meter (shortest delay). The lower meter dumps less "
+        "into the next circuit its probes touch. “Clear” means the 95 % confidence "
+        "intervals of the medians do not overlap.</p>"
+    )
+    return intro + _table(
+        [
+            "Mode",
+            "Load",
+            "At",
+            "Median |peak current|",
+            "Lower peak",
+            "Median charge",
+            "Lower charge",
+            "Lower on both",
+        ],
+        rows,
+        "glance",
+    )
+
+
+def _lower(stats: dict[str, tuple[float, float, float, int]]) -> tuple[tuple[str, bool], str]:
+    """((meter with the lowest median, CIs separate), HTML text with the ratio)."""
+    if len(stats) < 2:
+        return ("", False), "–"
+    order = sorted(stats, key=lambda k: stats[k][0])
+    best, second = order[0], order[1]
+    b, s = stats[best], stats[second]
+    ratio = s[0] / b[0] if b[0] > 0 else math.inf
+    clear = all(np.isfinite([b[2], stats[k][1]]).all() and b[2] < stats[k][1] for k in order[1:])
+    tag = "clear" if clear else "CIs overlap"
+    return (best, clear), f"<b>{esc(best)}</b> ({ratio:.2f}× lower; {tag})"
+
+
+def _section_verdicts(g: pd.DataFrame) -> str:
+    v = g[g["verdict"] != ""]
+    if v.empty:
+        return "<p>No limits were set: groups.csv carries no verdict.</p>"
+    counts = v["verdict"].value_counts()
+    summary = ", ".join(f"{n} {esc(k)}" for k, n in counts.items())
+    parts = [f"<p class='lead'>{len(v)} group × metric checks against a limit: {summary}.</p>"]
+    modes = list(dict.fromkeys(v["mode"]))
+    rows = []
+    for (meter, serial), d in v.groupby(["meter", "serial"], sort=False, dropna=False):
+        cells = [esc(meter), esc(serial if serial == serial else "")]
+        for mode in modes:
+            dm = d[d["mode"] == mode]
+            if dm.empty:
+                cells.append("–")
+                continue
+            bad = dm[~dm["verdict"].str.lower().isin(["pass", "passed", "ok"])]
+            if bad.empty:
+                cells.append(_verdict_cell("pass") + f" <span class='n'>({len(dm)} checks)</span>")
+            else:
+                what = "; ".join(
+                    f"{metric_label(r.metric)} at {eng(r.volts, 'V')}"
+                    + (
+                        f", delay {eng(r.delay_s, 's')}"
+                        if r.delay_s == r.delay_s and r.delay_s
+                        else ""
+                    )
+                    for r in bad.itertuples()
+                )
+                cells.append(
+                    _verdict_cell(bad["verdict"].iloc[0])
+                    + f" <span class='n'>({len(bad)} of {len(dm)} checks)</span>"
+                    + f"<br><small>{esc(what)}</small>"
+                )
+        rows.append(cells)
+    parts.append(_table(["Meter", "Serial"] + [esc(x) for x in modes], rows, "verdicts"))
+    bad = v[~v["verdict"].str.lower().isin(["pass", "passed", "ok"])]
+    if not bad.empty:
+        brow = []
+        for r in bad.itertuples():
+            u = metric_unit(r.metric)
+            brow.append(
+                [
+                    esc(r.meter),
+                    esc(r.mode),
+                    esc(eng(r.volts, "V")),
+                    esc(r.load),
+                    esc(eng(r.delay_s, "s")),
+                    esc(metric_label(r.metric)),
+                    esc(eng(getattr(r, "utl", np.nan), u)),
+                    esc(eng(getattr(r, "limit", np.nan), u)),
+                    esc(
+                        f"{100 * r.share_over_limit:.0f} %"
+                        if getattr(r, "share_over_limit", None) == getattr(r, "share_over_limit", 0)
+                        else "–"
+                    ),
+                    _verdict_cell(r.verdict),
+                ]
+            )
+        parts.append(
+            "<h3>Checks that did not pass</h3>"
+            + _table(
+                [
+                    "Meter",
+                    "Mode",
+                    "Voltage",
+                    "Load",
+                    "Delay",
+                    "Metric",
+                    "Upper tolerance bound",
+                    "Limit",
+                    "Events over limit",
+                    "Verdict",
+                ],
+                brow,
+            )
+        )
+    parts.append(
+        "<p class='n'>A check passes when the group's upper tolerance bound (utl) "
+        "stays at or below the limit.</p>"
+    )
+    return "".join(parts)
+
+
+_CAUTION = (
+    "<div class='caution'><p><b>High voltage can injure or kill.</b> The bench behind these "
+    "numbers charges a meter's input to hazardous voltages, and a meter that has measured a "
+    "high voltage can keep a dangerous charge on its input. These results describe the "
+    "events that were measured; they do not make any meter, bench or procedure safe.</p>"
+    "<p>Defer to your local electrical codes, your lab's safety rules and licensed practice. "
+    "Treat every meter input, lead and capacitor as live until you have measured it "
+    "discharged, and use instruments and leads rated for the voltages you work on.</p></div>"
+)
+
+
+def _img(fig: F.RenderedFigure, alt: str, caption: str) -> str:
+    data = base64.b64encode(fig.png).decode("ascii")
+    return (
+        f"<figure><img alt='{esc(alt)}' src='data:image/png;base64,{data}'>"
+        f"<figcaption>{caption} <span class='n'>(files: figures/{esc(fig.png_path.name)}, "
+        f"figures/{esc(fig.svg_path.name)})</span></figcaption></figure>"
+    )
+
+
+def _wave_rows(
+    run: Path,
+    m: pd.DataFrame,
+    mode: str,
+    colours: dict[str, str],
+    other: tuple[Path, pd.DataFrame] | None = None,
+):
+    """Panels for one mode: one row per (voltage, load), highest voltages first."""
+    d = _at_zero_delay(m[(m["mode"] == mode) & m["file"].notna()])
+    combos = sorted(d.groupby(["volts", "load"]).groups, key=lambda k: (-k[0], str(k[1])))
+    if other is not None:
+        od = _at_zero_delay(other[1][(other[1]["mode"] == mode) & other[1]["file"].notna()])
+        have = set(od.groupby(["volts", "load"]).groups)
+        combos = [c for c in combos if c in have][:1]
+    rows = []
+    for volts, load in sorted(combos[:MAX_WAVE_ROWS], key=lambda k: (str(k[1]), k[0])):
+        loaded = []
+        for meter in colours:
+            sel = d[(d["meter"] == meter) & (d["volts"] == volts) & (d["load"] == load)]
+            if sel.empty:
+                continue
+            filt = {
+                "meter": meter,
+                "mode": mode,
+                "volts": volts,
+                "load": load,
+                "delay_s": sel["delay_s"].iloc[0],
+            }
+            got = _group_waveforms(run, m, **filt)
+            if got is not None:
+                loaded.append((meter, "", got))
+            if other is not None:
+                got_b = _group_waveforms(other[0], other[1], **filt)
+                if got_b is not None:
+                    loaded.append((meter, " (baseline)", got_b))
+        if not loaded:
+            continue
+        windows = [F.linear_window(t, v) for _, _, (t, v, _r) in loaded]
+        window = (min(w[0] for w in windows), max(w[1] for w in windows))
+        series = [
+            F.Series(
+                F.summarise_traces(t, v, window),
+                f"{meter}{tag}",
+                colours[meter],
+                "--" if tag else "-",
+            )
+            for meter, tag, (t, v, _r) in loaded
+        ]
+        rows.append((f"{eng(volts, 'V')}, load {load}", series, window))
+    return rows
+
+
+def _section_waveforms(run: Path, m: pd.DataFrame, modes: list[str], colours, out: Path):
+    parts = [
+        "<p>Median current of each meter with the band holding 5 % to 95 % of the "
+        "events at each instant. Left: linear time around the nanosecond peak. Right: "
+        "logarithmic time and current, so the millisecond tail shows as well.</p>"
+    ]
+    for mode in modes:
+        rows = _wave_rows(run, m, mode, colours)
+        if not rows:
+            parts.append(f"<p>{esc(mode)}: no captured waveform.</p>")
+            continue
+        fig = F.fig_waveforms(rows, f"Discharge current · {mode}")
+        r = F.render(fig, f"waveforms-{_slug(mode)}", out)
+        parts.append(
+            f"<h3>{esc(mode)}</h3>"
+            + _img(r, f"Discharge waveforms, {mode}", f"Discharge current in mode {esc(mode)}.")
+        )
+    return "".join(parts)
+
+
+def _section_flagged(run: Path, m: pd.DataFrame, colours: dict[str, str]) -> str:
+    f = m[m["flagged"]]
+    if f.empty:
+        return "<p>No event was flagged.</p>"
+    rows = []
+    for i, r in enumerate(f.itertuples()):
+        why = [FLAG_TEXT[c] for c in FLAG_TEXT if c in m.columns and bool(getattr(r, c) or False)]
+        thumb = "<span class='n'>no waveform</span>"
+        if isinstance(r.file, str) and i < MAX_THUMBNAILS:
+            try:
+                wf = load_waveform(run / r.file)
+                thumb = F.sparkline_svg(
+                    wf.time(), wf.values("current"), colours.get(r.meter, "#000")
+                )
+            except (OSError, ValueError) as exc:
+                thumb = f"<span class='n'>unreadable: {esc(exc)}</span>"
+        elif i >= MAX_THUMBNAILS:
+            thumb = "<span class='n'>(thumbnail limit reached)</span>"
+        rows.append(
+            [
+                esc(getattr(r, "event", "")),
+                esc(r.meter),
+                esc(r.mode),
+                esc(eng(r.volts, "V")),
+                esc(r.load),
+                esc(eng(r.delay_s, "s")),
+                esc(eng(r.abs_peak_a, "A")),
+                esc(eng(r.charge_c, "C")),
+                esc("; ".join(why)),
+                thumb,
+            ]
+        )
+    return (
+        f"<p>{len(f)} of {len(m)} events carry a flag. Thumbnails: current after the "
+        "trigger on a logarithmic time axis.</p>"
+        + _table(
+            [
+                "Event",
+                "Meter",
+                "Mode",
+                "Voltage",
+                "Load",
+                "Delay",
+                "|Peak|",
+                "Charge",
+                "Flags",
+                "Current",
+            ],
+            rows,
+            "flagged",
+        )
+    )
+
+
+def _section_groups(g: pd.DataFrame) -> str:
+    rows = []
+    for r in g.itertuples():
+        u = metric_unit(str(r.metric))
+
+        def e(name: str, r=r, u=u) -> str:
+            return esc(eng(getattr(r, name, np.nan), u))
+
+        conf = getattr(r, "utl_confidence", np.nan)
+        cov = getattr(r, "utl_coverage", np.nan)
+        share = getattr(r, "share_over_limit", np.nan)
+        rows.append(
+            [
+                esc(r.meter),
+                esc(r.serial if r.serial == r.serial else ""),
+                esc(r.mode),
+                esc(eng(r.volts, "V")),
+                esc(r.load),
+                esc(eng(r.delay_s, "s")),
+                esc(metric_label(str(r.metric))),
+                f"{esc(getattr(r, 'n_captured', ''))} / {esc(getattr(r, 'n_planned', ''))}",
+                e("mean"),
+                e("std"),
+                e("median"),
+                f"{e('median_ci_low')} – {e('median_ci_high')}",
+                e("p95"),
+                e("p99"),
+                e("max"),
+                e("utl")
+                + (
+                    f" <span class='n'>({conf:.0%}/{cov:.0%})</span>"
+                    if conf == conf and cov == cov
+                    else ""
+                ),
+                e("limit"),
+                esc(f"{share:.0%}" if share == share else "–"),
+                _verdict_cell(str(r.verdict)),
+            ]
+        )
+    return (
+        "<p>Every group × metric of groups.csv. utl: one-sided normal upper tolerance bound "
+        "(confidence / coverage in brackets).</p><div class='wide'>"
+        + _table(
+            [
+                "Meter",
+                "Serial",
+                "Mode",
+                "Voltage",
+                "Load",
+                "Delay",
+                "Metric",
+                "n",
+                "Mean",
+                "Std",
+                "Median",
+                "Median 95 % CI",
+                "p95",
+                "p99",
+                "Max",
+                "utl",
+                "Limit",
+                "Over limit",
+                "Verdict",
+            ],
+            rows,
+            "groups",
+        )
+        + "</div>"
+    )
+
+
+def _compare_table(run: Path, base: Path, base_man: dict[str, Any]) -> str:
+    ids = [str(base_man.get("run_id") or ""), base.name]
+    path = next(
+        (run / f"compare-{i}.csv" for i in ids if i and (run / f"compare-{i}.csv").exists()), None
+    )
+    if path is not None:
+        c = pd.read_csv(path)
+    else:
+        try:
+            from rig import compare
+        except ImportError:
+            return "<p>No comparison file (compare-&lt;baseline-id&gt;.csv) and no rig.compare.</p>"
+        c = compare.compare_runs(run, base)
+        if not isinstance(c, pd.DataFrame):
+            c = pd.DataFrame(c)
+    if c.empty:
+        return "<p>The comparison holds no common group.</p>"
+    rows = []
+    for _, r in c.iterrows():
+        u = metric_unit(str(r.get("metric", "")))
+        cells = []
+        for col in c.columns:
+            val = r[col]
+            if col == "verdict":
+                cells.append(_verdict_cell("" if val != val else str(val)))
+            elif col == "metric":
+                cells.append(esc(metric_label(str(val))))
+            elif isinstance(val, float) and col.startswith(("median", "mean", "diff")):
+                cells.append(esc(eng(val, u)))
+            elif col == "volts":
+                cells.append(esc(eng(val, "V")))
+            elif isinstance(val, float):
+                cells.append(esc(f"{val:.4g}"))
+            else:
+                cells.append(esc(val))
+        rows.append(cells)
+    return (
+        f"<p>From {esc(path.name if path else 'rig.compare.compare_runs')}.</p><div class='wide'>"
+        + _table([esc(x) for x in c.columns], rows, "groups")
+        + "</div>"
+    )
+
+
+# --- assembly ----------------------------------------------------------------------------------
+
+_CSS = """
+:root{--ink:#1d1d1f;--mute:#5f6368;--rule:#d9d9de;--pass:#00704a;--fail:#b23b00;--bg:#fafafa}
+body{font:15px/1.45 "DejaVu Sans",system-ui,sans-serif;color:var(--ink);margin:0;background:#fff}
+main{max-width:1120px;margin:0 auto;padding:16px 24px 48px}
+h1{font-size:1.6em;margin:.4em 0 .1em}h2{font-size:1.25em;margin:1.6em 0 .4em;
+border-bottom:2px solid var(--ink);padding-bottom:3px}h3{font-size:1.05em;margin:1.1em 0 .3em}
+table{border-collapse:collapse;margin:.5em 0 1em;font-size:.88em}
+th,td{border-bottom:1px solid var(--rule);padding:4px 8px;text-align:left;vertical-align:top}
+th{background:#f0f0f3;font-weight:600}
+.wide{overflow-x:auto}table.glance td,table.groups td,table.flagged td{white-space:nowrap}.n{color:var(--mute);font-size:.9em}
+.v{font-weight:700;padding:1px 6px;border-radius:3px;white-space:nowrap}
+.v.pass{color:var(--pass);background:#e3f4ec}.v.fail{color:#fff;background:var(--fail)}
+.v.other{color:var(--mute);background:#eee}
+.caution{border-left:6px solid var(--fail);background:#fff5ef;padding:4px 14px}
+dl.kv{display:grid;grid-template-columns:max-content 1fr;gap:2px 14px;margin:.4em 0}
+dl.kv dt{font-weight:600}dl.kv dd{margin:0}
+figure{margin:.6em 0 1.4em}figure img{max-width:100%;height:auto;border:1px solid var(--rule)}
+figcaption{font-size:.88em;color:var(--mute)}.lead{font-size:1.05em}
+nav{font-size:.9em;color:var(--mute)}nav a{color:inherit}
+svg.spark{display:block;background:var(--bg)}
+"""
+
+
+def write_report(
+    run_dir: str | Path,
+    baseline_dir: str | Path | None = None,
+    rng: np.random.Generator | None = None,
+) -> Path:
+    """Write ``<run_dir>/report.html`` and ``<run_dir>/figures/*.png|svg``; returns the HTML path.
+
+    ``baseline_dir`` adds overlays against that run and its equivalence verdicts.
+    ``rng`` only places the jitter of strip plots (seeded by default, so reports are stable).
+    Raises RunFolderError when the run has no manifest or has not been analysed.
+    """
+    t_start = time.perf_counter()
+    run = Path(run_dir)
+    rng = rng if rng is not None else np.random.default_rng(0)
+    man = read_manifest(run)
+    m = _load_metrics(run)
+    g = _load_groups(run)
+    out = run / FIGURES
+    meters = list(dict.fromkeys(m["meter"]))
+    colours = F.colour_map(meters)
+    modes = list(dict.fromkeys(m["mode"]))
+    body: dict[str, str] = {}
+    body["tested"] = _section_tested(run, man, m)
+    body["glance"] = _section_glance(m, g)
+    body["verdicts"] = _section_verdicts(g)
+    body["caution"] = _CAUTION
+    body["waveforms"] = _section_waveforms(run, m, modes, colours, out)
+    log.info("report %s: waveforms done after %.1f s", run.name, time.perf_counter() - t_start)
+
+    mz = _at_zero_delay(m)
+    load = _main_load(m)
+    ml = mz[mz["load"] == load]
+    fig = F.fig_strip(
+        ml,
+        "abs_peak_a",
+        "A",
+        "|Peak current|",
+        modes,
+        colours,
+        rng,
+        f"|Peak current| per event · load {load}",
+    )
+    body["peaks"] = (
+        "<p>Every event is a point (hollow: flagged). Boxes: quartiles; whiskers: "
+        "5 % to 95 %; black bar: median.</p>"
+        + _img(
+            F.render(fig, "peak-current", out),
+            "Peak current per event",
+            "|Peak current| per event by mode, voltage and meter.",
+        )
+    )
+
+    gl = _at_zero_delay(g[g["load"].astype(str) == str(load)])
+    fig = F.fig_vs_voltage(
+        gl,
+        [("abs_peak_a", "|Peak current|", "A"), ("charge_c", "Charge", "C")],
+        modes,
+        colours,
+        f"Against charge voltage · load {load}",
+    )
+    body["trends"] = _img(
+        F.render(fig, "vs-voltage", out),
+        "Peak current and charge against voltage",
+        "Median with its 95 % confidence interval, upper tolerance bound (dashed) "
+        "and limit (dash-dot) where groups.csv sets one.",
+    )
+
+    vmax = ml.groupby(["meter", "mode"])["volts"].transform("max")
+    fig = F.fig_iec_charge(ml[ml["volts"] == vmax], colours, rng, IEC61010_CHARGE_C)
+    body["iec-charge"] = (
+        "<p>IEC 61010-1 treats a stored charge up to 45 µC (for voltages up "
+        "to 15 kV) as not hazardous; the points are the charge each event "
+        "delivered at the highest voltage of each group. Defer to the "
+        "standard's current text.</p>"
+        + _img(
+            F.render(fig, "iec-charge", out),
+            "Charge against 45 µC",
+            "Charge per event, logarithmic axis.",
+        )
+    )
+
+    if "pulses" in m.columns and m["pulses"].notna().any():
+        fig = F.fig_pulses(mz, modes, colours)
+        body["bounce"] = _img(
+            F.render(fig, "bounce", out),
+            "Pulses per event",
+            "Separate current pulses per discharge (contact bounce).",
+        )
+    else:
+        body["bounce"] = "<p>metrics.parquet holds no pulse counts.</p>"
+
+    sd_path = run / "selfdischarge.csv"
+    sd = pd.read_csv(sd_path) if sd_path.exists() else pd.DataFrame()
+    if not sd.empty:
+        fig = F.fig_selfdischarge(m, sd, colours)
+        rows = [
+            [
+                esc(r.meter),
+                esc(r.mode),
+                esc(eng(r.volts, "V")),
+                esc(r.load),
+                esc(f"{eng(r.tau_s, 's')} ({eng(r.tau_ci_low, 's')} – {eng(r.tau_ci_high, 's')})"),
+                esc(eng(r.safe_charge_c, "C")),
+                esc(eng(r.delay_to_safe_s, "s")),
+                esc(r.n_delays),
+            ]
+            for r in sd.itertuples()
+        ]
+        body["selfdischarge"] = _img(
+            F.render(fig, "selfdischarge", out),
+            "Self-discharge",
+            "Charge delivered after each delay, with the fitted "
+            "exponential (τ from selfdischarge.csv).",
+        ) + _table(
+            [
+                "Meter",
+                "Mode",
+                "Voltage",
+                "Load",
+                "τ (95 % CI)",
+                "Safe charge",
+                "Delay to safe",
+                "Delays",
+            ],
+            rows,
+        )
+    else:
+        body["selfdischarge"] = "<p>No delay sweep in this run (no selfdischarge.csv).</p>"
+
+    body["flagged"] = _section_flagged(run, m, colours)
+    body["groups"] = _section_groups(g)
+    if baseline_dir is not None:
+        body["baseline"] = _section_baseline(run, m, Path(baseline_dir), modes, colours, out)
+
+    title = f"Discharge test report · {man.get('run_id') or run.name}"
+    nav = " · ".join(f"<a href='#{sid}'>{esc(h)}</a>" for sid, h in SECTIONS if sid in body)
+    sections = "".join(
+        f"<section id='{sid}'><h2>{esc(h)}</h2>{body[sid]}</section>"
+        for sid, h in SECTIONS
+        if sid in body
+    )
+    stamp = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
+    doc = (
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
+        "<meta name='viewport' content='width=device-width, initial-scale=1'>"
+        "<meta http-equiv='Content-Security-Policy' content=\"default-src 'none'; "
+        "img-src data:; style-src 'unsafe-inline'\">"
+        f"<title>{esc(title)}</title><style>{_CSS}</style></head><body><main>"
+        f"<h1>{esc(title)}</h1><nav>{nav}</nav>{sections}"
+        f"<footer class='n'><p>Written by discharge-rig on {stamp}.</p></footer>"
+        "</main></body></html>"
+    )
+    path = run / REPORT
+    path.write_text(doc, encoding="utf-8")
+    log.info("report %s written in %.1f s", path, time.perf_counter() - t_start)
+    return path
+
+
+def _section_baseline(
+    run: Path, m: pd.DataFrame, base: Path, modes: list[str], colours, out
+) -> str:
+    base_man = read_manifest(base)
+    bm = _load_metrics(base)
+    parts = [
+        f"<p>Baseline run: <b>{esc(base_man.get('run_id') or base.name)}</b>"
+        f" ({esc(base_man.get('started') or '')}). Solid: this run; dashed: the "
+        "baseline.</p>"
+    ]
+    for mode in modes:
+        rows = _wave_rows(run, m, mode, colours, other=(base, bm))
+        if not rows:
+            continue
+        fig = F.fig_waveforms(rows, f"This run against the baseline · {mode}")
+        r = F.render(fig, f"baseline-{_slug(mode)}", out)
+        parts.append(
+            _img(
+                r,
+                f"Baseline overlay, {mode}",
+                f"Mode {esc(mode)}: this run (solid) and the baseline (dashed).",
+            )
+        )
+    parts.append("<h3>Equivalence</h3>" + _compare_table(run, base, base_man))
+    return "".join(parts)

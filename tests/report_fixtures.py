@@ -1,0 +1,452 @@
+"""Synthetic analysed run folders for the report tests (invented meters, invented data).
+
+:func:`build_run` writes everything the report reads, with the columns of DEVELOPERS.md
+("Run folder" and "Analysis outputs"): ``manifest.json``, ``plan.json``, ``journal.jsonl``,
+``waveforms/<event>.npz`` (through :func:`rig.waveform.save_waveform`), ``metrics.parquet``,
+``groups.csv`` and ``selfdischarge.csv``. The waveforms follow a two-path discharge model
+(a fast spike through the meter's protection capacitance plus a slow RC tail through its
+input network, with contact-bounce re-strikes); the metrics are computed from the stored
+waveforms with plain numpy, so the figures and the tables agree with each other. This is
+fixture data for tests and benchmarks only; the real metrics come from rig.analysis.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from rig.waveform import Waveform, save_waveform
+
+__all__ = ["FakeMeter", "DEFAULT_METERS", "build_run", "write_compare_csv"]
+
+MODES = ("AC V", "AC mV", "DC V")
+LOAD = ("short", 0.05)
+DT = 5e-9  # s per sample
+N_SAMPLES = 40_000  # 200 us record
+T0 = -2e-6  # pre-trigger, s
+RISE = 3e-9  # s, edge of the fast spike
+NOISE_A = 2e-3  # rms noise of the current sense, A
+LIMITS = {"abs_peak_a": 4.0, "charge_c": 45e-6}  # invented peak limit; IEC 61010-1 45 uC
+
+
+@dataclass(frozen=True)
+class FakeMeter:
+    """An invented meter: fast path (protection parts) and slow path (input network) per mode."""
+
+    name: str
+    serial: str
+    rating: str
+    r_fast: float  # ohm
+    c_fast: float  # F
+    r_slow: float  # ohm
+    c_mode: dict[str, float] = field(default_factory=dict)  # F, coupling capacitance per mode
+    r_leak: float = 100e6  # ohm, self-discharge path
+
+
+DEFAULT_METERS = (
+    FakeMeter(
+        "Fictiva FX-200",
+        "FX-0001",
+        "CAT III 600 V (fictitious)",
+        120.0,
+        200e-12,
+        1.0e3,
+        {"AC V": 33e-9, "AC mV": 39e-9, "DC V": 1e-9},
+        100e6,
+    ),
+    FakeMeter(
+        "Examplo DM-7",
+        "DM7-4242",
+        "CAT IV 600 V (fictitious)",
+        220.0,
+        470e-12,
+        800.0,
+        {"AC V": 22e-9, "AC mV": 15e-9, "DC V": 0.5e-9},
+        60e6,
+    ),
+)
+
+
+def _current(
+    meter: FakeMeter, mode: str, volts: float, t: np.ndarray, restrikes, contact: float = 1.0
+) -> np.ndarray:
+    """Discharge current (A) of one event at times ``t`` (s), restrikes = [(t_k, fraction)];
+    ``contact`` scales the fast path's resistance (probe and relay contact, per event)."""
+    tp = np.clip(t, 0.0, None)
+    on = t >= 0.0
+    r_fast = meter.r_fast * contact
+    tau_f = r_fast * meter.c_fast
+    tau_s = meter.r_slow * meter.c_mode[mode]
+    i = volts / r_fast * np.exp(-tp / tau_f) * (1 - np.exp(-tp / RISE))
+    i += volts / meter.r_slow * np.exp(-tp / tau_s) * (1 - np.exp(-tp / (10 * RISE)))
+    for tk, frac in restrikes:
+        tk_ = np.clip(t - tk, 0.0, None)
+        i += (t >= tk) * frac * volts / r_fast * np.exp(-tk_ / tau_f) * (1 - np.exp(-tk_ / RISE))
+    return i * on
+
+
+def _metrics(v: np.ndarray, t: np.ndarray, volts: float, clipped: bool) -> dict[str, object]:
+    """Per-event metrics of one decoded current trace (fixture arithmetic, not rig.analysis)."""
+    pre = v[t < 0]
+    base = float(pre.mean())
+    noise = float(pre.std())
+    y = v - base
+    k = int(np.argmax(np.abs(y)))
+    peak = float(y[k])
+    pol = 1 if peak >= 0 else -1
+    a = y * pol
+    ap = abs(peak)
+
+    def first(mask: np.ndarray, start: int = 0) -> int:
+        idx = np.flatnonzero(mask[start:])
+        return start + int(idx[0]) if idx.size else len(mask) - 1
+
+    i10, i90 = first(a >= 0.1 * ap), first(a >= 0.9 * ap)
+    i50a, i50b = first(a >= 0.5 * ap), first(a < 0.5 * ap, k)
+    i37 = first(a < 0.368 * ap, k)
+    post = t >= 0
+    charge = float(a[post].sum() * DT)
+    energy = float((a[post] ** 2).sum() * DT * LOAD[1])
+    return {
+        "peak_a": peak,
+        "abs_peak_a": ap,
+        "polarity": pol,
+        "t_peak_s": float(t[k]),
+        "rise_s": float(t[i90] - t[i10]),
+        "decay_s": float(t[i37] - t[k]),
+        "fwhm_s": float(t[i50b] - t[i50a]),
+        "charge_c": charge,
+        "energy_j": energy,
+        "c_equiv_f": charge / volts,
+        "baseline_a": base,
+        "noise_a": noise,
+        "flag_clipped": clipped,
+        "flag_not_captured": False,
+        "flag_truncated": bool(np.abs(a[-200:]).mean() > 0.02 * ap),
+        "flag_below_noise": bool(ap < 5 * noise),
+        # HBM indicators: 100 pF / 1500 ohm network (ANSI/ESDA/JEDEC JS-001, REFERENCES.md 1)
+        "ind_hbm_volts": ap * 1500.0,
+        "ind_hbm_charge_c": ap * 1500.0 * 100e-12,
+        "ind_hbm_energy_j": 0.5 * 100e-12 * (ap * 1500.0) ** 2,
+        "ind_iec61010_charge_ratio": charge / 45e-6,  # IEC 61010-1 stored-charge figure
+    }
+
+
+def _median_ci(x: np.ndarray, conf: float = 0.95) -> tuple[float, float]:
+    """Distribution-free CI of the median from binomial order statistics."""
+    x = np.sort(x)
+    n = x.size
+    if n < 2:
+        return (float("nan"), float("nan"))
+    lo = int(stats.binom.ppf((1 - conf) / 2, n, 0.5))
+    hi = int(stats.binom.isf((1 - conf) / 2, n, 0.5))
+    return float(x[max(lo - 1, 0)]), float(x[min(hi, n - 1)])
+
+
+def _groups(metrics: pd.DataFrame) -> pd.DataFrame:
+    keys = ["meter", "serial", "mode", "volts", "load", "delay_s"]
+    names = ["abs_peak_a", "peak_a", "charge_c", "energy_j", "rise_s", "decay_s", "tau_s"]
+    names += ["pulses"]
+    rows = []
+    for gk, g in metrics.groupby(keys, sort=True):
+        for m in names:
+            x = g[m].dropna().to_numpy(float)
+            n = x.size
+            # one-sided normal tolerance factor, exact noncentral-t form
+            # (NIST/SEMATECH e-Handbook 7.2.6.3)
+            k1 = (
+                stats.nct.ppf(0.95, n - 1, stats.norm.ppf(0.99) * math.sqrt(n)) / math.sqrt(n)
+                if n > 1
+                else float("nan")
+            )
+            std = float(x.std(ddof=1)) if n > 1 else float("nan")
+            lim = LIMITS.get(m, float("nan"))
+            utl = float(x.mean() + k1 * std) if n > 1 else float("nan")
+            lo, hi = _median_ci(x)
+            verdict = "" if math.isnan(lim) else ("pass" if utl <= lim else "fail")
+            rows.append(
+                dict(zip(keys, gk, strict=True))
+                | {
+                    "metric": m,
+                    "n_planned": len(g),
+                    "n_captured": n,
+                    "mean": float(x.mean()),
+                    "std": std,
+                    "median": float(np.median(x)),
+                    "median_ci_low": lo,
+                    "median_ci_high": hi,
+                    "p95": float(np.percentile(x, 95)),
+                    "p99": float(np.percentile(x, 99)),
+                    "max": float(x.max()),
+                    "utl": utl,
+                    "utl_confidence": 0.95,
+                    "utl_coverage": 0.99,
+                    "limit": lim,
+                    "share_over_limit": float((x > lim).mean())
+                    if not math.isnan(lim)
+                    else float("nan"),
+                    "verdict": verdict,
+                }
+            )
+    return pd.DataFrame(rows)
+
+
+def build_run(
+    root: str | Path,
+    rng: np.random.Generator,
+    *,
+    run_id: str = "2026-12-01-120000-fictitious-qualification",
+    meters: tuple[FakeMeter, ...] = DEFAULT_METERS,
+    volts: tuple[float, ...] = (300.0, 600.0),
+    reps: int = 4,
+    delays: tuple[float, ...] = (0.5, 1.0, 2.0, 5.0),
+    operator_note: str = "Fictitious demo run for the report tests.",
+    gain_scale: float = 1.0,
+) -> Path:
+    """Write a synthetic analysed run folder ``root/run_id``; returns its path.
+
+    ``reps`` events per (meter, mode, voltage) group at zero delay, plus a delay sweep (2 events
+    per delay) at the highest voltage in the first mode when ``delays`` is not empty. Two
+    events are made faulty on purpose: one clips the scope, one is not captured.
+    ``gain_scale`` multiplies every meter's currents (a repaired meter for a baseline test).
+    """
+    run = Path(root) / run_id
+    (run / "waveforms").mkdir(parents=True, exist_ok=True)
+    t = T0 + DT * np.arange(N_SAMPLES)
+    plan: list[dict[str, object]] = []
+    for m in meters:
+        for mode in MODES:
+            for v in volts:
+                for r in range(reps):
+                    plan.append(
+                        {
+                            "meter": m.name,
+                            "serial": m.serial,
+                            "mode": mode,
+                            "volts": v,
+                            "delay_s": 0.0,
+                            "rep": r,
+                        }
+                    )
+            if delays and mode == MODES[0]:
+                for d in delays:
+                    for r in range(2):
+                        plan.append(
+                            {
+                                "meter": m.name,
+                                "serial": m.serial,
+                                "mode": mode,
+                                "volts": max(volts),
+                                "delay_s": d,
+                                "rep": r,
+                            }
+                        )
+    for i, p in enumerate(plan):
+        p |= {"event": i, "load": LOAD[0], "load_ohms": LOAD[1]}
+        p["key"] = (
+            f"{p['serial']}/{p['mode']}/{p['volts']:g}V/{LOAD[0]}/{p['delay_s']:g}s/{p['rep']}"
+        )
+    by_name = {m.name: m for m in meters}
+    clip_event, lost_event = 1, 6
+    journal, rows = [], []
+    for p in plan:
+        m = by_name[str(p["meter"])]
+        tau_leak = m.r_leak * m.c_mode[str(p["mode"])]
+        v_eff = float(p["volts"]) * math.exp(-float(p["delay_s"]) / tau_leak) * gain_scale
+        restrikes = [
+            (rng.uniform(200e-9, 2e-6), rng.uniform(0.3, 0.7))
+            for _ in range(int(rng.integers(0, 3)))
+        ]
+        ev = int(p["event"])
+        rec = dict(p) | {
+            "status": "captured",
+            "file": f"waveforms/{ev:06d}.npz",
+            "sha256": None,
+            "time": f"2026-12-01T12:{ev // 60:02d}:{ev % 60:02d}Z",
+            "supply_volts": float(p["volts"]) * (1 + rng.normal(0, 1e-3)),
+            "residual_volts": abs(rng.normal(0.2, 0.05)),
+        }
+        if ev == lost_event:
+            rec |= {"status": "not_captured", "file": None}
+            journal.append(rec)
+            rows.append(
+                rec
+                | {
+                    "flag_not_captured": True,
+                    "flag_clipped": False,
+                    "flag_truncated": False,
+                    "flag_below_noise": False,
+                }
+            )
+            continue
+        i = _current(m, str(p["mode"]), v_eff, t, restrikes, rng.lognormal(0.0, 0.15)) + rng.normal(
+            0, NOISE_A, t.size
+        )
+        full_scale = 1.6 * v_eff * (1 / m.r_fast + 1 / m.r_slow) + 10 * NOISE_A
+        if ev == clip_event:
+            full_scale *= 0.4
+        gain = full_scale / 32000
+        codes = np.clip(np.round(i / gain), -32768, 32767).astype(np.int16)
+        wf = Waveform(
+            codes[None, :],
+            np.array([gain]),
+            np.array([0.0]),
+            np.array([-32768]),
+            np.array([32767]),
+            DT,
+            T0,
+            ("current",),
+            ("A",),
+        )
+        rec["sha256"] = save_waveform(run / str(rec["file"]), wf)
+        journal.append(rec)
+        met = _metrics(
+            wf.values("current"), t, float(p["volts"]), bool(np.any(np.abs(codes) >= 32767))
+        )
+        tau_s = m.r_slow * m.c_mode[str(p["mode"])] * (1 + rng.normal(0, 0.02))
+        met |= {
+            "pulses": 1 + len(restrikes),
+            "tau_s": tau_s,
+            "r_equiv_ohm": tau_s / max(float(met["c_equiv_f"]), 1e-30),
+        }
+        rows.append(rec | met)
+    metrics = pd.DataFrame(rows)
+    metrics.to_parquet(run / "metrics.parquet", index=False)
+    _groups(metrics).to_csv(run / "groups.csv", index=False)
+    if delays:
+        _selfdischarge(metrics, meters).to_csv(run / "selfdischarge.csv", index=False)
+    with open(run / "journal.jsonl", "w", encoding="utf-8") as fh:
+        for rec in journal:
+            fh.write(json.dumps(rec) + "\n")
+    (run / "plan.json").write_text(json.dumps(plan, indent=1), encoding="utf-8")
+    (run / "manifest.json").write_text(
+        json.dumps(_manifest(run_id, meters, volts, reps, operator_note), indent=1),
+        encoding="utf-8",
+    )
+    return run
+
+
+def _selfdischarge(metrics: pd.DataFrame, meters: tuple[FakeMeter, ...]) -> pd.DataFrame:
+    """Fit q(d) = q0 exp(-d/tau) per (meter, mode, volts, load) with a delay sweep (log-linear)."""
+    rows = []
+    keys = ["meter", "serial", "mode", "volts", "load"]
+    for gk, g in metrics.dropna(subset=["charge_c"]).groupby(keys):
+        if g["delay_s"].nunique() < 3:
+            continue
+        res = stats.linregress(g["delay_s"], np.log(g["charge_c"]))
+        tau = -1.0 / res.slope
+        dtau = tau**2 * res.stderr * 1.96
+        q0 = math.exp(res.intercept)
+        safe = 1e-6  # invented threshold for the fixture, C
+        rows.append(
+            dict(zip(keys, gk, strict=True))
+            | {
+                "tau_s": tau,
+                "tau_ci_low": tau - dtau,
+                "tau_ci_high": tau + dtau,
+                "safe_charge_c": safe,
+                "delay_to_safe_s": max(0.0, tau * math.log(q0 / safe)),
+                "n_delays": int(g["delay_s"].nunique()),
+            }
+        )
+    return pd.DataFrame(rows)
+
+
+def _manifest(run_id, meters, volts, reps, note) -> dict[str, object]:
+    return {
+        "format": 1,
+        "run_id": run_id,
+        "sequence": {
+            "name": "fictitious qualification",
+            "path": "sequences/fictitious.toml",
+            "meters": [
+                {"name": m.name, "serial": m.serial, "rating": m.rating, "modes": list(MODES)}
+                for m in meters
+            ],
+            "modes": list(MODES),
+            "volts": list(volts),
+            "loads": [{"name": LOAD[0], "ohms": LOAD[1], "henry": 2e-7}],
+            "repeats": reps,
+            "operator_note": note,
+        },
+        "bench": {
+            "name": "simulated bench (fictitious)",
+            "simulated": True,
+            "max_volts": 1000.0,
+            "safe_residual_volts": 30.0,
+            "sense": {"kind": "shunt", "ohms": 0.1},
+        },
+        "instruments": {
+            "supply": {
+                "idn": "FICTIVE,HV-1K,SN0001,1.0",
+                "resource": "TCPIP0::127.0.0.1::5025::SOCKET",
+            },
+            "switch": {
+                "idn": "FICTIVE,RLY-8,SN0002,1.0",
+                "resource": "TCPIP0::127.0.0.1::5026::SOCKET",
+            },
+            "scope": {
+                "idn": "FICTIVE,SCOPE-2,SN0003,1.0",
+                "resource": "TCPIP0::127.0.0.1::5027::SOCKET",
+            },
+        },
+        "software": {"discharge-rig": "0.1.0", "python": "3.11", "numpy": np.__version__},
+        "host": "bench-pc (fictitious)",
+        "started": "2026-12-01T12:00:00Z",
+        "ended": "2026-12-01T12:20:00Z",
+        "status": "complete",
+    }
+
+
+def write_compare_csv(run_dir: str | Path, baseline_dir: str | Path) -> Path:
+    """A ``compare-<baseline-id>.csv`` for the fixture runs: ratio of medians, rank test, TOST.
+
+    Equivalence: the ratio's 90 % bootstrap-free interval (log-normal approximation) inside
+    [0.8, 1.25] (two one-sided tests at 5 %); fixture arithmetic, not rig.compare.
+    """
+    run_dir, baseline_dir = Path(run_dir), Path(baseline_dir)
+    a = pd.read_parquet(run_dir / "metrics.parquet")
+    b = pd.read_parquet(baseline_dir / "metrics.parquet")
+    keys = ["meter", "serial", "mode", "volts", "load", "delay_s"]
+    rows = []
+    for gk, ga in a.groupby(keys):
+        gb = b
+        for k, v in zip(keys, gk, strict=True):
+            gb = gb[gb[k] == v]
+        for m in ("abs_peak_a", "charge_c"):
+            xa, xb = ga[m].dropna().to_numpy(float), gb[m].dropna().to_numpy(float)
+            if xa.size < 2 or xb.size < 2:
+                continue
+            la, lb = np.log(xa), np.log(xb)
+            d = la.mean() - lb.mean()
+            se = math.sqrt(la.var(ddof=1) / la.size + lb.var(ddof=1) / lb.size)
+            z = stats.norm.ppf(0.95)
+            lo, hi = math.exp(d - z * se), math.exp(d + z * se)
+            p = stats.mannwhitneyu(xa, xb).pvalue
+            eq = lo >= 0.8 and hi <= 1.25
+            rows.append(
+                dict(zip(keys, gk, strict=True))
+                | {
+                    "metric": m,
+                    "n_run": xa.size,
+                    "n_baseline": xb.size,
+                    "median_run": float(np.median(xa)),
+                    "median_baseline": float(np.median(xb)),
+                    "ratio": math.exp(d),
+                    "ratio_ci_low": lo,
+                    "ratio_ci_high": hi,
+                    "p_rank": float(p),
+                    "tolerance": "0.8-1.25",
+                    "verdict": "equivalent" if eq else "not shown equivalent",
+                }
+            )
+    base_id = baseline_dir.name
+    out = run_dir / f"compare-{base_id}.csv"
+    pd.DataFrame(rows).to_csv(out, index=False)
+    return out

@@ -1,0 +1,361 @@
+"""The HTML report: sections, embedded figures, no external URL, escaping, computed summaries."""
+
+from __future__ import annotations
+
+import base64
+import json
+import re
+import xml.etree.ElementTree as ET
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from drivers.errors import RunFolderError
+from rig import figures as F
+from rig.report import write_report
+from rig.units import eng, eng_scale
+from tests.report_fixtures import DEFAULT_METERS, FakeMeter, build_run, write_compare_csv
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (W3C/ISO 15948), section 5.2
+EVIL = "<script>alert(1)</script>"
+EXPECTED_SECTIONS = [
+    "tested",
+    "glance",
+    "verdicts",
+    "caution",
+    "waveforms",
+    "peaks",
+    "trends",
+    "iec-charge",
+    "bounce",
+    "selfdischarge",
+    "flagged",
+    "groups",
+]
+
+
+class _Page(HTMLParser):
+    """Collects what the tests look at: tags with attributes, section order, text, tables."""
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict[str, str | None]]] = []
+        self.sections: list[str] = []
+        self.h2: list[str] = []
+        self.text: list[str] = []
+        self._in_h2 = False
+        self._table_stack: list[list[list[str]]] = []
+        self.tables: dict[str, list[list[str]]] = {}
+        self._cell: list[str] | None = None
+        self._current_section = ""
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        self.tags.append((tag, a))
+        if tag == "section":
+            self._current_section = a.get("id") or ""
+            self.sections.append(self._current_section)
+        elif tag == "h2":
+            self._in_h2 = True
+            self.h2.append("")
+        elif tag == "table":
+            self._table_stack.append([])
+            self.tables.setdefault(self._current_section, self._table_stack[-1])
+        elif tag == "tr" and self._table_stack:
+            self._table_stack[-1].append([])
+        elif tag in ("td", "th") and self._table_stack:
+            self._cell = []
+
+    def handle_endtag(self, tag):
+        if tag == "h2":
+            self._in_h2 = False
+        elif tag in ("td", "th") and self._cell is not None and self._table_stack:
+            self._table_stack[-1][-1].append("".join(self._cell).strip())
+            self._cell = None
+        elif tag == "table" and self._table_stack:
+            self._table_stack.pop()
+
+    def handle_data(self, data):
+        self.text.append(data)
+        if self._in_h2:
+            self.h2[-1] += data
+        if self._cell is not None:
+            self._cell.append(data)
+
+
+def _parse(html: str) -> _Page:
+    p = _Page()
+    p.feed(html)
+    p.close()
+    return p
+
+
+@pytest.fixture(scope="module")
+def report(tmp_path_factory):
+    root = tmp_path_factory.mktemp("runs")
+    evil = FakeMeter(
+        EVIL,
+        "SN<b>&amp;\"'",
+        "CAT II <i>600 V</i>",
+        *(
+            DEFAULT_METERS[1].r_fast,
+            DEFAULT_METERS[1].c_fast,
+            DEFAULT_METERS[1].r_slow,
+            DEFAULT_METERS[1].c_mode,
+            DEFAULT_METERS[1].r_leak,
+        ),
+    )
+    run = build_run(
+        root,
+        np.random.default_rng(7),
+        meters=(DEFAULT_METERS[0], evil),
+        operator_note=f"note {EVIL} & <img src=x onerror=alert(2)>",
+    )
+    path = write_report(run)
+    html = path.read_text(encoding="utf-8")
+    return run, path, html, _parse(html)
+
+
+def test_report_is_written_in_the_run_folder(report):
+    run, path, _html, _page = report
+    assert path == run / "report.html"
+    assert sorted(p.suffix for p in (run / "figures").iterdir()).count(".png") >= 8
+
+
+def test_every_section_present_in_order(report):
+    *_, page = report
+    assert page.sections == EXPECTED_SECTIONS
+    assert all(h.strip() for h in page.h2)
+
+
+def test_every_figure_embedded_and_decodable(report):
+    run, _path, html, page = report
+    imgs = [a for t, a in page.tags if t == "img"]
+    # 3 modes of waveforms + peaks + trends + IEC charge + bounce + self-discharge
+    assert len(imgs) == 8
+    disk = {p.read_bytes() for p in (run / "figures").glob("*.png")}
+    for a in imgs:
+        src = a["src"] or ""
+        assert src.startswith("data:image/png;base64,")
+        data = base64.b64decode(src.split(",", 1)[1], validate=True)
+        assert data.startswith(PNG_SIGNATURE)
+        assert data in disk  # the embedded figure is the one written under figures/
+        assert a.get("alt")
+    for svg_file in (run / "figures").glob("*.svg"):
+        ET.parse(svg_file)  # well-formed XML
+    inline = re.findall(r"<svg\b.*?</svg>", html, flags=re.S)
+    flagged = pd.read_parquet(run / "metrics.parquet")
+    n_thumbs = int(
+        (
+            flagged[[c for c in flagged if c.startswith("flag_")]].any(axis=1)
+            & flagged["file"].notna()
+        ).sum()
+    )
+    assert n_thumbs >= 1 and len(inline) == n_thumbs
+    for svg in inline:
+        root = ET.fromstring(svg)
+        assert root.tag == "svg" and root.find("polyline") is not None
+
+
+def test_no_external_url_anywhere(report):
+    _run, _path, html, page = report
+    low = html.lower()
+    assert "http://" not in low and "https://" not in low
+    assert not re.search(r"""(src|href)\s*=\s*["']?//""", low)
+    assert "url(" not in low and "@import" not in low
+    for tag, a in page.tags:
+        if "src" in a:
+            assert (a["src"] or "").startswith("data:"), tag
+        if "href" in a:
+            assert (a["href"] or "").startswith("#"), tag
+    assert not any(t in ("script", "link", "iframe", "object", "embed") for t, _ in page.tags)
+
+
+def test_strings_from_files_show_as_text(report):
+    run, _path, html, page = report
+    text = "".join(page.text)
+    assert EVIL in text  # shown to the reader as text...
+    assert "<script" not in html.lower()  # ...never as markup
+    assert "onerror" not in [k for _, a in page.tags for k in a]
+    assert "SN<b>&amp;\"'" in text and "CAT II <i>600 V</i>" in text
+    assert not [t for t, _ in page.tags if t == "i"]  # the rating's <i> stayed text
+
+
+def test_at_a_glance_is_computed_from_the_events(report):
+    run, _path, _html, page = report
+    m = pd.read_parquet(run / "metrics.parquet")
+    m = m[(m["delay_s"] == 0) & m["file"].notna()]
+    rows = page.tables["glance"]
+    header, body = rows[0], rows[1:]
+    assert header[:3] == ["Mode", "Load", "At"]
+    assert {r[0] for r in body} == set(m["mode"])
+    for r in body:
+        d = m[(m["mode"] == r[0]) & (m["volts"] == m["volts"].max())]
+        for col, metric in (("Lower peak", "abs_peak_a"), ("Lower charge", "charge_c")):
+            med = d.groupby("meter")[metric].median()
+            cell = r[header.index(col)]
+            assert cell.startswith(med.idxmin()), (r[0], col, cell)
+            ratio = med.max() / med.min()
+            assert f"{ratio:.2f}× lower" in cell
+        cell = r[header.index("Median |peak current|")]
+        for meter, v in d.groupby("meter")["abs_peak_a"].median().items():
+            assert f"{meter}: {eng(v, 'A')}" in cell
+
+
+def test_verdict_counts_match_groups_csv(report):
+    run, _path, _html, page = report
+    g = pd.read_csv(run / "groups.csv")
+    v = g["verdict"].dropna()
+    v = v[v != ""]
+    text = " ".join("".join(page.text).split())
+    counts = ", ".join(f"{n} {k}" for k, n in v.value_counts().items())
+    assert f"{len(v)} group × metric checks against a limit: {counts}." in text
+    assert "fail" in v.values  # the fixture has failing checks, so the table is exercised
+    failing = page.tables["verdicts"]
+    assert len(failing) == 1 + g["meter"].nunique()
+
+
+def test_flagged_events_listed(report):
+    run, _path, _html, page = report
+    m = pd.read_parquet(run / "metrics.parquet")
+    flagged = m[m[[c for c in m if c.startswith("flag_")]].fillna(False).any(axis=1)]
+    rows = page.tables["flagged"][1:]
+    assert sorted(int(r[0]) for r in rows) == sorted(flagged["event"].astype(int))
+    lost = [r for r in rows if "not captured" in r[-2]]
+    assert len(lost) == int(flagged["flag_not_captured"].sum())
+
+
+def test_group_table_has_every_row(report):
+    run, _path, _html, page = report
+    g = pd.read_csv(run / "groups.csv")
+    assert len(page.tables["groups"]) == 1 + len(g)
+
+
+def test_baseline_overlays_and_equivalence(tmp_path):
+    rng = np.random.default_rng(11)
+    base = build_run(tmp_path, rng, run_id="base-run", reps=3, delays=())
+    run = build_run(tmp_path, rng, run_id="repaired-run", reps=3, delays=(), gain_scale=1.5)
+    write_compare_csv(run, base)
+    page = _parse(write_report(run, base).read_text(encoding="utf-8"))
+    assert page.sections[-1] == "baseline"
+    assert page.sections.count("selfdischarge") == 1  # section present, saying there is none
+    assert (run / "figures" / "baseline-ac-v.png").exists()
+    c = pd.read_csv(run / "compare-base-run.csv")
+    table = page.tables["baseline"]
+    assert len(table) == 1 + len(c)
+    verdicts = [r[table[0].index("verdict")] for r in table[1:]]
+    assert verdicts == c["verdict"].tolist()
+    # a 1.5x gain is outside the 0.8-1.25 equivalence window for the peaks
+    assert "not shown equivalent" in verdicts
+
+
+def test_missing_analysis_is_a_clear_error(tmp_path):
+    run = tmp_path / "bare"
+    run.mkdir()
+    (run / "manifest.json").write_text("{}", encoding="utf-8")
+    with pytest.raises(RunFolderError, match=r"metrics\.parquet"):
+        write_report(run)
+
+
+def test_sparse_manifest_is_tolerated(tmp_path):
+    run = build_run(tmp_path, np.random.default_rng(3), reps=2, delays=())
+    (run / "manifest.json").write_text(json.dumps({"status": "aborted"}), encoding="utf-8")
+    page = _parse(write_report(run).read_text(encoding="utf-8"))
+    text = "".join(page.text)
+    assert page.sections[0] == "tested" and "aborted" in text
+    assert all(m.name in text for m in DEFAULT_METERS)
+    assert "No delay sweep" in text
+
+
+def test_metrics_missing_a_column_names_it(tmp_path):
+    run = build_run(tmp_path, np.random.default_rng(4), reps=2, delays=())
+    m = pd.read_parquet(run / "metrics.parquet").drop(columns=["charge_c"])
+    m.to_parquet(run / "metrics.parquet")
+    with pytest.raises(RunFolderError, match=r"metrics\.parquet \[charge_c\]"):
+        write_report(run)
+
+
+# --- units and waveform reduction --------------------------------------------------------------
+
+
+@pytest.mark.parametrize(
+    ("value", "unit", "text"),
+    [
+        # SI prefixes: BIPM SI Brochure, 9th edition (2019), table 7
+        (1.2e-8, "s", "12 ns"),
+        (45e-6, "C", "45 µC"),
+        (0.0123, "A", "12.3 mA"),
+        (999.96e-9, "s", "1 µs"),  # rounding to 3 digits moves up one prefix
+        (-3.3, "A", "-3.3 A"),
+        (1500.0, "V", "1.5 kV"),
+        (0.0, "A", "0 A"),
+        (float("nan"), "A", "–"),
+    ],
+)
+def test_engineering_prefixes(value, unit, text):
+    assert eng(value, unit) == text
+
+
+def test_eng_scale_picks_the_axis_prefix():
+    assert eng_scale(0.012) == (1e3, "m")  # BIPM SI Brochure table 7: milli = 1e-3
+    assert eng_scale(3e-8) == (1e9, "n")
+    assert eng(2e-6, "s", ascii=True) == "2 us"
+
+
+def test_thinning_keeps_a_one_sample_spike():
+    """Min/max envelope: a one-sample peak in 10^5 samples survives reduction to 1500 points."""
+    t = np.arange(-1000, 99_000) * 1e-9
+    y = np.where(t >= 0, 1e-3 * np.exp(-t / 20e-6), 0.0)
+    y[5000] = 2.5
+    s = F.summarise_traces(t, np.vstack([y, y, y]), (t[0], t[-1]))
+    assert s.lin_t.size <= 1500
+    assert s.lin_mid.max() == pytest.approx(2.5)
+    assert s.peak == pytest.approx(2.5)
+
+
+def test_log_bins_follow_an_exponential_tail():
+    """Bin means of i = I0 exp(-t/tau) stay on the curve (textbook RC discharge,
+    REFERENCES.md 6) within the curvature error of the widest bin."""
+    dt, tau, i0 = 1e-8, 1e-4, 0.5
+    t = np.arange(-200, 100_000) * dt
+    y = np.where(t >= 0, i0 * np.exp(-t / tau), 0.0)
+    s = F.summarise_traces(t, y[None, :], (-1e-6, 1e-5), log_bins=200)
+    ok = s.log_t < 3 * tau
+    expect = i0 * np.exp(-s.log_t[ok] / tau)
+    assert np.allclose(s.log_mid[ok], expect, rtol=0.01)
+    assert np.all(np.diff(s.log_t) > 0)
+
+
+def test_palette_is_okabe_ito():
+    # Okabe & Ito (2008), Color Universal Design: the eight published colours
+    assert set(F.OKABE_ITO.values()) == {
+        "#000000",
+        "#E69F00",
+        "#56B4E9",
+        "#009E73",
+        "#F0E442",
+        "#0072B2",
+        "#D55E00",
+        "#CC79A7",
+    }
+    cm = F.colour_map(["a", "b", "a", "c"])
+    assert list(cm) == ["a", "b", "c"] and len(set(cm.values())) == 3
+
+
+def test_dollar_in_names_does_not_break_matplotlib(tmp_path):
+    cm = F.colour_map(["$x$ meter", "m2"])
+    df = pd.DataFrame(
+        {
+            "mode": ["A"] * 4,
+            "volts": [1.0] * 4,
+            "meter": ["$x$ meter", "m2"] * 2,
+            "abs_peak_a": [1.0, 2.0, 1.5, 2.5],
+            "flagged": [False] * 4,
+        }
+    )
+    fig = F.fig_strip(df, "abs_peak_a", "A", "Peak", ["A"], cm, np.random.default_rng(0), "$t")
+    r = F.render(fig, "strip", tmp_path)
+    assert r.png.startswith(PNG_SIGNATURE) and Path(r.svg_path).exists()
