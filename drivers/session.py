@@ -18,8 +18,9 @@ Two pyvisa-py 0.8.1 details are handled here, measured on raw sockets:
 
 - ``Resource.clear()`` never returns once the peer has closed the socket (``select`` keeps
   reporting it readable while ``recv`` returns nothing). On a pyvisa-py socket the session
-  therefore drains the socket itself with the same rule as ``clear()`` (read until 0.1 s of
-  quiet) but stops at end-of-file and reports the lost link.
+  therefore drains the socket itself like ``clear()`` (read until a quiet spell; 0.25 s here
+  against 0.1 s there, to catch replies a little later) but stops at end-of-file and reports
+  the lost link.
 - A read after the peer closed spins until the full timeout. Before each exchange the session
   peeks at the socket (one non-blocking syscall) so a dropped link is found at once.
 Both use the pyvisa-py session object behind the resource when there is one, and fall back
@@ -70,7 +71,7 @@ _T = TypeVar("_T")
 _DTYPES = {"int8": "i1", "int16": "i2", "float32": "f4"}
 _ORDERS = {"big": ">", "little": "<"}
 _MAX_ERRORS_DRAINED = 64  # a queue that never empties must not hang the session
-_DRAIN_QUIET_S = 0.1  # pyvisa-py's clear() stops after this much silence, so do we
+_DRAIN_QUIET_S = 0.25  # silence that ends a drain (pyvisa-py's clear() waits 0.1 s)
 _MAX_RECV = 4 << 20  # receive size for block payloads (pyvisa-py's default is 4096)
 _ERROR_RE = re.compile(r'^\s*([+-]?\d+)\s*(?:,\s*"?(.*?)"?)?\s*$', re.DOTALL)
 _CONNECTION_CODES = {
@@ -358,6 +359,7 @@ class ScpiSession:
                         lost.__cause__ = exc
                         failure: ConnectionLost = lost
                     else:
+                        self._raise_if_refused(command, exc)
                         if repeatable and not retried_timeout:
                             retried_timeout = True
                             log.info(
@@ -381,6 +383,38 @@ class ScpiSession:
                         "link was lost and has been re-opened; the command was not repeated",
                     ) from failure
 
+    def _raise_if_refused(self, command: str, timeout: InstrumentTimeout) -> None:
+        """After a timeout: an instrument that refused a query queues an error and sends no
+        answer (IEEE 488.2 behaviour); report that error instead of asking again."""
+        cmd = self._profile.command("common", "next_error")
+        found: list[tuple[int, str]] = []
+        try:
+            with self._translate(cmd):
+                for _ in range(_MAX_ERRORS_DRAINED):
+                    code, message = parse_error_reply(self._do_query(cmd, None))
+                    if code == 0:
+                        break
+                    found.append((code, message))
+        except (InstrumentError, ValueError) as exc:
+            # no usable answer either: the original timeout is the better report
+            log.debug(
+                "%s: error queue unreadable after timeout: %s", self._name, exc, extra=self._extra
+            )
+            self._drain_quietly(command)
+            return
+        if found:
+            code, message = found[0]
+            err = ScpiError(self._name, command, code, message)
+            for other_code, other_message in found[1:]:
+                err.add_note(f'also queued: {other_code},"{other_message}"')
+            raise err from timeout
+
+    def _drain_quietly(self, command: str) -> None:
+        try:
+            self._drain(command)
+        except InstrumentError as exc:
+            log.debug("%s: drain: %s", self._name, exc, extra=self._extra)
+
     def _reconnect(self, command: str, done: int, failure: ConnectionLost) -> int:
         """Reopen until it works or the attempts run out; returns attempts used so far."""
         last: Exception = failure
@@ -388,8 +422,7 @@ class ScpiSession:
             done += 1
             wait = self._backoff_s * done
             log.warning(
-                "%s: %s; reconnect %d/%d in %.3g s",
-                self._name,
+                "%s; reconnect %d/%d in %.3g s",
                 last,
                 done,
                 self._reconnect_attempts,
