@@ -124,6 +124,7 @@ class StateSpace:
             self._lam, self._V, self._Vi = lam, V, np.linalg.inv(V)
         else:
             log.debug("eigenvectors ill-conditioned (cond %.3g): expm fallback", cond)
+        self._nonsingular = bool(Al.size) and bool(np.all(lam != 0))
         self._expm_cache: dict[float, tuple[np.ndarray, np.ndarray]] = {}
 
     def eigenvalues(self) -> np.ndarray:
@@ -151,9 +152,8 @@ class StateSpace:
             x[self.live] = xl
             return x
         if self.eig_ok:
-            x[self.live] = _eig_eval(
-                self._lam, self._V, self._Vi @ xl, self._Vi @ (self._Bl @ u), np.array([dt])
-            )[:, 0]
+            xs, z0, w = self._modal(xl, u)
+            x[self.live] = xs + _eig_eval(self._lam, self._V, z0, w, np.array([dt]))[:, 0]
         else:
             Phi, Gam = self._phi(dt)
             x[self.live] = Phi @ xl + Gam @ u
@@ -174,7 +174,8 @@ class StateSpace:
         y = (self.D @ u)[:, None] + np.zeros((n_out, t.size))
         if len(xl):
             if self.eig_ok:
-                y += _eig_eval(self._lam, Cl @ self._V, self._Vi @ xl, self._Vi @ (self._Bl @ u), t)
+                xs, z0, w = self._modal(xl, u)
+                y += (Cl @ xs)[:, None] + _eig_eval(self._lam, Cl @ self._V, z0, w, t)
             else:
                 y += Cl @ self._propagate(xl, u, t)
         if order is not None:
@@ -182,6 +183,23 @@ class StateSpace:
             out[:, order] = y
             return out
         return y
+
+    def _modal(self, xl: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(x_ss, z0, w): the solution is ``x_ss + V (exp(L t) z0 + expm1(L t)/L w)``.
+
+        With a nonsingular ``A`` the forced part is the steady state ``x_ss = -A^-1 B u``
+        from a direct solve and ``w = 0``: projecting ``B u`` on the eigenbasis instead would
+        multiply its rounding error by ``t`` in the slowest modes (seconds against
+        nanoseconds). A singular ``A`` (a conserved charge) keeps the ``expm1`` form.
+        """
+        bu = self._Bl @ u
+        if not np.any(bu):
+            return np.zeros_like(xl), self._Vi @ xl, np.zeros_like(xl, dtype=complex)
+        if self._nonsingular:
+            xs = np.linalg.solve(self._Al, -bu)
+            if np.all(np.isfinite(xs)):
+                return xs, self._Vi @ (xl - xs), np.zeros_like(xl, dtype=complex)
+        return np.zeros_like(xl), self._Vi @ xl, self._Vi @ bu
 
     # -- expm fallback -------------------------------------------------------------------
     def _phi(self, dt: float) -> tuple[np.ndarray, np.ndarray]:
@@ -504,7 +522,7 @@ class Circuit:
                 cx += s * Vx[self._ix[node]]
                 du += s * Vu[self._ix[node]]
             return cx, du
-        e = self._by_name.get(p.a)
+        e = self._by_name.get(p.a) or next((x for x in eff if x.name == p.a), None)
         if e is None:
             raise ValueError(f"output i({p.a}): unknown element")
         cx, du = np.zeros(nx), np.zeros(ni)
@@ -531,10 +549,21 @@ class Circuit:
         return diff(Vx) / e.value, diff(Vu) / e.value  # R or closed S
 
     # -- convenience -------------------------------------------------------------------------
-    def time_constants(self, closed: Iterable[str]) -> np.ndarray:
+    def time_constants(self, closed: Iterable[str], output: str | Probe | None = None) -> np.ndarray:
         """Time constants (s) of the network in configuration ``closed``, slowest first:
-        ``-1/Re(l)`` over the eigenvalues of ``A`` (inf for a conserved charge, l = 0)."""
-        lam = self.model(closed).eigenvalues()
+        ``-1/Re(l)`` over the eigenvalues ``l`` of ``A`` (inf for a conserved charge).
+
+        With ``output`` (e.g. ``"v(VIN)"``) only the modes that move that output are kept
+        (eigenvector component above 1e-3 of the largest): this drops, for instance, the
+        GMIN-set mode of a coupling capacitor whose far end a mode switch has left floating.
+        """
+        ss = self.model(closed, [output] if output is not None else [])
+        lam = ss.eigenvalues()
+        if output is not None:
+            if not ss.eig_ok:
+                raise ValueError("eigenvectors too ill-conditioned to select modes by output")
+            w = np.abs(ss.C[0, ss.live] @ ss._V)
+            lam = lam[w > 1e-3 * w.max()] if w.max() > 0 else lam[:0]
         re = -np.real(lam)
         with np.errstate(divide="ignore"):
             tau = np.where(re > 0, 1.0 / np.where(re > 0, re, 1.0), np.inf)

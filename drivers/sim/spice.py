@@ -151,10 +151,11 @@ def run_ngspice(
         )
         seconds = time.perf_counter() - t0
         out = Path(tmp) / "out.txt"
-        if proc.returncode != 0 or not out.exists():
-            tail = (proc.stderr or proc.stdout).strip().splitlines()[-5:]
-            raise RuntimeError(f"ngspice failed (exit {proc.returncode}): {' | '.join(tail)}")
-        data = np.loadtxt(out, skiprows=1, ndmin=2)
+        failed = proc.returncode != 0 or not out.exists() or "aborted" in proc.stderr
+        data = np.loadtxt(out, skiprows=1, ndmin=2) if not failed else np.zeros((0, 1))
+        if failed or data.shape[0] < 2 or data[-1, 0] < t_stop * (1 - 1e-6):
+            tail = " | ".join((proc.stderr or proc.stdout).strip().splitlines()[-3:])
+            raise RuntimeError(f"ngspice failed (exit {proc.returncode}): {tail}")
     names = tuple(_name(o) for o in outputs)
     log.debug("ngspice: %s points in %.3f s", data.shape[0], seconds)
     return SpiceResult(data[:, 0], data[:, 1:].T, names, deck, seconds)
