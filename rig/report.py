@@ -105,6 +105,8 @@ def _load_metrics(run: Path) -> pd.DataFrame:
         raise RunFolderError(f"{path} [{', '.join(missing)}]: column missing")
     flags = [c for c in FLAG_TEXT if c in df.columns]
     df = df.copy()
+    # charges are shown as magnitudes, as groups.csv summarises them (polarity is in its column)
+    df["charge_c"] = pd.to_numeric(df["charge_c"], errors="coerce").abs()
     df["flagged"] = df[flags].fillna(False).astype(bool).any(axis=1) if flags else False
     return df
 
@@ -277,6 +279,13 @@ def _section_tested(run: Path, man: dict[str, Any], m: pd.DataFrame) -> str:
     return "".join(parts)
 
 
+def _peak_metric(g: pd.DataFrame) -> str:
+    """The groups.csv metric of the peak's size: ``abs_peak_a`` if summarised, else ``peak_a``
+    (which rig.stats summarises by magnitude)."""
+    names = set(g["metric"].astype(str))
+    return "abs_peak_a" if "abs_peak_a" in names or "peak_a" not in names else "peak_a"
+
+
 def _main_load(m: pd.DataFrame) -> str:
     return str(m["load"].value_counts().index[0])
 
@@ -296,6 +305,7 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
     mz = _at_zero_delay(m[m["file"].notna()])
     gz = _at_zero_delay(g)
     meters = list(dict.fromkeys(mz["meter"]))
+    peak_metric = _peak_metric(g)
     rows = []
     for (mode, load), d in mz.groupby(["mode", "load"], sort=False):
         per = d.groupby("meter")["volts"].apply(set)
@@ -315,7 +325,7 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
                     & (gz["mode"] == mode)
                     & (gz["volts"] == v)
                     & (gz["load"] == load)
-                    & (gz["metric"] == metric)
+                    & (gz["metric"] == (peak_metric if metric == "abs_peak_a" else metric))
                 ]
                 lo = (
                     float(sel["median_ci_low"].iloc[0])
@@ -417,8 +427,13 @@ def _section_verdicts(g: pd.DataFrame) -> str:
                     )
                     for r in bad.itertuples()
                 )
+                worst = (
+                    "fail"
+                    if (bad["verdict"].str.lower() == "fail").any()
+                    else bad["verdict"].iloc[0]
+                )
                 cells.append(
-                    _verdict_cell(bad["verdict"].iloc[0])
+                    _verdict_cell(worst)
                     + f" <span class='n'>({len(bad)} of {len(dm)} checks)</span>"
                     + f"<br><small>{esc(what)}</small>"
                 )
@@ -438,6 +453,7 @@ def _section_verdicts(g: pd.DataFrame) -> str:
                     esc(eng(r.delay_s, "s")),
                     esc(metric_label(r.metric)),
                     esc(eng(getattr(r, "utl", np.nan), u)),
+                    esc(eng(getattr(r, "max", np.nan), u)),
                     esc(eng(getattr(r, "limit", np.nan), u)),
                     esc(
                         f"{100 * r.share_over_limit:.0f} %"
@@ -458,6 +474,7 @@ def _section_verdicts(g: pd.DataFrame) -> str:
                     "Delay",
                     "Metric",
                     "Upper tolerance bound",
+                    "Max",
                     "Limit",
                     "Events over limit",
                     "Verdict",
@@ -466,8 +483,9 @@ def _section_verdicts(g: pd.DataFrame) -> str:
             )
         )
     parts.append(
-        "<p class='n'>A check passes when the group's upper tolerance bound (utl) "
-        "stays at or below the limit.</p>"
+        "<p class='n'>A check passes when the statistic its limit names (the upper tolerance "
+        "bound unless the sequence chose another) is at or below the limit; “insufficient” "
+        "means too few captured events for a verdict.</p>"
     )
     return "".join(parts)
 
@@ -812,7 +830,7 @@ def write_report(
     gl = _at_zero_delay(g[g["load"].astype(str) == str(load)])
     fig = F.fig_vs_voltage(
         gl,
-        [("abs_peak_a", "|Peak current|", "A"), ("charge_c", "Charge", "C")],
+        [(_peak_metric(g), "|Peak current|", "A"), ("charge_c", "Charge", "C")],
         modes,
         colours,
         f"Against charge voltage · load {load}",

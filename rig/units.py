@@ -83,7 +83,7 @@ def axis_label(quantity: str, unit: str, prefix: str = "") -> str:
 # Metric columns of metrics.parquet / groups.csv: readable name and SI unit (DEVELOPERS.md,
 # "Analysis outputs"). Unknown metrics fall back to the unit suffix of the column name.
 _METRICS: dict[str, tuple[str, str]] = {
-    "peak_a": ("peak current (signed)", "A"),
+    "peak_a": ("peak current", "A"),
     "abs_peak_a": ("|peak current|", "A"),
     "t_peak_s": ("time of peak", "s"),
     "rise_s": ("rise time 10-90 %", "s"),

@@ -374,6 +374,11 @@ def _manifest(run_id, meters, volts, reps, note) -> dict[str, object]:
             "loads": [{"name": LOAD[0], "ohms": LOAD[1], "henry": 2e-7}],
             "repeats": reps,
             "operator_note": note,
+            # the fixture's own groups.csv applies the same limits (LIMITS)
+            "limits": [
+                {"metric": "peak_a", "max": LIMITS["abs_peak_a"], "statistic": "utl"},
+                {"metric": "charge_c", "max": LIMITS["charge_c"], "statistic": "utl"},
+            ],
         },
         "bench": {
             "name": "simulated bench (fictitious)",

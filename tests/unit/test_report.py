@@ -359,3 +359,22 @@ def test_dollar_in_names_does_not_break_matplotlib(tmp_path):
     fig = F.fig_strip(df, "abs_peak_a", "A", "Peak", ["A"], cm, np.random.default_rng(0), "$t")
     r = F.render(fig, "strip", tmp_path)
     assert r.png.startswith(PNG_SIGNATURE) and Path(r.svg_path).exists()
+
+
+def test_report_on_the_analysis_modules_output(tmp_path):
+    """The report reads what rig.analysis writes (peak summarised as ``peak_a`` by rig.stats,
+    verdicts including "insufficient"), not only the fixture's own tables."""
+    from rig.analysis import analyze_run
+
+    run = build_run(tmp_path, np.random.default_rng(5), reps=6)
+    analyze_run(run)
+    g = pd.read_csv(run / "groups.csv")
+    page = _parse(write_report(run).read_text(encoding="utf-8"))
+    assert page.sections == EXPECTED_SECTIONS
+    v = g["verdict"].dropna()
+    v = v[v != ""]
+    text = " ".join("".join(page.text).split())
+    assert f"{len(v)} group × metric checks against a limit:" in text
+    body = page.tables["glance"][1:]
+    assert len(body) == 3 and all("lower" in r[4] for r in body)
+    assert len(page.tables["groups"]) == 1 + len(g)
