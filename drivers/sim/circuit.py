@@ -549,7 +549,9 @@ class Circuit:
         return diff(Vx) / e.value, diff(Vu) / e.value  # R or closed S
 
     # -- convenience -------------------------------------------------------------------------
-    def time_constants(self, closed: Iterable[str], output: str | Probe | None = None) -> np.ndarray:
+    def time_constants(
+        self, closed: Iterable[str], output: str | Probe | None = None
+    ) -> np.ndarray:
         """Time constants (s) of the network in configuration ``closed``, slowest first:
         ``-1/Re(l)`` over the eigenvalues ``l`` of ``A`` (inf for a conserved charge).
 

@@ -27,7 +27,8 @@ had (later voltage changes are ignored until the output is commanded on again).
 Time: the world advances lazily to ``clock.now()`` whenever something is asked or changed.
 It keeps the segments (intervals between switching instants) of the last
 ``horizon_s`` seconds (default 60 s, at most ``max_segments``); ``scope_inputs`` can
-evaluate any time since the start of the oldest kept segment. Scope bandwidth poles are
+evaluate any time since the start of the oldest kept segment (and, until the first segment
+is dropped, times before the world was created, which read the initial quiet state). Scope bandwidth poles are
 extra exact states, carried across segments from the oldest kept segment (settled there).
 """
 
@@ -105,6 +106,7 @@ class BenchWorld:
         self._circuit = self._bench_circuit(self._netlist)
         t0 = clock.now()
         self._segments: list[_Segment] = []
+        self._pruned = False
         self._switch_times: list[float] = []
         self._history: list[tuple[float, dict[str, object]]] = []
         self._start_segment(t0, self._circuit.state_vector())
@@ -202,6 +204,7 @@ class BenchWorld:
             keep_from += 1
         if keep_from:
             del segs[:keep_from]
+            self._pruned = True
 
     def _state_at(self, t: float) -> np.ndarray:
         seg = self._segments[-1]
@@ -288,8 +291,8 @@ class BenchWorld:
         with self._lock:
             if volts is not None and not 0.0 <= volts <= cfg.supply_max_volts:
                 raise LimitError(f"supply volts {volts} outside 0..{cfg.supply_max_volts} V")
-            if amps is not None and not 0.0 < amps <= cfg.supply_max_amps:
-                raise LimitError(f"supply amps {amps} outside (0, {cfg.supply_max_amps}] A")
+            if amps is not None and not 0.0 <= amps <= cfg.supply_max_amps:
+                raise LimitError(f"supply amps {amps} outside 0..{cfg.supply_max_amps} A")
             t = self._now()
             if output is False and self._out_cmd and cfg.faults.supply_stuck_on:
                 self._latched_volts = self._volts
@@ -406,7 +409,7 @@ class BenchWorld:
             if t.max() > now + 1e-9:
                 raise ValueError(f"scope_inputs: time {t.max()} is after now ({now})")
             segs = self._segments
-            if t.min() < segs[0].t0:
+            if t.min() < segs[0].t0 and self._pruned:
                 raise ValueError(
                     f"scope_inputs: time {t.min()} is before the kept history ({segs[0].t0})"
                 )
@@ -414,6 +417,8 @@ class BenchWorld:
             if not probes:
                 return out
             starts = np.array([s.t0 for s in segs])
+            # before the world existed: the initial (quiet, discharged) state held
+            t = np.maximum(t, segs[0].t0)
             idx = np.searchsorted(starts, t, side="right") - 1
             first = int(idx.min())
             xf = self._filter_state(first, probes)

@@ -189,8 +189,15 @@ def test_modes_connect_and_errors(tmp_path: Path) -> None:
     bad.write_text(ONE_CAP.replace("farads = 1e-6", "farads = -1"))
     with pytest.raises(FileFormatError, match=r"bad.toml \[element.C_in.farads\]"):
         w.meter_connect(str(bad))
+    # before the world existed: the initial quiet state
+    assert np.abs(w.scope_inputs(np.array([0.0, 50.0]), [None, None])).max() < 1e-12
+    short = BenchWorld(WorldConfig(DEMO_A), clk, horizon_s=0.5)
+    for _ in range(3):
+        short.relay_set([3], True)
+        clk.sleep(0.4)
+        short.relay_set([3], False)
     with pytest.raises(ValueError, match="before the kept history"):
-        w.scope_inputs(np.array([0.0]), [None])
+        short.scope_inputs(np.array([clk.now() - 2.0]), [None])
     with pytest.raises(ValueError, match="after now"):
         w.scope_inputs(np.array([clk.now() + 1.0]), [None])
 
