@@ -1,0 +1,208 @@
+"""A run against a baseline run: per group and metric, is it the same, different, or unclear?
+
+Groups are matched on (meter, mode, volts, load, delay_s): the serial is left out, since a
+repaired meter is compared with the baseline run of its model, often another unit (the
+serials of both sides are listed). Per group and metric (magnitudes; default peak_a, charge_c,
+energy_j):
+
+- ratio of medians (run / baseline) with a percentile-bootstrap interval (seeded);
+- Mann-Whitney U rank test, two-sided (scipy.stats.mannwhitneyu);
+- equivalence by two one-sided Welch t tests (TOST) on the log values: the ratio of the
+  geometric means lies within [1 - tolerance, 1 + tolerance];
+- verdict: "equivalent" when TOST rejects non-equivalence at level 1 - confidence,
+  else "different" when the rank test rejects equality at that level, else "inconclusive".
+  A group in one run only is "only in run" or "only in baseline".
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from collections.abc import Sequence
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy import stats as sps
+
+from drivers.errors import RunFolderError
+from rig.stats import bootstrap_ci
+from rig.store import read_manifest
+
+__all__ = [
+    "COMPARE_COLUMNS",
+    "COMPARE_KEYS",
+    "all_equivalent",
+    "compare_runs",
+    "compare_samples",
+    "tost_log",
+    "write_comparison",
+]
+
+log = logging.getLogger(__name__)
+
+COMPARE_KEYS: tuple[str, ...] = ("meter", "mode", "volts", "load", "delay_s")
+COMPARE_COLUMNS: tuple[str, ...] = (
+    "meter", "mode", "volts", "load", "delay_s", "metric", "serials_run", "serials_baseline",
+    "n_run", "n_baseline", "median_run", "median_baseline", "ratio", "ratio_ci_low",
+    "ratio_ci_high", "mw_u", "mw_p", "tost_p", "tolerance", "verdict",
+)  # fmt: skip
+DEFAULT_METRICS: tuple[str, ...] = ("peak_a", "charge_c", "energy_j")
+
+
+def tost_log(run: np.ndarray, base: np.ndarray, tolerance: float = 0.10) -> float:
+    """p-value of the two one-sided Welch t tests that the geometric-mean ratio run/base lies
+    within [1 - tolerance, 1 + tolerance] (the larger of the two one-sided p-values).
+
+    Values must be positive; NaN with fewer than two values on either side.
+    """
+    a, b = np.log(np.asarray(run, float)), np.log(np.asarray(base, float))
+    if a.size < 2 or b.size < 2:
+        return math.nan
+    lo, hi = math.log(1.0 - tolerance), math.log(1.0 + tolerance)
+    p_lower = sps.ttest_ind(a - lo, b, equal_var=False, alternative="greater").pvalue
+    p_upper = sps.ttest_ind(a - hi, b, equal_var=False, alternative="less").pvalue
+    return float(max(p_lower, p_upper))
+
+
+def _ratio_of_medians(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    return np.median(a, axis=-1) / np.median(b, axis=-1)
+
+
+def compare_samples(
+    run: np.ndarray,
+    base: np.ndarray,
+    *,
+    tolerance: float = 0.10,
+    confidence: float = 0.95,
+    rng: np.random.Generator,
+    n_boot: int = 2000,
+) -> dict[str, float | str]:
+    """Ratio of medians with its bootstrap interval, rank test, TOST and verdict for two
+    samples of one metric (positive values; non-finite and non-positive ones are dropped)."""
+    a = np.asarray(run, float)
+    b = np.asarray(base, float)
+    a, b = a[np.isfinite(a) & (a > 0)], b[np.isfinite(b) & (b > 0)]
+    nan = math.nan
+    out: dict[str, float | str] = {"n_run": a.size, "n_baseline": b.size,
+                                   "median_run": nan, "median_baseline": nan, "ratio": nan,
+                                   "ratio_ci_low": nan, "ratio_ci_high": nan, "mw_u": nan,
+                                   "mw_p": nan, "tost_p": nan, "tolerance": tolerance,
+                                   "verdict": "inconclusive"}  # fmt: skip
+    if a.size == 0 or b.size == 0:
+        return out
+    out["median_run"], out["median_baseline"] = float(np.median(a)), float(np.median(b))
+    out["ratio"] = out["median_run"] / out["median_baseline"]
+    lo, hi = bootstrap_ci([a, b], _ratio_of_medians, confidence=confidence,
+                          n_resamples=n_boot, rng=rng)  # fmt: skip
+    out["ratio_ci_low"], out["ratio_ci_high"] = lo, hi
+    mw = sps.mannwhitneyu(a, b, alternative="two-sided")
+    out["mw_u"], out["mw_p"] = float(mw.statistic), float(mw.pvalue)
+    out["tost_p"] = tost_log(a, b, tolerance)
+    alpha = 1.0 - confidence
+    if out["tost_p"] < alpha:
+        out["verdict"] = "equivalent"
+    elif out["mw_p"] < alpha:
+        out["verdict"] = "different"
+    return out
+
+
+def _load_metrics(run_dir: Path) -> pd.DataFrame:
+    path = run_dir / "metrics.parquet"
+    if path.exists():
+        return pd.read_parquet(path)
+    from rig.analysis import compute_metrics
+
+    log.info("%s is not analysed; computing its metrics in memory", run_dir)
+    return compute_metrics(run_dir)
+
+
+def _serials(frame: pd.DataFrame) -> str:
+    if "serial" not in frame:
+        return ""
+    return "+".join(sorted({str(s) for s in frame["serial"].dropna()}))
+
+
+def compare_runs(
+    run_dir: str | Path,
+    baseline_dir: str | Path,
+    tolerance: float = 0.10,
+    metrics: Sequence[str] = DEFAULT_METRICS,
+    *,
+    confidence: float = 0.95,
+    seed: int = 0,
+    n_boot: int = 2000,
+) -> pd.DataFrame:
+    """Compare a run with a baseline run, group by group (columns COMPARE_COLUMNS).
+
+    tolerance: equivalence margin on the ratio (0.10: within -10 % .. +10 %).
+    metrics: metric columns to compare (by magnitude). seed: bootstrap generator seed.
+    """
+    run_dir, baseline_dir = Path(run_dir), Path(baseline_dir)
+    if not 0 < tolerance < 1:
+        raise ValueError(f"tolerance must lie between 0 and 1, got {tolerance!r}")
+    run, base = _load_metrics(run_dir), _load_metrics(baseline_dir)
+    for name, frame, where in ((m, f, d) for m in metrics for f, d in
+                               ((run, run_dir), (base, baseline_dir))):  # fmt: skip
+        if name not in frame:
+            raise RunFolderError(f"{where / 'metrics.parquet'} [{name}]: no such metric column")
+    rng = np.random.default_rng(seed)
+    keys = list(COMPARE_KEYS)
+    for frame in (run, base):
+        for k in keys:
+            if k not in frame:
+                frame[k] = None
+    groups_run = {k: g for k, g in run.groupby(keys, dropna=False, sort=True)}
+    groups_base = {k: g for k, g in base.groupby(keys, dropna=False, sort=True)}
+    rows = []
+    for key in sorted(set(groups_run) | set(groups_base), key=lambda k: tuple(map(str, k))):
+        gr, gb = groups_run.get(key), groups_base.get(key)
+        for name in metrics:
+            row = dict(zip(keys, key, strict=True))
+            row["metric"] = name
+            row["serials_run"] = _serials(gr) if gr is not None else ""
+            row["serials_baseline"] = _serials(gb) if gb is not None else ""
+            if gr is None or gb is None:
+                n_run = _n(gr, name)
+                n_base = _n(gb, name)
+                row.update(n_run=n_run, n_baseline=n_base, tolerance=tolerance,
+                           verdict="only in baseline" if gr is None else "only in run")  # fmt: skip
+            else:
+                a = np.abs(pd.to_numeric(gr[name], errors="coerce").to_numpy(float))
+                b = np.abs(pd.to_numeric(gb[name], errors="coerce").to_numpy(float))
+                row.update(compare_samples(a, b, tolerance=tolerance, confidence=confidence,
+                                           rng=rng, n_boot=n_boot))  # fmt: skip
+            rows.append(row)
+    out = pd.DataFrame(rows, columns=list(COMPARE_COLUMNS))
+    log.info("compared %s with %s: %s rows", run_dir, baseline_dir, len(out))
+    return out
+
+
+def _n(frame: pd.DataFrame | None, name: str) -> int:
+    if frame is None:
+        return 0
+    v = pd.to_numeric(frame[name], errors="coerce").to_numpy(float)
+    return int((np.isfinite(v) & (v != 0)).sum())
+
+
+def _run_id(run_dir: Path) -> str:
+    try:
+        manifest = read_manifest(run_dir)
+    except RunFolderError:
+        return run_dir.name
+    rid = manifest.get("run_id") or manifest.get("id")
+    return str(rid) if rid else run_dir.resolve().name
+
+
+def write_comparison(df: pd.DataFrame, run_dir: str | Path, baseline_dir: str | Path) -> Path:
+    """Write a comparison (from :func:`compare_runs`) as ``compare-<baseline-run-id>.csv``
+    into the run folder; returns its path."""
+    path = Path(run_dir) / f"compare-{_run_id(Path(baseline_dir))}.csv"
+    df.to_csv(path, index=False)
+    log.info("wrote %s", path)
+    return path
+
+
+def all_equivalent(df: pd.DataFrame) -> bool:
+    """True when the comparison has rows and every verdict is "equivalent"."""
+    return bool(len(df)) and bool((df["verdict"] == "equivalent").all())

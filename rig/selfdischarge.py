@@ -1,0 +1,157 @@
+"""Delay sweeps: how fast a meter's input loses its charge by itself, and when it is safe.
+
+When a sequence sweeps the delay between the end of charging and the discharge, each group
+(meter, serial, mode, volts, load) gives the discharged charge Q against the delay d. A
+self-discharging input follows Q(d) = Q0 exp(-d / tau), so log |Q| is linear in d: an
+ordinary least-squares line through all captured events gives tau = -1 / slope with a
+t-based confidence interval on the slope (textbook regression; REFERENCES.md section 6 for
+the exponential discharge).
+
+The safe threshold is, by default, the charge that would hold the input at the safe residual
+voltage: Q_safe = C_equiv(delay 0) x safe_residual_volts, with C_equiv the median equivalent
+capacitance of the events at delay 0 (or, without such events, the fit's Q0 over the charge
+voltage). The delay to safe is tau x ln(Q0 / Q_safe), zero when Q0 is already below it.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+
+import numpy as np
+import pandas as pd
+from scipy import stats as sps
+
+__all__ = [
+    "DEFAULT_SAFE_VOLTS",
+    "SELFDISCHARGE_COLUMNS",
+    "SweepFit",
+    "delay_curve",
+    "fit_self_discharge",
+    "has_delay_sweep",
+    "self_discharge",
+]
+
+log = logging.getLogger(__name__)
+
+#: Default safe residual, V d.c.: the hazardous-live d.c. level of IEC 61010-1 (earlier
+#: editions; edition 3 uses 70 V), REFERENCES.md section 3 [T].
+DEFAULT_SAFE_VOLTS = 60.0
+SWEEP_KEYS: tuple[str, ...] = ("meter", "serial", "mode", "volts", "load")
+SELFDISCHARGE_COLUMNS: tuple[str, ...] = (
+    "meter", "serial", "mode", "volts", "load", "tau_s", "tau_ci_low", "tau_ci_high",
+    "safe_charge_c", "delay_to_safe_s", "n_delays",
+)  # fmt: skip
+
+
+class SweepFit(tuple):
+    """(tau_s, tau_ci_low, tau_ci_high, q0_c): fitted time constant, its interval, Q at 0 s."""
+
+    __slots__ = ()
+
+    def __new__(cls, tau: float, lo: float, hi: float, q0: float) -> SweepFit:
+        return super().__new__(cls, (tau, lo, hi, q0))
+
+    tau_s = property(lambda self: self[0])
+    tau_ci_low = property(lambda self: self[1])
+    tau_ci_high = property(lambda self: self[2])
+    q0_c = property(lambda self: self[3])
+
+
+def fit_self_discharge(
+    delay_s: np.ndarray, charge_c: np.ndarray, *, confidence: float = 0.95
+) -> SweepFit:
+    """Fit |Q| = Q0 exp(-d / tau) by least squares on log |Q| (seconds, coulombs).
+
+    The interval maps the slope's t interval through tau = -1 / slope; where the interval of
+    the slope reaches zero or above, the upper end of tau is +inf (no decay is excluded).
+    Needs at least two distinct delays and three positive charges, else all NaN.
+    """
+    d = np.asarray(delay_s, dtype=float)
+    q = np.abs(np.asarray(charge_c, dtype=float))
+    use = np.isfinite(d) & np.isfinite(q) & (q > 0)
+    d, q = d[use], q[use]
+    nan = math.nan
+    if d.size < 3 or np.unique(d).size < 2:
+        return SweepFit(nan, nan, nan, nan)
+    y = np.log(q)
+    dm = d.mean()
+    sxx = float(((d - dm) ** 2).sum())
+    slope = float(((d - dm) * (y - y.mean())).sum() / sxx)
+    icpt = float(y.mean() - slope * dm)
+    resid = y - (icpt + slope * d)
+    dof = d.size - 2
+    se = math.sqrt(float((resid**2).sum()) / dof / sxx) if dof > 0 else nan
+    tq = float(sps.t.ppf(0.5 + confidence / 2.0, dof)) if dof > 0 else nan
+    s_lo, s_hi = slope - tq * se, slope + tq * se
+    tau = -1.0 / slope if slope < 0 else math.inf
+    tau_lo = -1.0 / s_lo if s_lo < 0 else math.inf
+    tau_hi = -1.0 / s_hi if s_hi < 0 else math.inf
+    return SweepFit(tau, tau_lo, tau_hi, math.exp(icpt))
+
+
+def has_delay_sweep(metrics: pd.DataFrame) -> bool:
+    """True when some (meter, serial, mode, volts, load) was run at more than one delay."""
+    if "delay_s" not in metrics:
+        return False
+    frame = metrics[[*SWEEP_KEYS, "delay_s"]].astype(str)
+    return bool((frame.groupby(list(SWEEP_KEYS))["delay_s"].nunique() > 1).any())
+
+
+def _captured(metrics: pd.DataFrame) -> pd.DataFrame:
+    keep = ~metrics["flag_not_captured"].astype(bool)
+    return metrics.loc[keep]
+
+
+def delay_curve(metrics: pd.DataFrame) -> pd.DataFrame:
+    """Per sweep group and delay: events, median charge (magnitude, C) and median peak
+    current (magnitude, A); for figures of charge and peak against delay."""
+    m = _captured(metrics).copy()
+    m["abs_charge_c"] = m["charge_c"].abs()
+    m["abs_peak"] = m["peak_a"].abs()
+    g = m.groupby([*SWEEP_KEYS, "delay_s"], dropna=False, sort=True)
+    out = g.agg(n=("charge_c", "size"), charge_c=("abs_charge_c", "median"),
+                peak_a=("abs_peak", "median")).reset_index()  # fmt: skip
+    return out
+
+
+def self_discharge(
+    metrics: pd.DataFrame,
+    *,
+    safe_residual_volts: float = DEFAULT_SAFE_VOLTS,
+    safe_charge_c: float | None = None,
+    confidence: float = 0.95,
+) -> pd.DataFrame:
+    """selfdischarge.csv (columns SELFDISCHARGE_COLUMNS) for every group with >= 2 delays.
+
+    safe_residual_volts: residual voltage counted as safe, V (sets Q_safe per group).
+    safe_charge_c: a fixed threshold in coulombs instead (e.g. 45e-6, IEC 61010-1).
+    """
+    m = _captured(metrics)
+    rows = []
+    for key, grp in m.groupby(list(SWEEP_KEYS), dropna=False, sort=True):
+        delays = pd.to_numeric(grp["delay_s"], errors="coerce").to_numpy(float)
+        n_delays = int(np.unique(delays[np.isfinite(delays)]).size)
+        if n_delays < 2:
+            continue
+        q = grp["charge_c"].to_numpy(float)
+        fit = fit_self_discharge(delays, q, confidence=confidence)
+        if safe_charge_c is not None:
+            q_safe = float(safe_charge_c)
+        else:
+            at0 = pd.to_numeric(grp.loc[delays == 0, "c_equiv_f"], errors="coerce")
+            c0 = float(np.nanmedian(at0)) if at0.notna().any() else math.nan
+            if not np.isfinite(c0):
+                volts = float(key[SWEEP_KEYS.index("volts")])
+                c0 = fit.q0_c / volts if volts > 0 else math.nan
+            q_safe = c0 * safe_residual_volts
+        if np.isfinite(fit.q0_c) and q_safe > 0:
+            delay = max(0.0, fit.tau_s * math.log(fit.q0_c / q_safe)) if fit.q0_c > q_safe else 0.0
+        else:
+            delay = math.nan
+        rows.append({**dict(zip(SWEEP_KEYS, key, strict=True)), "tau_s": fit.tau_s,
+                     "tau_ci_low": fit.tau_ci_low, "tau_ci_high": fit.tau_ci_high,
+                     "safe_charge_c": q_safe, "delay_to_safe_s": delay,
+                     "n_delays": n_delays})  # fmt: skip
+    log.info("self-discharge fitted for %s group(s)", len(rows))
+    return pd.DataFrame(rows, columns=list(SELFDISCHARGE_COLUMNS))

@@ -1,0 +1,264 @@
+"""Per-group statistics of event metrics, normal tolerance bounds and verdicts against limits.
+
+A group is one (meter, serial, mode, volts, load, delay_s). For each group and metric the
+long-format table ``groups.csv`` (DEVELOPERS.md) holds the counts, mean, standard deviation,
+median with a seeded percentile-bootstrap confidence interval, 95th and 99th percentiles,
+maximum, the one-sided normal upper tolerance bound (UTL), and, for every limit that applies
+to the group, the share of events over the limit and a verdict.
+
+Signed metrics (``peak_a``, ``charge_c``) are summarised by magnitude: a limit on the peak
+current or the charge is a limit on its size, whatever the polarity.
+
+Tolerance factor (NIST/SEMATECH e-Handbook of Statistical Methods, 7.2.6.3): with N values,
+mean m and standard deviation s, at least a fraction ``coverage`` of the population lies below
+m + k1 s with confidence ``confidence``, where exactly
+k1 = nct.ppf(confidence, N - 1, z_p sqrt(N)) / sqrt(N) (noncentral t), z_p = Phi^-1(coverage).
+The approximate form is kept for comparison with published tables.
+
+Verdicts: a limit {metric, max, statistic, modes, volts, loads} passes when the chosen
+statistic (utl by default, or max, p99, p95, median, mean) is at or below ``max``; with fewer
+than ``min_events`` finite values the verdict is "insufficient".
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats as sps
+
+from drivers.errors import FileFormatError
+
+__all__ = [
+    "DEFAULT_METRICS",
+    "GROUP_KEYS",
+    "GROUPS_COLUMNS",
+    "STATISTICS",
+    "bootstrap_ci",
+    "group_stats",
+    "limits_from_manifest",
+    "tolerance_factor",
+    "tolerance_factor_approx",
+    "upper_tolerance_bound",
+]
+
+log = logging.getLogger(__name__)
+
+GROUP_KEYS: tuple[str, ...] = ("meter", "serial", "mode", "volts", "load", "delay_s")
+GROUPS_COLUMNS: tuple[str, ...] = (
+    "meter", "serial", "mode", "volts", "load", "delay_s", "metric", "n_planned",
+    "n_captured", "mean", "std", "median", "median_ci_low", "median_ci_high", "p95", "p99",
+    "max", "utl", "utl_confidence", "utl_coverage", "limit", "share_over_limit", "verdict",
+)  # fmt: skip
+DEFAULT_METRICS: tuple[str, ...] = (
+    "peak_a", "charge_c", "energy_j", "rise_s", "decay_s", "tau_s", "fwhm_s", "pulses",
+    "c_equiv_f", "r_equiv_ohm", "ind_hbm_volts", "ind_iec61010_charge_ratio",
+)  # fmt: skip
+SIGNED = frozenset({"peak_a", "charge_c"})
+STATISTICS = ("utl", "max", "p99", "p95", "median", "mean")
+MIN_EVENTS = 5
+
+
+def tolerance_factor(n: int, coverage: float = 0.99, confidence: float = 0.95) -> float:
+    """Exact one-sided normal tolerance factor k1 (noncentral t); NaN for n < 2."""
+    if n < 2:
+        return math.nan
+    zp = sps.norm.ppf(coverage)
+    return float(sps.nct.ppf(confidence, n - 1, zp * math.sqrt(n)) / math.sqrt(n))
+
+
+def tolerance_factor_approx(n: int, coverage: float = 0.99, confidence: float = 0.95) -> float:
+    """Approximate one-sided factor k1 = (z_p + sqrt(z_p^2 - a b)) / a (NIST 7.2.6.3)."""
+    if n < 2:
+        return math.nan
+    zp, zg = sps.norm.ppf(coverage), sps.norm.ppf(confidence)
+    a = 1.0 - zg**2 / (2.0 * (n - 1))
+    b = zp**2 - zg**2 / n
+    return float((zp + math.sqrt(zp**2 - a * b)) / a)
+
+
+def upper_tolerance_bound(
+    values: np.ndarray, coverage: float = 0.99, confidence: float = 0.95
+) -> float:
+    """mean + k1 x std (ddof 1) of the finite values, same unit as the values."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    if v.size < 2:
+        return math.nan
+    return float(v.mean() + tolerance_factor(v.size, coverage, confidence) * v.std(ddof=1))
+
+
+def bootstrap_ci(
+    samples: Sequence[np.ndarray],
+    statistic: Any,
+    *,
+    confidence: float = 0.95,
+    n_resamples: int = 2000,
+    rng: np.random.Generator,
+) -> tuple[float, float]:
+    """Percentile bootstrap interval of ``statistic(*samples)``.
+
+    Each sample is resampled with replacement independently, all resamples at once;
+    ``statistic`` takes arrays of shape (n_resamples, n_i) and reduces along axis -1.
+    """
+    arrays = [np.asarray(s, dtype=float) for s in samples]
+    if any(a.size == 0 for a in arrays):
+        return math.nan, math.nan
+    res = [a[rng.integers(0, a.size, size=(n_resamples, a.size))] for a in arrays]
+    dist = np.asarray(statistic(*res), dtype=float)
+    alpha = 1.0 - confidence
+    lo, hi = np.quantile(dist, [alpha / 2.0, 1.0 - alpha / 2.0])
+    return float(lo), float(hi)
+
+
+def _median(x: np.ndarray) -> np.ndarray:
+    return np.median(x, axis=-1)
+
+
+def limits_from_manifest(manifest: Mapping[str, Any], source: str | Path = "manifest.json"):
+    """The limits of the run's resolved sequence (``manifest["sequence"]["limits"]``, else a
+    top-level ``limits``), validated: a list of dicts with ``metric``, ``max``, ``statistic``
+    (default utl) and optional ``modes``, ``volts``, ``loads`` lists (None: all)."""
+    seq = manifest.get("sequence")
+    raw = seq.get("limits") if isinstance(seq, Mapping) else None
+    if raw is None:
+        raw = manifest.get("limits")
+    if raw is None:
+        return []
+    if not isinstance(raw, list):
+        raise FileFormatError(source, "limits", "must be a list of tables")
+    out = []
+    for i, lim in enumerate(raw):
+        key = f"limits[{i}]"
+        if not isinstance(lim, Mapping):
+            raise FileFormatError(source, key, "must be a table")
+        if not isinstance(lim.get("metric"), str):
+            raise FileFormatError(source, f"{key}.metric", "missing or not a string")
+        try:
+            value = float(lim["max"])
+        except (KeyError, TypeError, ValueError):
+            raise FileFormatError(source, f"{key}.max", "missing or not a number") from None
+        stat = lim.get("statistic", "utl")
+        if stat not in STATISTICS:
+            raise FileFormatError(source, f"{key}.statistic",
+                                  f"{stat!r} is not one of {', '.join(STATISTICS)}")  # fmt: skip
+        entry = {"metric": lim["metric"], "max": value, "statistic": stat}
+        for sel in ("modes", "volts", "loads"):
+            v = lim.get(sel)
+            if v is not None and not isinstance(v, list):
+                raise FileFormatError(source, f"{key}.{sel}", "must be a list")
+            entry[sel] = v or None
+        out.append(entry)
+    return out
+
+
+def _applies(limit: Mapping[str, Any], mode: Any, volts: Any, load: Any) -> bool:
+    if limit.get("modes") and mode not in limit["modes"]:
+        return False
+    if limit.get("loads") and load not in limit["loads"]:
+        return False
+    if limit.get("volts"):
+        return any(math.isclose(float(volts), float(v), rel_tol=1e-9) for v in limit["volts"])
+    return True
+
+
+def _key(row: Mapping[str, Any]) -> tuple:
+    return tuple(row.get(k) for k in GROUP_KEYS)
+
+
+def _summary(v: np.ndarray, confidence: float, coverage: float, rng: np.random.Generator,
+             n_boot: int) -> dict[str, float]:  # fmt: skip
+    nan = math.nan
+    if v.size == 0:
+        return dict(mean=nan, std=nan, median=nan, median_ci_low=nan, median_ci_high=nan,
+                    p95=nan, p99=nan, max=nan, utl=nan)  # fmt: skip
+    lo, hi = bootstrap_ci([v], _median, confidence=confidence, n_resamples=n_boot, rng=rng)
+    return {
+        "mean": float(v.mean()),
+        "std": float(v.std(ddof=1)) if v.size > 1 else nan,
+        "median": float(np.median(v)),
+        "median_ci_low": lo,
+        "median_ci_high": hi,
+        "p95": float(np.percentile(v, 95)),
+        "p99": float(np.percentile(v, 99)),
+        "max": float(v.max()),
+        "utl": upper_tolerance_bound(v, coverage, confidence),
+    }
+
+
+def group_stats(
+    metrics: pd.DataFrame,
+    plan: Iterable[Mapping[str, Any]] | None,
+    limits: Sequence[Mapping[str, Any]] = (),
+    *,
+    confidence: float = 0.95,
+    coverage: float = 0.99,
+    metric_names: Sequence[str] = DEFAULT_METRICS,
+    rng: np.random.Generator,
+    n_boot: int = 2000,
+    min_events: int = MIN_EVENTS,
+) -> pd.DataFrame:
+    """The long-format group table (columns GROUPS_COLUMNS) of an analysed run.
+
+    metrics: journal plus metric columns (rig.analysis.compute_metrics).
+    plan: planned events (dicts with the group keys); None counts the journal's rows.
+    limits: as returned by limits_from_manifest. A metric named only by a limit is added.
+    rng: generator for the bootstrap (pass a seeded one for reproducible intervals).
+    """
+    names = list(metric_names) + [
+        lim["metric"] for lim in limits if lim["metric"] not in metric_names
+    ]
+    missing = [m for m in names if m not in metrics.columns]
+    if missing:
+        raise KeyError(f"metrics table lacks column(s) {', '.join(missing)} named by a limit")
+    planned: dict[tuple, int] = {}
+    for row in plan if plan is not None else metrics.to_dict("records"):
+        planned[_key(row)] = planned.get(_key(row), 0) + 1
+    captured = ~metrics["flag_not_captured"].astype(bool)
+    keys = list(GROUP_KEYS)
+    frame = metrics.copy()
+    for k in keys:  # groupby drops None keys; keep them as a visible value
+        if k not in frame:
+            frame[k] = None
+    rows = []
+    for gkey, grp in frame.groupby(keys, sort=True, dropna=False):
+        gdict = dict(zip(keys, gkey, strict=True))
+        lookup = tuple(None if _isnan(v) else v for v in gkey)
+        n_planned = planned.get(lookup, planned.get(gkey, len(grp)))
+        n_captured = int(captured[grp.index].sum())
+        for name in names:
+            v = pd.to_numeric(grp.loc[captured[grp.index], name], errors="coerce").to_numpy(float)
+            v = v[np.isfinite(v)]
+            if name in SIGNED:
+                v = np.abs(v)
+            summ = _summary(v, confidence, coverage, rng, n_boot)
+            base = {**gdict, "metric": name, "n_planned": n_planned, "n_captured": n_captured,
+                    **summ, "utl_confidence": confidence, "utl_coverage": coverage}  # fmt: skip
+            applicable = [
+                lim for lim in limits
+                if lim["metric"] == name
+                and _applies(lim, gdict["mode"], gdict["volts"], gdict["load"])
+            ]  # fmt: skip
+            if not applicable:
+                rows.append({**base, "limit": math.nan, "share_over_limit": math.nan,
+                             "verdict": ""})  # fmt: skip
+            for lim in applicable:
+                share = float(np.mean(v > lim["max"])) if v.size else math.nan
+                if v.size < min_events or not np.isfinite(summ[lim["statistic"]]):
+                    verdict = "insufficient"
+                else:
+                    verdict = "pass" if summ[lim["statistic"]] <= lim["max"] else "fail"
+                rows.append({**base, "limit": lim["max"], "share_over_limit": share,
+                             "verdict": verdict})  # fmt: skip
+    out = pd.DataFrame(rows, columns=list(GROUPS_COLUMNS))
+    log.info("%s group x metric rows, %s verdicts", len(out), int((out["verdict"] != "").sum()))
+    return out
+
+
+def _isnan(v: Any) -> bool:
+    return isinstance(v, float) and math.isnan(v)
