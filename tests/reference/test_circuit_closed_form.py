@@ -133,3 +133,23 @@ def test_energy_balance_full_discharge(mode: str) -> None:
         for a, b in ((0, 200_001), (200_000, 400_001), (400_000, t.size))
     ]
     assert sum(parts) == pytest.approx(stored, rel=1e-3)
+
+
+def test_floating_capacitor_gets_documented_stray() -> None:
+    # a capacitor with no capacitive path to ground (a coupling capacitor between two
+    # resistors) is solved with the documented 1 pF strays; it still discharges as a
+    # textbook RC through R1 + R2 (REFERENCES.md section 6, [T]) within 0.1 %
+    c, r1, r2, v0 = 100e-9, 1e3, 2e3, 500.0
+    circ = Circuit(
+        [
+            Element("C1", "C", "a", "b", c),
+            Element("R1", "R", "a", "0", r1),
+            Element("R2", "R", "b", "0", r2),
+        ]
+    )
+    assert {e.name for e in circ.effective_elements([])} >= {"Cstray:a", "Cstray:b"}
+    tau = (r1 + r2) * c
+    t = np.linspace(1e-6, 10 * tau, 2001)
+    tr = circ.simulate([Step(0.0)], t, {"v(a)": v0 / 3, "v(b)": -2 * v0 / 3}, ["i(R1)"])
+    np.testing.assert_allclose(tr["i(R1)"], v0 / (r1 + r2) * np.exp(-t / tau), rtol=1e-3)
+    assert circ.time_constants([])[0] == pytest.approx(tau, rel=1e-3)
