@@ -267,3 +267,38 @@ def test_netlist_errors_name_file_and_key(tmp_path: Path) -> None:
     )
     with pytest.raises(FileFormatError, match=r"element.S1.closed_in.*unknown mode 'Ohms'"):
         parse_netlist(sw, "m.toml")
+
+
+def test_thread_safe_under_concurrent_calls() -> None:
+    import threading
+
+    w, clk = _world()
+    errors: list[BaseException] = []
+
+    def relays() -> None:
+        try:
+            for _ in range(50):
+                w.relay_set([2], True)
+                clk.sleep(1e-4)
+                w.relay_set([2], False)
+        except BaseException as exc:  # pragma: no cover - reported below
+            errors.append(exc)
+
+    def readers() -> None:
+        try:
+            for _ in range(50):
+                now = clk.now()
+                w.scope_inputs(now - np.linspace(0, 1e-4, 64), [100e6, None])
+                w.supply_measure()
+                w.switching_times(0.0, now)
+        except BaseException as exc:  # pragma: no cover - reported below
+            errors.append(exc)
+
+    threads = [threading.Thread(target=f) for f in (relays, readers, readers)]
+    for th in threads:
+        th.start()
+    for th in threads:
+        th.join()
+    assert not errors
+    times = [t for t, _ in w.history()]
+    assert times == sorted(times)
