@@ -492,16 +492,21 @@ class SimScope(ScpiDevice):
                 self._arm(acq.t_last())
 
     def _search(self, acq: _Acquisition, now: float) -> float | None:
-        starts = {acq.t_arm}
-        starts.update(s for s in self.world.switching_times(acq.t_arm, now) if s >= acq.t_arm)
+        # start -> whether the network switched there (then the sample one interval before
+        # the switch is the "previous" sample, so an edge right at arming is still seen)
+        starts = {acq.t_arm: False}
+        starts.update((s, True) for s in self.world.switching_times(acq.t_arm, now))
         src = acq.source
         bws = acq.bandwidths[:src]
+        found: list[float] = []
         for s in sorted(starts):
             done, last = acq.windows.get(s, (0, None))
             if done >= acq.points or now < s:
                 continue
+            if s < acq.t_arm or (found and s >= min(found)):
+                continue  # a later window cannot trigger earlier than a found crossing
             available = min(acq.points, int(math.floor((now - s) / acq.dt * (1 + 1e-12))) + 1)
-            if last is None and s > acq.t_arm and s - acq.dt >= acq.t_arm:
+            if last is None and starts[s]:
                 before = self.world.scope_inputs(np.array([s - acq.dt]), bws)
                 last = float(before[src - 1, 0])
             while done < available:
@@ -510,11 +515,17 @@ class SimScope(ScpiDevice):
                 v = self.world.scope_inputs(t, bws)[src - 1]
                 hit = _first_crossing(v, last, acq.level, acq.slope)
                 if hit is not None:
-                    logger.debug("%s: triggered at %s", self.identity, t[hit])
-                    return float(t[hit])
+                    found.append(float(t[hit]))
+                    break
                 done, last = stop, float(v[-1])
             acq.windows[s] = (done, last)
-        return None
+        if not found:
+            return None
+        # windows overlap on different sample grids; a sample evaluated at the very instant
+        # of a later switch saw the old state, so the earliest crossing of any window counts
+        t_trig = min(found)
+        logger.debug("%s: triggered at %s", self.identity, t_trig)
+        return t_trig
 
     def operation_condition(self) -> int:
         """SCPI-1999 STATus:OPERation bits: 5 (32) waiting for trigger, 3 (8) measuring."""

@@ -1,0 +1,460 @@
+"""The simulated supply, switch board, scope and bench meter through pyvisa-py over TCP.
+
+The world behind them is the closed-form RC test double of ``tests/sim_support.py``, so every
+physical answer is known: RC charge and discharge ``v0 exp(-t/RC)`` (textbook, REFERENCES.md
+section 6). Blocks are decoded with pyvisa's own ``pyvisa.util.from_ieee_block`` (reference
+decoder of IEEE 488.2 definite-length blocks). Writes are asynchronous, so a test that moves
+the virtual clock first waits for ``*OPC?``.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from collections.abc import Iterator
+from dataclasses import replace
+
+import numpy as np
+import pytest
+import pyvisa
+from pyvisa.util import from_ieee_block
+from scipy.signal import lsim
+
+from drivers.clock import VirtualClock
+from drivers.sim.bench import SimBench, start_sim_bench
+from drivers.sim.instruments import DEFAULT_PROFILE
+from drivers.sim.interfaces import BenchWiring, Faults, LoadSpec, SenseSpec, WorldConfig
+from tests.sim_support import SimpleRcWorld, error_codes, open_instrument, query_raw_block
+
+# 1 kohm load with a 10 ohm shunt: tau = 1010 ohm * 100 nF = 101 us in the "AC V" mode
+WIRING = BenchWiring(loads=(LoadSpec("r1k", 1000.0),), sense=SenseSpec(ohms=10.0))
+CONFIG = WorldConfig(meter_model="test-double", wiring=WIRING, noise_volts=1e-4, seed=3)
+PROFILE = tomllib.loads(DEFAULT_PROFILE.read_text(encoding="utf-8"))
+CHARGE_VOLTS = 50.0
+
+
+def _start(config: WorldConfig = CONFIG) -> SimBench:
+    clock = VirtualClock()
+    return start_sim_bench(config, clock, world=SimpleRcWorld(config, clock))
+
+
+@pytest.fixture(scope="module")
+def rm() -> Iterator[pyvisa.ResourceManager]:
+    manager = pyvisa.ResourceManager("@py")
+    yield manager
+    manager.close()
+
+
+@pytest.fixture(scope="module")
+def bench() -> Iterator[SimBench]:
+    with _start() as sim:
+        yield sim
+
+
+@pytest.fixture
+def inst(rm: pyvisa.ResourceManager, bench: SimBench) -> Iterator[dict]:
+    opened = {role: open_instrument(rm, res) for role, res in bench.resources.items()}
+    for i in opened.values():
+        assert i.query("*RST;*CLS;*OPC?") == "1"
+    assert opened["meter"].query('FUNC "VOLT:AC";*OPC?') == "1"  # 100 nF in the test double
+    yield opened
+    for i in opened.values():
+        i.close()
+
+
+def _charge(inst: dict, bench: SimBench, volts: float = CHARGE_VOLTS) -> float:
+    """Charge the meter input for 20 charge time constants; returns the node voltage."""
+    sw, ps = inst["switch"], inst["supply"]
+    assert sw.query("ROUT:OPEN:ALL;:ROUT:CLOS (@1);*OPC?") == "1"
+    assert ps.query(f"VOLT {volts};CURR MAX;:OUTP ON;*OPC?") == "1"
+    bench.world.clock.sleep(20 * 101e3 * 100e-9)
+    assert ps.query("OUTP OFF;:VOLT 0;*OPC?") == "1"
+    assert sw.query("ROUT:OPEN (@1);*OPC?") == "1"
+    return bench.world.meter_input_volts()
+
+
+def _discharge(inst: dict) -> None:
+    assert inst["switch"].query("ROUT:CLOS (@2);*OPC?") == "1"
+
+
+def _setup_scope(scope, points: int, dt: float, x_origin: float, level: float = 0.1) -> None:
+    assert (
+        scope.query(
+            f"SENS1:VOLT:RANG:PTP 1;:SENS1:VOLT:OFFS 0;:SENS:SWE:TINT {dt};POIN {points};"
+            f"OFFS:TIME {x_origin};"
+            f":TRIG:SOUR INT1;LEV {level};SLOP POS;:INIT:CONT OFF;:INIT;*OPC?"
+        )
+        == "1"
+    )
+
+
+def _preamble(scope, n: int = 1) -> dict[str, float]:
+    fields = PROFILE["scope"]["preamble_fields"]
+    values = [float(v) for v in scope.query(f"TRAC:PRE? INT{n}").split(",")]
+    return {name: values[i] for name, i in fields.items()}
+
+
+def _volts(codes: np.ndarray, pre: dict[str, float]) -> np.ndarray:
+    # the profile's scaling rule: volts = (code - y_reference) * y_increment + y_origin
+    return (codes - pre["y_reference"]) * pre["y_increment"] + pre["y_origin"]
+
+
+# -- every profile command, long and short form ------------------------------------------------
+
+_MNEMONIC = re.compile(r"\b([A-Z]+)([a-z]+)([A-Za-z]*)\b")
+
+
+def _short(command: str) -> str:
+    """Short form of every mnemonic: keep the upper-case letters (SCPI-1999 6.2.1)."""
+    return _MNEMONIC.sub(lambda m: "".join(c for c in m.group(0) if c.isupper()), command)
+
+
+def _fill(template: str) -> str:
+    values = {
+        "volts": 12.5, "amps": 0.01, "channels": "(@1,3)", "ch": 2, "coupling": "AC",
+        "ohms": 50, "hz": 20e6, "state": "ON", "seconds": 1e-6, "points": 2000,
+        "source": "INTernal1", "slope": "NEGative", "fmt": "INTeger,16", "order": "SWAPped",
+    }  # fmt: skip
+    return template.format(**values)
+
+
+@pytest.mark.parametrize("form", ["long", "short", "lower"])
+def test_every_profile_command_is_accepted(inst: dict, bench: SimBench, form: str) -> None:
+    def variant(cmd: str) -> str:
+        return {"long": cmd, "short": _short(cmd), "lower": cmd.lower()}[form]
+
+    roles = {"supply": "supply", "switch": "switch", "scope": "scope", "meter": "meter"}
+    for role, section in roles.items():
+        i = inst[role]
+        for key, template in PROFILE[section].items():
+            if not isinstance(template, str) or key in ("fetch", "preamble", "measure_dc"):
+                continue
+            if section == "meter" and key == "set_function":
+                for function in PROFILE["meter"]["functions"].values():
+                    i.write(variant(template.format(function=function)))
+                continue
+            cmd = variant(_fill(template))
+            if "?" in cmd:
+                assert i.query(cmd) != ""
+            else:
+                i.write(cmd)
+        assert error_codes(i) == [], (role, form)
+    for name in ("common",):
+        for template in PROFILE[name].values():
+            for i in inst.values():
+                cmd = variant(template)
+                if "?" in cmd:
+                    assert i.query(cmd)
+                else:
+                    i.write(cmd)
+    # the scope read-back commands need a completed record: make one and fetch it
+    scope = inst["scope"]
+    assert scope.query("TRIG:SOUR INT1;LEV 0.1;SLOP POS;*OPC?") == "1"  # *RST above reset it
+    assert scope.query(variant(PROFILE["scope"]["single"]) + ";*OPC?") == "1"
+    _charge(inst, bench)
+    _discharge(inst)
+    bench.world.clock.sleep(0.01)
+    for key in ("preamble", "measure_dc"):
+        assert scope.query(variant(_fill(PROFILE["scope"][key])))
+    block = query_raw_block(scope, variant(_fill(PROFILE["scope"]["fetch"])))
+    assert block.startswith(b"#") and block.endswith(b"\n")
+    for i in inst.values():
+        assert error_codes(i) == [], form
+
+
+# -- supply ---------------------------------------------------------------------------------------
+
+
+def test_supply_setpoints_and_ranges(inst: dict) -> None:
+    ps = inst["supply"]
+    ps.write("VOLT 1500;CURR 0.1")
+    assert ps.query("VOLT?;CURR?") == "1500;0.1"
+    for bad in ("VOLT 1500.1", "VOLT -0.5", "CURR 0.2", "CURR -1"):
+        ps.write(bad)
+        assert error_codes(ps) == [-222], bad  # SCPI-1999 -222 data out of range
+    assert ps.query("VOLT?;CURR?") == "1500;0.1"  # refused settings change nothing
+    ps.write("VOLT MIN;CURR DEF")
+    assert ps.query("VOLT?;CURR?;:VOLT? MAX") == "0;0.1;1500"
+
+
+def test_supply_rst_and_output(inst: dict, bench: SimBench) -> None:
+    ps = inst["supply"]
+    assert ps.query("VOLT 200;:OUTP ON;:OUTP?") == "1"
+    assert bench.world.history()[-1][1]["supply_on"] is True
+    assert ps.query("*RST;:OUTP?;:VOLT?") == "0;0"
+    last = bench.world.history()[-1][1]
+    assert last["supply_on"] is False and last["supply_volts"] == 0.0
+
+
+def test_supply_measures_the_rc_charge(inst: dict, bench: SimBench) -> None:
+    ps, sw = inst["supply"], inst["switch"]
+    w = bench.world
+    w.meter_connect("test-double")  # start from a discharged input
+    assert sw.query("ROUT:CLOS (@1);*OPC?") == "1"
+    assert ps.query("VOLT 100;:OUTP ON;*OPC?") == "1"
+    r_path = CONFIG.wiring.supply_output_ohms + CONFIG.wiring.charge_ohms
+    tau = w.time_constant()
+    w.clock.sleep(tau)
+    volts, amps = float(ps.query("MEAS:VOLT:DC?")), float(ps.query("MEAS:CURR:DC?"))
+    # textbook RC charge (REFERENCES.md 6) with the 10 Mohm leak as a divider:
+    # v(t) = v_inf (1 - exp(-t/tau)), i = (V - v) / R_path, terminal = V - i R_out
+    v_inf = 100.0 * 10e6 / (10e6 + r_path)
+    node = v_inf * (1 - np.exp(-1.0))
+    assert amps == pytest.approx((100.0 - node) / r_path, rel=1e-9)
+    assert volts == pytest.approx(100.0 - amps * CONFIG.wiring.supply_output_ohms, rel=1e-9)
+    assert tau == pytest.approx(100e-9 / (1 / r_path + 1 / 10e6), rel=1e-12)
+
+
+# -- switch ---------------------------------------------------------------------------------------
+
+
+def test_switch_channel_lists(inst: dict, bench: SimBench) -> None:
+    sw = inst["switch"]
+    sw.write("ROUT:CLOS (@1,3)")
+    assert sw.query("ROUT:CLOS? (@1:4)") == "1,0,1,0"
+    assert sw.query("ROUT:OPEN? (@1:4)") == "0,1,0,1"
+    sw.write("ROUTE:CLOSE (@5:7,16)")
+    assert sw.query("ROUT:CLOS:STAT?") == "(@1,3,5,6,7,16)"
+    assert bench.world.relay_commanded([5, 6, 7, 8]) == [True, True, True, False]
+    sw.write("ROUT:OPEN (@3,5)")
+    assert sw.query("ROUT:CLOS? (@16,5,3,1)") == "1,0,0,1"
+    sw.write("ROUT:OPEN:ALL")
+    assert sw.query("ROUT:CLOS? (@1:16)") == ",".join(["0"] * 16)
+
+
+def test_switch_rejects_bad_channels(inst: dict, bench: SimBench) -> None:
+    sw = inst["switch"]
+    for bad in ("ROUT:CLOS (@2,17)", "ROUT:CLOS (@0)", "ROUT:OPEN (@15:18)"):
+        sw.write(bad)
+        assert error_codes(sw) == [-222], bad  # SCPI-1999 -222 data out of range
+    assert bench.world.relay_commanded([2]) == [False]  # nothing of a bad list is applied
+    sw.write("ROUT:CLOS 2")
+    assert error_codes(sw) == [-104]  # a channel list is required: data type error [M]
+    sw.write("ROUT:CLOS (@2);*RST")
+    assert sw.query("ROUT:CLOS? (@2)") == "0"
+
+
+# -- meter ----------------------------------------------------------------------------------------
+
+
+def test_meter_functions(inst: dict, bench: SimBench) -> None:
+    meter = inst["meter"]
+    for mode, function in PROFILE["meter"]["functions"].items():
+        for spelling in (function, _short(function), function.lower()):
+            assert meter.query(f'SENS:FUNC "{spelling}";*OPC?') == "1"
+            assert bench.world.meter_mode() == mode
+            assert meter.query("FUNC?") == f'"{function}"'
+    assert error_codes(meter) == []
+    for bad in ('FUNC "FREQuency"', 'FUNC "VOLT"', 'FUNC "VOLT:AC:MILL:X"'):
+        meter.write(bad)
+        assert error_codes(meter) == [-224], bad  # illegal parameter value [M]
+
+
+# -- scope ----------------------------------------------------------------------------------------
+
+
+def test_scope_setting_errors(inst: dict) -> None:
+    scope = inst["scope"]
+    cases = [
+        ("INP5:COUP AC", -114),  # header suffix out of range [M]
+        ("INP1:IMP 75", -224),  # only 50 ohm and 1 Mohm
+        ("SENS:SWE:POIN 999", -222),  # points below 1000
+        ("SENS:SWE:POIN 10000001", -222),
+        ("SENS:SWE:TINT 2", -222),
+        ("FORM:DATA INT,12", -224),
+        ("FORM:DATA REAL,32", -224),
+        ("TRIG:SOUR INT5", -224),
+        ("TRIG:SLOP UP", -224),
+        ("INP1:COUP GND", -224),
+        ("TRAC:DATA? INT1", -230),  # no completed acquisition yet
+        ("TRAC:PRE? INT1", -230),
+    ]
+    for command, code in cases:
+        scope.write(command)  # a refused query sends no answer
+        assert error_codes(scope) == [code], command
+    scope.write("INP1:IMP 1MOHM;IMP?")
+    assert scope.read() == "1000000"
+    assert scope.query("INP1:IMP 50;IMP?;:FORM INT,16;FORM?;:FORM:BORD SWAP;BORD?") == (
+        "50;INT,16;SWAP"
+    )
+
+
+def test_scope_triggers_on_a_discharge(inst: dict, bench: SimBench) -> None:
+    scope, w = inst["scope"], bench.world
+    dt, points, x_origin = 1e-6, 2000, -200e-6
+    _charge(inst, bench)
+    _setup_scope(scope, points, dt, x_origin, level=0.1)
+    assert scope.query("STAT:OPER:COND?") == "32"  # SCPI-1999: bit 5 waiting for trigger
+    w.clock.sleep(1e-3)
+    assert scope.query("STAT:OPER:COND?") == "32"
+    v0 = w.meter_input_volts()  # after 1 ms of self-discharge through the 10 Mohm leak
+    _discharge(inst)
+    w.clock.sleep(0.5e-3)
+    assert scope.query("STAT:OPER:COND?") == "8"  # bit 3: post-trigger part still acquiring
+    scope.write("TRAC:DATA? INT1")  # refused, no answer: the record is not complete yet
+    assert error_codes(scope) == [-230]
+    w.clock.sleep(2e-3)
+    assert scope.query("STAT:OPER:COND?") == "0"
+    scope.write("FORM INT,16")
+    pre = _preamble(scope)
+    assert (pre["points"], pre["x_increment"], pre["x_origin"]) == (points, dt, x_origin)
+    assert pre["y_increment"] == 1.0 / 2**16 and pre["y_origin"] == 0.0
+    raw = query_raw_block(scope, "TRAC:DATA? INT1")
+    codes = np.asarray(from_ieee_block(raw[:-1], "h", True, np.array))
+    volts = _volts(codes, pre)
+    k = int(round(-x_origin / dt))  # the trigger sits at -x_origin / dt samples
+    assert volts[k - 1] < 0.1 <= volts[k]
+    # closed form (textbook RC discharge, REFERENCES.md 6): shunt volts = v0 Rs/R exp(-t/tau),
+    # the trigger at the relay closing instant (sample grid starts at the switching time)
+    r = 1010.0
+    tau = 1.0 / (1.0 / r + 1.0 / 10e6) * 100e-9
+    t = (np.arange(points) - k) * dt  # seconds from the trigger
+    expected = np.where(t >= 0, v0 / r * 10.0 * np.exp(-np.clip(t, 0, None) / tau), 0.0)
+    tol = 6 * CONFIG.noise_volts + pre["y_increment"]
+    err = np.abs(volts - expected)
+    assert np.max(err) < tol, (np.argmax(err), volts[k - 2 : k + 3], expected[k - 2 : k + 3])
+    # the decay constant from a log-linear fit over 3 tau (textbook RC: tau = R C)
+    post = (t > 0) & (t < 3 * tau)
+    slope = np.polyfit(t[post], np.log(volts[post]), 1)[0]
+    assert -1.0 / slope == pytest.approx(tau, rel=0.01)
+
+
+def test_blocks_int8_and_int16_both_orders(inst: dict, bench: SimBench) -> None:
+    scope, w = inst["scope"], bench.world
+    v0 = _charge(inst, bench)
+    # 1,000,000 points at 1 ns: 1 ms, about 10 tau after a 20 % pre-trigger part
+    _setup_scope(scope, 1_000_000, 1e-9, -200e-6)
+    _discharge(inst)
+    w.clock.sleep(2e-3)
+    scope.write("FORM:DATA INT,8")
+    pre8 = _preamble(scope)
+    raw8 = query_raw_block(scope, "TRAC:DATA? INT1")
+    assert raw8.startswith(b"#71000000") and len(raw8) == 9 + 1_000_000 + 1
+    # reference decoder: pyvisa.util.from_ieee_block
+    codes8 = np.asarray(from_ieee_block(raw8[:-1], "b", False, np.array))
+    assert codes8.size == 1_000_000 and codes8.min() >= -128 and codes8.max() <= 127
+    t = (np.arange(codes8.size) - round(-pre8["x_origin"] / pre8["x_increment"])) * 1e-9
+    tau = 1.0 / (1.0 / 1010.0 + 1.0 / 10e6) * 100e-9
+    expected = np.where(t >= 0, v0 / 101.0 * np.exp(-np.clip(t, 0, None) / tau), 0.0)
+    # 8 bits over 1 V: y_increment 3.9 mV; rounding error at most half a code plus noise
+    assert pre8["y_increment"] == 1.0 / 256
+    assert np.max(np.abs(_volts(codes8, pre8) - expected)) < pre8["y_increment"] / 2 + 6e-4
+
+    # INT,16 of a 500,000-point record, both byte orders
+    v0 = _charge(inst, bench)
+    _setup_scope(scope, 500_000, 2e-9, -100e-6)
+    _discharge(inst)
+    w.clock.sleep(2e-3)
+    scope.write("FORM:DATA INT,16;BORD NORM")
+    pre16 = _preamble(scope)
+    big = query_raw_block(scope, "TRAC:DATA? INT1")
+    scope.write("FORM:BORD SWAP")
+    little = query_raw_block(scope, "TRAC:DATA? INT1")
+    assert big[:9] == little[:9] == b"#71000000" and big != little
+    codes_big = np.asarray(from_ieee_block(big[:-1], "h", True, np.array))
+    codes_little = np.asarray(from_ieee_block(little[:-1], "h", False, np.array))
+    assert np.array_equal(codes_big, codes_little)
+    t = (np.arange(codes_big.size) - round(-pre16["x_origin"] / pre16["x_increment"])) * 2e-9
+    expected = np.where(t >= 0, v0 / 101.0 * np.exp(-np.clip(t, 0, None) / tau), 0.0)
+    assert np.max(np.abs(_volts(codes_big, pre16) - expected)) < 6e-4
+    # the same record as INT,8: the codes agree to within one 8-bit step
+    scope.write("FORM INT,8")
+    codes_same = np.asarray(
+        from_ieee_block(query_raw_block(scope, "TRAC:DATA? INT1")[:-1], "b", False, np.array)
+    )
+    assert np.max(np.abs(codes_same.astype(np.int64) * 256 - codes_big)) <= 256
+    # pyvisa's stock block reader agrees on a record it can read quickly
+    small = scope.query_binary_values("TRAC:DATA? INT2", datatype="b", container=np.array)
+    assert small.size == 500_000
+    assert error_codes(scope) == []
+
+
+def test_codes_clip_at_the_rails(inst: dict, bench: SimBench) -> None:
+    scope, w = inst["scope"], bench.world
+    _charge(inst, bench)
+    _setup_scope(scope, 1000, 1e-6, 0.0, level=0.01)
+    scope.query("SENS1:VOLT:RANG 0.1;*OPC?")  # too small a range for a 0.5 V peak
+    scope.query("INIT;*OPC?")
+    _discharge(inst)
+    w.clock.sleep(2e-3)
+    scope.write("FORM INT,8")
+    codes = np.asarray(
+        from_ieee_block(query_raw_block(scope, "TRAC:DATA? INT1")[:-1], "b", False, np.array)
+    )
+    assert codes[0] == 127 and codes.max() == 127 and codes.min() >= -128
+
+
+def test_measure_dc_and_ac_coupling(inst: dict, bench: SimBench) -> None:
+    scope, w = inst["scope"], bench.world
+    v0 = _charge(inst, bench)
+    # divider probe on input 2 (ratio 1000); the mean of 1000 samples: noise / sqrt(1000)
+    measured = float(scope.query("MEAS:VOLT:DC? INT2"))
+    assert measured == pytest.approx(v0 / 1000.0, abs=5 * 1e-4 / np.sqrt(1000))
+    # AC coupling removes the steady level: the record of input 2 sits at 0, not at v0/1000
+    scope.query("INP2:COUP AC;:SENS2:VOLT:RANG 0.2;*OPC?")
+    _setup_scope(scope, 1000, 1e-6, 0.0)
+    scope.query("TRIG:SOUR INT1;*OPC?")
+    _discharge(inst)
+    w.clock.sleep(2e-3)
+    scope.write("FORM INT,16")
+    pre = _preamble(scope, 2)
+    codes = np.asarray(
+        from_ieee_block(query_raw_block(scope, "TRAC:DATA? INT2")[:-1], "h", True, np.array)
+    )
+    volts = _volts(codes, pre)
+    # reference: scipy.signal.lsim of the continuous first-order high-pass s / (s + w),
+    # w = 2 pi 10 Hz, driven by the closed-form divider signal minus its steady level
+    # (a level held since long before the record gives no output)
+    tau = 1.0 / (1.0 / 1010.0 + 1.0 / 10e6) * 100e-9
+    t = np.arange(codes.size) * pre["x_increment"]
+    x = v0 / 1000.0 * np.exp(-t / tau)
+    w_hp = 2 * np.pi * 10.0
+    _, expected, _ = lsim(([1.0, 0.0], [1.0, w_hp]), x - x[0], t)
+    assert np.max(np.abs(volts - expected)) < 6 * 1e-4 + pre["y_increment"]
+    assert expected[-1] == pytest.approx(-v0 / 1000.0, rel=0.1)  # nearly the whole level
+
+
+def test_bandwidth_limit_reaches_the_world(inst: dict, bench: SimBench) -> None:
+    scope, w = inst["scope"], bench.world
+    _charge(inst, bench)
+    scope.query("INP1:FILT:LPAS:FREQ 20MHZ;STAT ON;:INP2:FILT:FREQ 1.5KHZ;*OPC?")
+    assert scope.query("INP1:FILT:LPAS:FREQ?;STAT?;:INP2:FILT:STAT?") == "20000000;1;0"
+    _setup_scope(scope, 1000, 1e-6, 0.0)
+    _discharge(inst)
+    w.clock.sleep(2e-3)
+    w.bandwidth_requests.clear()
+    scope.query("TRAC:PRE? INT1")
+    assert w.bandwidth_requests[0] == (20e6,)  # trigger search on input 1, limit on
+    assert w.bandwidth_requests[-1] == (20e6, None, None, None)  # the record, inputs 1..4
+
+
+def test_disabled_input_and_continuous_mode(inst: dict, bench: SimBench) -> None:
+    scope, w = inst["scope"], bench.world
+    scope.query("SENS3:STAT OFF;*OPC?")
+    _charge(inst, bench)
+    _setup_scope(scope, 1000, 1e-6, -100e-6)
+    _discharge(inst)
+    w.clock.sleep(2e-3)
+    scope.write("TRAC:DATA? INT3")
+    assert error_codes(scope) == [-221]  # settings conflict: the input was off
+    scope.query("INIT:CONT ON;*OPC?")
+    assert scope.query("STAT:OPER:COND?") == "32"  # re-armed, waiting for the next edge
+    assert scope.query("TRAC:PRE? INT1").startswith("1000,")  # the last record stays readable
+    scope.query("ABOR;:INIT:CONT OFF;:ABOR;*OPC?")
+    assert scope.query("STAT:OPER:COND?") == "0"
+
+
+def test_never_triggers_fault(rm: pyvisa.ResourceManager) -> None:
+    with _start(replace(CONFIG, faults=Faults(scope_never_triggers=True))) as sim:
+        opened = {role: open_instrument(rm, res) for role, res in sim.resources.items()}
+        try:
+            _charge(opened, sim)
+            _setup_scope(opened["scope"], 1000, 1e-6, 0.0)
+            _discharge(opened)
+            sim.world.clock.sleep(0.1)
+            assert opened["scope"].query("STAT:OPER:COND?") == "32"
+            opened["scope"].write("TRAC:DATA? INT1")
+            assert error_codes(opened["scope"]) == [-230]
+        finally:
+            for i in opened.values():
+                i.close()
