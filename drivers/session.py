@@ -23,7 +23,9 @@ Two pyvisa-py 0.8.1 details are handled here, measured on raw sockets:
   the lost link.
 - A read after the peer closed spins until the full timeout. Before each exchange the session
   peeks at the socket (one non-blocking syscall) so a dropped link is found at once.
-Both use the pyvisa-py session object behind the resource when there is one, and fall back
+- Small writes wait for the peer's delayed ACK unless TCP_NODELAY is set, and pyvisa-py does
+  not accept VI_ATTR_TCPIP_NODELAY; the session sets the socket option itself.
+These use the pyvisa-py session object behind the resource when there is one, and fall back
 to plain PyVISA calls on every other backend and transport.
 """
 
@@ -156,6 +158,7 @@ class ScpiSession:
         self._extra = {"instrument": name}
         self._lock = threading.RLock()
         self._recovering = False
+        self._generation = 0  # counts successful reconnects
         self._res: Any = None
         self._own_rm = resource_manager is None
         try:
@@ -207,11 +210,31 @@ class ScpiSession:
         """Send ``command``; with ``check``, read the error queue and raise :class:`ScpiError`.
 
         ``repeatable`` allows sending the command again after a reconnect (setting commands
-        are; a command whose repetition matters is not).
+        are; a command whose repetition matters is not). Only a checked write learns that
+        the link dropped just after the command was sent; it then sends it again once.
         """
-        self._exchange(command, repeatable, lambda: self._do_write(command))
-        if check:
-            self.check_errors(command)
+        with self._lock:
+            for attempt in (1, 2):
+                self._exchange(command, repeatable, lambda: self._do_write(command))
+                if not check:
+                    return
+                sent_on = self._generation
+                self.check_errors(command)
+                if self._generation == sent_on:
+                    return
+                # The link was re-opened after the command went out. A socket write
+                # "succeeds" into a connection the instrument is already closing, so whether
+                # the command arrived is unknown: send it again if that is safe.
+                if not repeatable or attempt == 2:
+                    raise ConnectionLost(
+                        self._name, command, "link lost right after sending; delivery unknown"
+                    )
+                log.info(
+                    "%s: link re-opened after %r; sending it again",
+                    self._name,
+                    command,
+                    extra=self._extra,
+                )
 
     def query(
         self, command: str, *, repeatable: bool = True, timeout_s: float | None = None
@@ -439,6 +462,7 @@ class ScpiSession:
                         self.setup(self)
                     finally:
                         self._recovering = False
+                self._generation += 1
                 log.info("%s: reconnected", self._name, extra=self._extra)
                 return done
             except ConnectionLost as exc:
@@ -498,6 +522,11 @@ class ScpiSession:
                 raise ConnectionLost(
                     self._name, None, f"cannot open {self._resource_name}: {os.strerror(err)}"
                 )
+            # Without TCP_NODELAY a command followed at once by the error-queue query waits
+            # for the instrument's delayed ACK: measured 45 ms per checked write on loopback,
+            # 0.14 ms with it. pyvisa-py 0.8.1 refuses VI_ATTR_TCPIP_NODELAY (its setter is
+            # not wired up), so the option is set on the socket.
+            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
         log.debug("%s: opened %s", self._name, self._resource_name, extra=self._extra)
 
     def _close_resource(self) -> None:
