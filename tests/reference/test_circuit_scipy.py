@@ -2,7 +2,10 @@
 
 The reference builds its own nodal matrices (``Cn v' = -G v + b``) straight from the drawn
 elements, then uses ``scipy.linalg.expm`` and ``scipy.signal.lsim``: nothing of the engine's
-Schur reduction or eigen-decomposition is shared.
+Schur reduction or eigen-decomposition is shared. Element values span 10 ohm..1 Mohm and
+100 pF..1 uF (time constants 1 ns..1 s): much stiffer draws (1e-13 against seconds) make
+``scipy.linalg.expm`` itself lose accuracy in the slow modes (about 1e-6, measured), while the
+closed-form and ngspice checks cover the engine's stiffer cases.
 """
 
 from __future__ import annotations
@@ -27,16 +30,16 @@ def _log(lo: float, hi: float):
 def rc_networks(draw):
     n = draw(st.integers(min_value=1, max_value=4))
     nodes = [f"n{k}" for k in range(n)]
-    els = [Element(f"Cg{k}", "C", nodes[k], "0", draw(_log(1e-12, 1e-6))) for k in range(n)]
+    els = [Element(f"Cg{k}", "C", nodes[k], "0", draw(_log(1e-10, 1e-6))) for k in range(n)]
     # a resistor from every node to an earlier node or ground keeps every node on a DC path
     for k in range(n):
         other = "0" if k == 0 else draw(st.sampled_from(["0"] + nodes[:k]))
-        els.append(Element(f"Rt{k}", "R", nodes[k], other, draw(_log(1.0, 1e7))))
+        els.append(Element(f"Rt{k}", "R", nodes[k], other, draw(_log(10.0, 1e6))))
     for j in range(draw(st.integers(min_value=0, max_value=3))):
         a, b = draw(st.sampled_from(nodes)), draw(st.sampled_from(nodes + ["0"]))
         if a != b:
             kind = draw(st.sampled_from("RC"))
-            val = draw(_log(1.0, 1e7)) if kind == "R" else draw(_log(1e-12, 1e-6))
+            val = draw(_log(10.0, 1e6)) if kind == "R" else draw(_log(1e-10, 1e-6))
             els.append(Element(f"X{j}", kind, a, b, val))
     els.append(Element("I1", "I", "0", nodes[-1]))
     v0 = draw(st.lists(st.floats(-1e3, 1e3), min_size=n, max_size=n))
