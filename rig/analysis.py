@@ -25,8 +25,9 @@ turned positive by the event's polarity, ``Ip`` its peak):
   90 % of ``Ip`` and max(10 % of ``Ip``, 3 x noise); at most 256 evenly spaced samples.
 - fwhm: time between the 50 % crossings either side of the peak.
 - charge: integral of i dt over the record (signed); energy: load_ohms x integral of i^2 dt.
-- pulses: separate pulses above max(25 % of ``Ip``, noise_factor x noise), with hysteresis
-  (a pulse ends when the current falls below min(half that threshold, threshold - noise_factor x noise)): contact bounce.
+- pulses: separate pulses above H = max(25 % of ``Ip``, noise_factor x noise), with
+  hysteresis: a pulse ends when the current falls below min(H / 2, H - noise_factor x noise)
+  (contact bounce).
 - c_equiv: abs(charge) / charge voltage; r_equiv: tau / c_equiv.
 - flags: clipped (a sample at the ADC's lowest or highest code), truncated (mean of the last
   samples still above 5 % of ``Ip``), below noise (``Ip`` not above noise_factor x noise: the
@@ -71,11 +72,30 @@ log = logging.getLogger(__name__)
 
 #: Output columns of :func:`event_metrics`, in the order of DEVELOPERS.md.
 METRIC_COLUMNS: tuple[str, ...] = (
-    "peak_a", "abs_peak_a", "polarity", "t_peak_s", "rise_s", "decay_s", "tau_s", "fwhm_s",
-    "charge_c", "energy_j", "pulses", "c_equiv_f", "r_equiv_ohm", "baseline_a", "noise_a",
-    "flag_clipped", "flag_not_captured", "flag_truncated", "flag_below_noise",
-    "ind_hbm_volts", "ind_hbm_charge_c", "ind_hbm_energy_j", "ind_iec61010_charge_ratio",
-)  # fmt: skip
+    "peak_a",
+    "abs_peak_a",
+    "polarity",
+    "t_peak_s",
+    "rise_s",
+    "decay_s",
+    "tau_s",
+    "fwhm_s",
+    "charge_c",
+    "energy_j",
+    "pulses",
+    "c_equiv_f",
+    "r_equiv_ohm",
+    "baseline_a",
+    "noise_a",
+    "flag_clipped",
+    "flag_not_captured",
+    "flag_truncated",
+    "flag_below_noise",
+    "ind_hbm_volts",
+    "ind_hbm_charge_c",
+    "ind_hbm_energy_j",
+    "ind_iec61010_charge_ratio",
+)
 
 HBM_OHMS = 1500.0  # JS-001 network resistance [T], REFERENCES.md section 1
 HBM_FARADS = 100e-12  # JS-001 network capacitance [T]
@@ -87,22 +107,69 @@ _FIT_POINTS = 256
 _BLOCK = 64  # samples per block of the crossing search's envelope
 
 
-def event_metrics(data: np.ndarray, **kwargs: Any) -> dict[str, np.ndarray]:
+def event_metrics(
+    data: np.ndarray,
+    *,
+    dt: float,
+    t0: float = 0.0,
+    gain: float | np.ndarray = 1.0,
+    offset: float | np.ndarray = 0.0,
+    code_min: int | np.ndarray | None = None,
+    code_max: int | np.ndarray | None = None,
+    n_baseline: int | None = None,
+    charge_volts: float | np.ndarray = np.nan,
+    load_ohms: float | np.ndarray = np.nan,
+    noise_factor: float = 6.0,
+    pulse_fraction: float = 0.25,
+    truncation_fraction: float = 0.05,
+    chunk_bytes: int = 16 << 20,
+) -> dict[str, np.ndarray]:
     """Metrics of every event (row) of ``data``; one 1-D array per name in METRIC_COLUMNS.
 
     data: (events, samples) int8/int16 ADC codes, or float currents in A (gain 1, offset 0).
-    Keyword arguments (units): see :func:`_metrics`, the same function; this one only leaves
-    out its internal extra (the onset time).
+    dt: seconds per sample; t0: time of sample 0 relative to the trigger, s.
+    gain, offset: A per code and A at code 0, scalars or one per event.
+    code_min, code_max: the ADC's rails (codes), for the clipped flag; None for floats.
+    n_baseline: pre-trigger samples at the start of each record; None: the samples before
+        t = 0 when t0 < 0, else the first 10 % of the record. The last tenth of them is left
+        out of the baseline, since the edge may already be rising there.
+    charge_volts: charge voltage per event, V (for c_equiv); load_ohms: load, ohm (energy).
+    noise_factor: a peak must exceed this multiple of the noise, or the event is flagged
+        below noise. pulse_fraction: pulse-count threshold as a fraction of the peak.
+    truncation_fraction: the truncated flag is set when the record ends above this
+        fraction of the peak.
+    chunk_bytes: working-memory budget of one chunk of float rows (bytes).
     """
-    out = _metrics(data, **kwargs)
+    out = _metrics(
+        data,
+        dt=dt,
+        t0=t0,
+        gain=gain,
+        offset=offset,
+        code_min=code_min,
+        code_max=code_max,
+        n_baseline=n_baseline,
+        charge_volts=charge_volts,
+        load_ohms=load_ohms,
+        noise_factor=noise_factor,
+        pulse_fraction=pulse_fraction,
+        truncation_fraction=truncation_fraction,
+        chunk_bytes=chunk_bytes,
+    )
     del out["t_onset_s"]
     return out
 
 
 def current_after_onset(
-    data: np.ndarray, after_s: Any, *, dt: float, t0: float = 0.0, gain: Any = 1.0,
-    offset: Any = 0.0, **kwargs: Any,
-) -> np.ndarray:  # fmt: skip
+    data: np.ndarray,
+    after_s: Any,
+    *,
+    dt: float,
+    t0: float = 0.0,
+    gain: Any = 1.0,
+    offset: Any = 0.0,
+    **kwargs: Any,
+) -> np.ndarray:
     """Baseline-removed current, A, at the given times after each event's onset (the 10 %
     point of the leading edge of its highest pulse), linearly interpolated: the I30 and I60
     of IEC 61000-4-2 with after_s = (30e-9, 60e-9). Shape (events, len(after_s)); NaN where
@@ -143,20 +210,7 @@ def _metrics(
     truncation_fraction: float = 0.05,
     chunk_bytes: int = 16 << 20,
 ) -> dict[str, np.ndarray]:
-    """Metrics of every event (row) of ``data`` (METRIC_COLUMNS plus ``t_onset_s``).
-
-    data: (events, samples) int8/int16 ADC codes, or float currents in A (gain 1, offset 0).
-    dt: seconds per sample; t0: time of sample 0 relative to the trigger, s.
-    gain, offset: A per code and A at code 0, scalars or one per event.
-    code_min, code_max: the ADC's rails (codes), for the clipped flag; None for floats.
-    n_baseline: pre-trigger samples at the start of each record; None: the samples before
-        t = 0 when t0 < 0, else the first 10 % of the record. The last tenth of them is left
-        out of the baseline, since the edge may already be rising there.
-    charge_volts: charge voltage per event, V (for c_equiv); load_ohms: load, ohm (energy).
-    noise_factor: a peak must exceed this multiple of the noise, or the event is flagged
-        below noise. pulse_fraction: pulse-count threshold as a fraction of the peak.
-    chunk_bytes: working-memory budget of one chunk of float rows (bytes).
-    """
+    """:func:`event_metrics` plus ``t_onset_s`` (10 % point of the leading edge, s)."""
     data = np.asarray(data)
     if data.ndim != 2:
         raise ValueError(
@@ -193,8 +247,20 @@ def _metrics(
     rows_per_chunk = max(1, int(chunk_bytes // (n * np.dtype(work).itemsize)))
     for a in range(0, m, rows_per_chunk):
         b = min(m, a + rows_per_chunk)
-        _chunk(data[a:b], work, integer, base_lo, n_base, noise_factor, pulse_fraction,
-               truncation_fraction, lo_r[a:b], hi_r[a:b], out, slice(a, b))  # fmt: skip
+        _chunk(
+            data[a:b],
+            work,
+            integer,
+            base_lo,
+            n_base,
+            noise_factor,
+            pulse_fraction,
+            truncation_fraction,
+            lo_r[a:b],
+            hi_r[a:b],
+            out,
+            slice(a, b),
+        )
 
     # Scale code units to amperes and derive the rest; all per event, cheap.
     g = np.abs(gain_r)
@@ -348,9 +414,14 @@ def _median_mad_int8(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _pulse_masks(
-    raw: np.ndarray, y: np.ndarray, base: np.ndarray, pol: np.ndarray,
-    hi: np.ndarray, lo: np.ndarray, integer: bool,
-) -> tuple[np.ndarray, np.ndarray]:  # fmt: skip
+    raw: np.ndarray,
+    y: np.ndarray,
+    base: np.ndarray,
+    pol: np.ndarray,
+    hi: np.ndarray,
+    lo: np.ndarray,
+    integer: bool,
+) -> tuple[np.ndarray, np.ndarray]:
     """Boolean masks y > hi and y < lo. For integer codes the comparison is done on the raw
     codes against integer thresholds (exact for integers, and 4x less memory traffic)."""
     if not integer:
@@ -415,9 +486,14 @@ def _first_below(vals: np.ndarray, idx: np.ndarray, level: np.ndarray, forward: 
 
 
 def _search(
-    y: np.ndarray, env: np.ndarray, block: int, start: np.ndarray, levels: np.ndarray,
-    *, forward: bool,
-) -> np.ndarray:  # fmt: skip
+    y: np.ndarray,
+    env: np.ndarray,
+    block: int,
+    start: np.ndarray,
+    levels: np.ndarray,
+    *,
+    forward: bool,
+) -> np.ndarray:
     """Per row and level, the nearest index from ``start`` on (forward or backward, start
     included) where ``y`` is below the level; -1 where there is none.
 
@@ -573,8 +649,15 @@ def quick_metrics(wf: Waveform, channel: str = "current") -> dict[str, Any]:
     Python scalars, ``abs_peak_a`` None below noise, and ``flagged`` (clipped, truncated or
     below noise). No charge voltage or load is known here, so c_equiv and energy are NaN."""
     k = wf.index(channel)
-    res = event_metrics(wf.codes[k : k + 1], dt=wf.dt, t0=wf.t0, gain=wf.gain[k],
-                        offset=wf.offset[k], code_min=wf.code_min[k], code_max=wf.code_max[k])  # fmt: skip
+    res = event_metrics(
+        wf.codes[k : k + 1],
+        dt=wf.dt,
+        t0=wf.t0,
+        gain=wf.gain[k],
+        offset=wf.offset[k],
+        code_min=wf.code_min[k],
+        code_max=wf.code_max[k],
+    )
     out: dict[str, Any] = {name: v[0].item() for name, v in res.items()}
     if not np.isfinite(out["abs_peak_a"]):
         out["abs_peak_a"] = None
@@ -602,8 +685,10 @@ def _batches(run_dir: Path, jr: pd.DataFrame, channel: str, batch: int) -> Itera
     for i in captured:
         rel = jr.at[i, "file"]
         if not isinstance(rel, str) or not rel:
-            raise RunFolderError(f"{run_dir / 'journal.jsonl'}: event {jr.at[i, 'event']} "
-                                 "is captured but names no waveform file")  # fmt: skip
+            raise RunFolderError(
+                f"{run_dir / 'journal.jsonl'}: event {jr.at[i, 'event']} "
+                "is captured but names no waveform file"
+            )
         headers[i] = run_dir / rel
     # Read each file once; keep a batch in memory at a time.
     pending: list[tuple[int, Any]] = []
@@ -660,8 +745,17 @@ def compute_metrics(
     res["pulses"] = np.zeros(len(jr), dtype=np.int64)
     for idx, codes, gain, offset, lo, hi, dt, t0 in _batches(run_dir, jr, channel, batch):
         ix = np.asarray(idx)
-        part = event_metrics(codes, dt=dt, t0=t0, gain=gain, offset=offset, code_min=lo,
-                             code_max=hi, charge_volts=volts[ix], load_ohms=ohms[ix])  # fmt: skip
+        part = event_metrics(
+            codes,
+            dt=dt,
+            t0=t0,
+            gain=gain,
+            offset=offset,
+            code_min=lo,
+            code_max=hi,
+            charge_volts=volts[ix],
+            load_ohms=ohms[ix],
+        )
         for k in METRIC_COLUMNS:
             res[k][ix] = part[k]
         res["flag_not_captured"][ix] = False
@@ -716,8 +810,7 @@ def analyze_run(
             if found is None:
                 found = find_setting(manifest, "safe_residual_volts")
             safe_residual_volts = float(found) if found is not None else DEFAULT_SAFE_VOLTS
-        sd = self_discharge(metrics, safe_residual_volts=safe_residual_volts,
-                            confidence=confidence)  # fmt: skip
+        sd = self_discharge(metrics, safe_residual_volts=safe_residual_volts, confidence=confidence)
         sd_path = run_dir / "selfdischarge.csv"
         sd.to_csv(sd_path, index=False)
     log.info("analysis of %s written", run_dir)

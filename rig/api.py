@@ -52,8 +52,10 @@ def load_event_waveform(run_dir: str | Path, event: int) -> Waveform:
     row = _row(run_dir, int(event))
     rel = row.get("file")
     if row.get("status") != "captured" or not isinstance(rel, str) or not rel:
-        raise RunFolderError(f"{run_dir / 'journal.jsonl'}: event {event} has no waveform "
-                             f"(status {row.get('status')!r})")  # fmt: skip
+        raise RunFolderError(
+            f"{run_dir / 'journal.jsonl'}: event {event} has no waveform "
+            f"(status {row.get('status')!r})"
+        )
     path = run_dir / rel
     if not path.exists():
         raise RunFolderError(f"{path}: waveform file of event {event} missing")
@@ -92,8 +94,10 @@ def group_waveforms(
             first = wf
             values = np.empty((len(rows), wf.n))
         elif (wf.n, wf.dt, wf.t0) != (first.n, first.dt, first.t0):
-            raise RunFolderError(f"{path}: record ({wf.n} samples, dt {wf.dt}, t0 {wf.t0}) "
-                                 "differs from the group's first; filter further")  # fmt: skip
+            raise RunFolderError(
+                f"{path}: record ({wf.n} samples, dt {wf.dt}, t0 {wf.t0}) "
+                "differs from the group's first; filter further"
+            )
         values[k] = wf.values(channel)
     assert first is not None and values is not None
     return first.time(), values, rows

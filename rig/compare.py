@@ -43,10 +43,27 @@ log = logging.getLogger(__name__)
 
 COMPARE_KEYS: tuple[str, ...] = ("meter", "mode", "volts", "load", "delay_s")
 COMPARE_COLUMNS: tuple[str, ...] = (
-    "meter", "mode", "volts", "load", "delay_s", "metric", "serials_run", "serials_baseline",
-    "n_run", "n_baseline", "median_run", "median_baseline", "ratio", "ratio_ci_low",
-    "ratio_ci_high", "mw_u", "mw_p", "tost_p", "tolerance", "verdict",
-)  # fmt: skip
+    "meter",
+    "mode",
+    "volts",
+    "load",
+    "delay_s",
+    "metric",
+    "serials_run",
+    "serials_baseline",
+    "n_run",
+    "n_baseline",
+    "median_run",
+    "median_baseline",
+    "ratio",
+    "ratio_ci_low",
+    "ratio_ci_high",
+    "mw_u",
+    "mw_p",
+    "tost_p",
+    "tolerance",
+    "verdict",
+)
 DEFAULT_METRICS: tuple[str, ...] = ("peak_a", "charge_c", "energy_j")
 
 
@@ -84,17 +101,27 @@ def compare_samples(
     b = np.asarray(base, float)
     a, b = a[np.isfinite(a) & (a > 0)], b[np.isfinite(b) & (b > 0)]
     nan = math.nan
-    out: dict[str, float | str] = {"n_run": a.size, "n_baseline": b.size,
-                                   "median_run": nan, "median_baseline": nan, "ratio": nan,
-                                   "ratio_ci_low": nan, "ratio_ci_high": nan, "mw_u": nan,
-                                   "mw_p": nan, "tost_p": nan, "tolerance": tolerance,
-                                   "verdict": "inconclusive"}  # fmt: skip
+    out: dict[str, float | str] = {
+        "n_run": a.size,
+        "n_baseline": b.size,
+        "median_run": nan,
+        "median_baseline": nan,
+        "ratio": nan,
+        "ratio_ci_low": nan,
+        "ratio_ci_high": nan,
+        "mw_u": nan,
+        "mw_p": nan,
+        "tost_p": nan,
+        "tolerance": tolerance,
+        "verdict": "inconclusive",
+    }
     if a.size == 0 or b.size == 0:
         return out
     out["median_run"], out["median_baseline"] = float(np.median(a)), float(np.median(b))
     out["ratio"] = out["median_run"] / out["median_baseline"]
-    lo, hi = bootstrap_ci([a, b], _ratio_of_medians, confidence=confidence,
-                          n_resamples=n_boot, rng=rng)  # fmt: skip
+    lo, hi = bootstrap_ci(
+        [a, b], _ratio_of_medians, confidence=confidence, n_resamples=n_boot, rng=rng
+    )
     out["ratio_ci_low"], out["ratio_ci_high"] = lo, hi
     mw = sps.mannwhitneyu(a, b, alternative="two-sided")
     out["mw_u"], out["mw_p"] = float(mw.statistic), float(mw.pvalue)
@@ -142,8 +169,9 @@ def compare_runs(
     if not 0 < tolerance < 1:
         raise ValueError(f"tolerance must lie between 0 and 1, got {tolerance!r}")
     run, base = _load_metrics(run_dir), _load_metrics(baseline_dir)
-    for name, frame, where in ((m, f, d) for m in metrics for f, d in
-                               ((run, run_dir), (base, baseline_dir))):  # fmt: skip
+    for name, frame, where in (
+        (m, f, d) for m in metrics for f, d in ((run, run_dir), (base, baseline_dir))
+    ):
         if name not in frame:
             raise RunFolderError(f"{where / 'metrics.parquet'} [{name}]: no such metric column")
     rng = np.random.default_rng(seed)
@@ -165,13 +193,20 @@ def compare_runs(
             if gr is None or gb is None:
                 n_run = _n(gr, name)
                 n_base = _n(gb, name)
-                row.update(n_run=n_run, n_baseline=n_base, tolerance=tolerance,
-                           verdict="only in baseline" if gr is None else "only in run")  # fmt: skip
+                row.update(
+                    n_run=n_run,
+                    n_baseline=n_base,
+                    tolerance=tolerance,
+                    verdict="only in baseline" if gr is None else "only in run",
+                )
             else:
                 a = np.abs(pd.to_numeric(gr[name], errors="coerce").to_numpy(float))
                 b = np.abs(pd.to_numeric(gb[name], errors="coerce").to_numpy(float))
-                row.update(compare_samples(a, b, tolerance=tolerance, confidence=confidence,
-                                           rng=rng, n_boot=n_boot))  # fmt: skip
+                row.update(
+                    compare_samples(
+                        a, b, tolerance=tolerance, confidence=confidence, rng=rng, n_boot=n_boot
+                    )
+                )
             rows.append(row)
     out = pd.DataFrame(rows, columns=list(COMPARE_COLUMNS))
     log.info("compared %s with %s: %s rows", run_dir, baseline_dir, len(out))

@@ -41,8 +41,9 @@ def _norm(name: str) -> str:
     return s.strip()
 
 
-def read_trace(path: str | Path, *, dt: float | None = None,
-               shunt_ohms: float | None = None) -> tuple[np.ndarray, float, float]:  # fmt: skip
+def read_trace(
+    path: str | Path, *, dt: float | None = None, shunt_ohms: float | None = None
+) -> tuple[np.ndarray, float, float]:
     """(current in A, dt in s, t0 in s) of a CSV or .npy file; FileFormatError naming the file
     and column on any problem."""
     path = Path(path)
@@ -64,8 +65,9 @@ def _read_npy(path: Path, dt: float | None) -> tuple[np.ndarray, float, float]:
         raise FileFormatError(path, "", f"not a plain NumPy array ({exc})") from None
     arr = np.squeeze(arr)
     if arr.ndim != 1 or arr.dtype.kind not in "iuf":
-        raise FileFormatError(path, "", f"expected a 1-D numeric array, got {arr.dtype} "
-                                        f"of shape {arr.shape}")  # fmt: skip
+        raise FileFormatError(
+            path, "", f"expected a 1-D numeric array, got {arr.dtype} of shape {arr.shape}"
+        )
     return arr.astype(np.float64), float(dt), 0.0
 
 
@@ -148,9 +150,15 @@ def measure_file(
     i, step, t0 = read_trace(path, dt=dt, shunt_ohms=shunt_ohms)
     n_pre = int(math.ceil(-t0 / step)) if t0 < 0 else 0
     n_base = n_pre if n_pre >= _MIN_PRE else max(1, i.size // 10)
-    res = event_metrics(i[None, :], dt=step, t0=t0, n_baseline=n_base,
-                        charge_volts=charge_volts, load_ohms=load_ohms,
-                        noise_factor=noise_factor)  # fmt: skip
+    res = event_metrics(
+        i[None, :],
+        dt=step,
+        t0=t0,
+        n_baseline=n_base,
+        charge_volts=charge_volts,
+        load_ohms=load_ohms,
+        noise_factor=noise_factor,
+    )
     out: dict[str, Any] = {k: v[0].item() for k, v in res.items()}
     out.update(dt_s=step, t0_s=t0, n_samples=int(i.size), file=str(path))
     return out

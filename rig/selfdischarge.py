@@ -39,9 +39,18 @@ log = logging.getLogger(__name__)
 DEFAULT_SAFE_VOLTS = 60.0
 SWEEP_KEYS: tuple[str, ...] = ("meter", "serial", "mode", "volts", "load")
 SELFDISCHARGE_COLUMNS: tuple[str, ...] = (
-    "meter", "serial", "mode", "volts", "load", "tau_s", "tau_ci_low", "tau_ci_high",
-    "safe_charge_c", "delay_to_safe_s", "n_delays",
-)  # fmt: skip
+    "meter",
+    "serial",
+    "mode",
+    "volts",
+    "load",
+    "tau_s",
+    "tau_ci_low",
+    "tau_ci_high",
+    "safe_charge_c",
+    "delay_to_safe_s",
+    "n_delays",
+)
 
 
 class SweepFit(tuple):
@@ -110,8 +119,9 @@ def delay_curve(metrics: pd.DataFrame) -> pd.DataFrame:
     m["abs_charge_c"] = m["charge_c"].abs()
     m["abs_peak"] = m["peak_a"].abs()
     g = m.groupby([*SWEEP_KEYS, "delay_s"], dropna=False, sort=True)
-    out = g.agg(n=("charge_c", "size"), charge_c=("abs_charge_c", "median"),
-                peak_a=("abs_peak", "median")).reset_index()  # fmt: skip
+    out = g.agg(
+        n=("charge_c", "size"), charge_c=("abs_charge_c", "median"), peak_a=("abs_peak", "median")
+    ).reset_index()
     return out
 
 
@@ -149,9 +159,16 @@ def self_discharge(
             delay = max(0.0, fit.tau_s * math.log(fit.q0_c / q_safe)) if fit.q0_c > q_safe else 0.0
         else:
             delay = math.nan
-        rows.append({**dict(zip(SWEEP_KEYS, key, strict=True)), "tau_s": fit.tau_s,
-                     "tau_ci_low": fit.tau_ci_low, "tau_ci_high": fit.tau_ci_high,
-                     "safe_charge_c": q_safe, "delay_to_safe_s": delay,
-                     "n_delays": n_delays})  # fmt: skip
+        rows.append(
+            {
+                **dict(zip(SWEEP_KEYS, key, strict=True)),
+                "tau_s": fit.tau_s,
+                "tau_ci_low": fit.tau_ci_low,
+                "tau_ci_high": fit.tau_ci_high,
+                "safe_charge_c": q_safe,
+                "delay_to_safe_s": delay,
+                "n_delays": n_delays,
+            }
+        )
     log.info("self-discharge fitted for %s group(s)", len(rows))
     return pd.DataFrame(rows, columns=list(SELFDISCHARGE_COLUMNS))

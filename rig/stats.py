@@ -51,14 +51,44 @@ log = logging.getLogger(__name__)
 
 GROUP_KEYS: tuple[str, ...] = ("meter", "serial", "mode", "volts", "load", "delay_s")
 GROUPS_COLUMNS: tuple[str, ...] = (
-    "meter", "serial", "mode", "volts", "load", "delay_s", "metric", "n_planned",
-    "n_captured", "mean", "std", "median", "median_ci_low", "median_ci_high", "p95", "p99",
-    "max", "utl", "utl_confidence", "utl_coverage", "limit", "share_over_limit", "verdict",
-)  # fmt: skip
+    "meter",
+    "serial",
+    "mode",
+    "volts",
+    "load",
+    "delay_s",
+    "metric",
+    "n_planned",
+    "n_captured",
+    "mean",
+    "std",
+    "median",
+    "median_ci_low",
+    "median_ci_high",
+    "p95",
+    "p99",
+    "max",
+    "utl",
+    "utl_confidence",
+    "utl_coverage",
+    "limit",
+    "share_over_limit",
+    "verdict",
+)
 DEFAULT_METRICS: tuple[str, ...] = (
-    "peak_a", "charge_c", "energy_j", "rise_s", "decay_s", "tau_s", "fwhm_s", "pulses",
-    "c_equiv_f", "r_equiv_ohm", "ind_hbm_volts", "ind_iec61010_charge_ratio",
-)  # fmt: skip
+    "peak_a",
+    "charge_c",
+    "energy_j",
+    "rise_s",
+    "decay_s",
+    "tau_s",
+    "fwhm_s",
+    "pulses",
+    "c_equiv_f",
+    "r_equiv_ohm",
+    "ind_hbm_volts",
+    "ind_iec61010_charge_ratio",
+)
 SIGNED = frozenset({"peak_a", "charge_c"})
 STATISTICS = ("utl", "max", "p99", "p95", "median", "mean")
 MIN_EVENTS = 5
@@ -145,8 +175,9 @@ def limits_from_manifest(manifest: Mapping[str, Any], source: str | Path = "mani
             raise FileFormatError(source, f"{key}.max", "missing or not a number") from None
         stat = lim.get("statistic", "utl")
         if stat not in STATISTICS:
-            raise FileFormatError(source, f"{key}.statistic",
-                                  f"{stat!r} is not one of {', '.join(STATISTICS)}")  # fmt: skip
+            raise FileFormatError(
+                source, f"{key}.statistic", f"{stat!r} is not one of {', '.join(STATISTICS)}"
+            )
         entry = {"metric": lim["metric"], "max": value, "statistic": stat}
         for sel in ("modes", "volts", "loads"):
             v = lim.get(sel)
@@ -171,12 +202,22 @@ def _key(row: Mapping[str, Any]) -> tuple:
     return tuple(row.get(k) for k in GROUP_KEYS)
 
 
-def _summary(v: np.ndarray, confidence: float, coverage: float, rng: np.random.Generator,
-             n_boot: int) -> dict[str, float]:  # fmt: skip
+def _summary(
+    v: np.ndarray, confidence: float, coverage: float, rng: np.random.Generator, n_boot: int
+) -> dict[str, float]:
     nan = math.nan
     if v.size == 0:
-        return dict(mean=nan, std=nan, median=nan, median_ci_low=nan, median_ci_high=nan,
-                    p95=nan, p99=nan, max=nan, utl=nan)  # fmt: skip
+        return dict(
+            mean=nan,
+            std=nan,
+            median=nan,
+            median_ci_low=nan,
+            median_ci_high=nan,
+            p95=nan,
+            p99=nan,
+            max=nan,
+            utl=nan,
+        )
     lo, hi = bootstrap_ci([v], _median, confidence=confidence, n_resamples=n_boot, rng=rng)
     return {
         "mean": float(v.mean()),
@@ -237,24 +278,34 @@ def group_stats(
             if name in SIGNED:
                 v = np.abs(v)
             summ = _summary(v, confidence, coverage, rng, n_boot)
-            base = {**gdict, "metric": name, "n_planned": n_planned, "n_captured": n_captured,
-                    **summ, "utl_confidence": confidence, "utl_coverage": coverage}  # fmt: skip
+            base = {
+                **gdict,
+                "metric": name,
+                "n_planned": n_planned,
+                "n_captured": n_captured,
+                **summ,
+                "utl_confidence": confidence,
+                "utl_coverage": coverage,
+            }
             applicable = [
-                lim for lim in limits
+                lim
+                for lim in limits
                 if lim["metric"] == name
                 and _applies(lim, gdict["mode"], gdict["volts"], gdict["load"])
-            ]  # fmt: skip
+            ]
             if not applicable:
-                rows.append({**base, "limit": math.nan, "share_over_limit": math.nan,
-                             "verdict": ""})  # fmt: skip
+                rows.append(
+                    {**base, "limit": math.nan, "share_over_limit": math.nan, "verdict": ""}
+                )
             for lim in applicable:
                 share = float(np.mean(v > lim["max"])) if v.size else math.nan
                 if v.size < min_events or not np.isfinite(summ[lim["statistic"]]):
                     verdict = "insufficient"
                 else:
                     verdict = "pass" if summ[lim["statistic"]] <= lim["max"] else "fail"
-                rows.append({**base, "limit": lim["max"], "share_over_limit": share,
-                             "verdict": verdict})  # fmt: skip
+                rows.append(
+                    {**base, "limit": lim["max"], "share_over_limit": share, "verdict": verdict}
+                )
     out = pd.DataFrame(rows, columns=list(GROUPS_COLUMNS))
     log.info("%s group x metric rows, %s verdicts", len(out), int((out["verdict"] != "").sum()))
     return out

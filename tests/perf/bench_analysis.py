@@ -115,8 +115,15 @@ def main() -> None:
     rng = np.random.default_rng(20261201)
     codes = make_events(args.events, args.samples, rng)
     raw_mb = codes.nbytes / 1e6
-    kw = dict(dt=DT, t0=-PRE * args.samples * DT, gain=GAIN, code_min=-128, code_max=127,
-              charge_volts=500.0, load_ohms=10.0)  # fmt: skip
+    kw = dict(
+        dt=DT,
+        t0=-PRE * args.samples * DT,
+        gain=GAIN,
+        code_min=-128,
+        code_max=127,
+        charge_volts=500.0,
+        load_ohms=10.0,
+    )
 
     one_pass(codes[:100])  # warm-up
     event_metrics(codes[:100], **kw)
@@ -152,12 +159,16 @@ def main() -> None:
     print(f"one numpy pass:      {t_pass:8.3f} s  (float32 conversion + abs max per row)")
     print(f"ratio:               {t_full / t_pass:8.2f}   (target <= 5)")
     print(f"naive scipy loop:    {per_naive * 1e3:8.2f} ms/event on {len(sub)} events")
-    print(f"speed-up:            {per_naive / per_vec:8.0f} x (vs the full run's per-event time;"
-          f" {per_naive * len(sub) / t_vec_sub:.0f} x vs the same {len(sub)} events vectorised)"
-          "  (target >= 50)")  # fmt: skip
-    print(f"peak working memory: {peak_mem / 1e6:8.1f} MB (tracemalloc) = "
-          f"{peak_mem / codes.nbytes:.2f} x raw; raw + working = "
-          f"{(codes.nbytes + peak_mem) / codes.nbytes:.2f} x raw  (target < 2)")  # fmt: skip
+    print(
+        f"speed-up:            {per_naive / per_vec:8.0f} x (vs the full run's per-event time;"
+        f" {per_naive * len(sub) / t_vec_sub:.0f} x vs the same {len(sub)} events vectorised)"
+        "  (target >= 50)"
+    )
+    print(
+        f"peak working memory: {peak_mem / 1e6:8.1f} MB (tracemalloc) = "
+        f"{peak_mem / codes.nbytes:.2f} x raw; raw + working = "
+        f"{(codes.nbytes + peak_mem) / codes.nbytes:.2f} x raw  (target < 2)"
+    )
     flagged = int(res["flag_below_noise"].sum())
     print(f"sanity: {flagged} events below noise, pulses histogram {np.bincount(res['pulses'])}")
 

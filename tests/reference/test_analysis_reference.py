@@ -54,8 +54,16 @@ def hbm():
         rows.append(codes)
         gains.append(gain)
         taus.append(tau_slow)
-    m = event_metrics(np.stack(rows), dt=HBM_DT, t0=t0, gain=np.array(gains),
-                      code_min=-128, code_max=127, charge_volts=volts, load_ohms=HBM_R)  # fmt: skip
+    m = event_metrics(
+        np.stack(rows),
+        dt=HBM_DT,
+        t0=t0,
+        gain=np.array(gains),
+        code_min=-128,
+        code_max=127,
+        charge_volts=volts,
+        load_ohms=HBM_R,
+    )
     return volts, m, np.array(taus)
 
 
@@ -108,8 +116,9 @@ def test_hbm_moment_ratio_gives_rc():
     n = 20_000
     t = HBM_DT * np.arange(n)
     i, _ = rlc_discharge(1000.0, t)
-    m = event_metrics(i[None, :], dt=HBM_DT, t0=0.0, n_baseline=1, charge_volts=1000.0,
-                      load_ohms=HBM_R)  # fmt: skip
+    m = event_metrics(
+        i[None, :], dt=HBM_DT, t0=0.0, n_baseline=1, charge_volts=1000.0, load_ohms=HBM_R
+    )
     m1 = float(np.sum(t * i) * HBM_DT)
     assert m1 / m["charge_c"][0] == pytest.approx(HBM_R * HBM_C, rel=0.005)
 
@@ -183,9 +192,11 @@ def test_fitted_decay_matches_curve_fit_on_noisy_exponentials():
     for k in range(len(taus)):
         tail = t >= 0
         (a_fit, tau_fit), _ = curve_fit(
-            lambda tt, a, tau: a * np.exp(-tt / tau), t[tail], data[k, tail],
+            lambda tt, a, tau: a * np.exp(-tt / tau),
+            t[tail],
+            data[k, tail],
             p0=(amps[k], taus[k] * 1.3),
-        )  # fmt: skip
+        )
         assert m["tau_s"][k] == pytest.approx(tau_fit, rel=0.03)
         assert m["tau_s"][k] == pytest.approx(taus[k], rel=0.05)  # and the truth
 
@@ -197,11 +208,28 @@ def test_pure_noise_is_below_noise_never_a_peak():
     # A record without an event must not report a peak (common practice, no source).
     rng = np.random.default_rng(3)
     codes = np.clip(np.round(rng.normal(0.0, 3.0, (20, 20_000))), -128, 127).astype(np.int8)
-    m = event_metrics(codes, dt=1e-9, t0=-2e-6, gain=0.01, code_min=-128, code_max=127,
-                      charge_volts=500.0, load_ohms=1.0)  # fmt: skip
+    m = event_metrics(
+        codes,
+        dt=1e-9,
+        t0=-2e-6,
+        gain=0.01,
+        code_min=-128,
+        code_max=127,
+        charge_volts=500.0,
+        load_ohms=1.0,
+    )
     assert m["flag_below_noise"].all()
-    for k in ("peak_a", "abs_peak_a", "t_peak_s", "rise_s", "decay_s", "tau_s", "fwhm_s",
-              "ind_hbm_volts", "r_equiv_ohm"):  # fmt: skip
+    for k in (
+        "peak_a",
+        "abs_peak_a",
+        "t_peak_s",
+        "rise_s",
+        "decay_s",
+        "tau_s",
+        "fwhm_s",
+        "ind_hbm_volts",
+        "r_equiv_ohm",
+    ):
         assert np.isnan(m[k]).all(), k
     assert (m["pulses"] == 0).all() and (m["polarity"] == 0).all()
     # noise estimate: 1.4826 x MAD estimates sigma for normal noise (common practice)

@@ -49,10 +49,12 @@ def test_bootstrap_median_ci_matches_scipy_bootstrap():
     # different resamples, so the ends agree to Monte Carlo precision only.
     rng = np.random.default_rng(17)
     x = rng.lognormal(0.0, 0.4, 40)
-    lo, hi = bootstrap_ci([x], lambda a: np.median(a, axis=-1), n_resamples=20_000,
-                          rng=np.random.default_rng(1))  # fmt: skip
-    ref = sps.bootstrap((x,), np.median, n_resamples=20_000, method="percentile",
-                        rng=np.random.default_rng(2))  # fmt: skip
+    lo, hi = bootstrap_ci(
+        [x], lambda a: np.median(a, axis=-1), n_resamples=20_000, rng=np.random.default_rng(1)
+    )
+    ref = sps.bootstrap(
+        (x,), np.median, n_resamples=20_000, method="percentile", rng=np.random.default_rng(2)
+    )
     spread = x.std()
     assert lo == pytest.approx(ref.confidence_interval.low, abs=0.05 * spread)
     assert hi == pytest.approx(ref.confidence_interval.high, abs=0.05 * spread)
@@ -63,9 +65,13 @@ def test_ratio_of_medians_ci_matches_scipy_bootstrap():
     rng = np.random.default_rng(23)
     a, b = rng.lognormal(0.1, 0.3, 30), rng.lognormal(0.0, 0.3, 25)
     res = compare_samples(a, b, rng=np.random.default_rng(3), n_boot=20_000)
-    ref = sps.bootstrap((a, b), lambda x, y, axis=-1: np.median(x, axis) / np.median(y, axis),
-                        n_resamples=20_000, method="percentile",
-                        rng=np.random.default_rng(4))  # fmt: skip
+    ref = sps.bootstrap(
+        (a, b),
+        lambda x, y, axis=-1: np.median(x, axis) / np.median(y, axis),
+        n_resamples=20_000,
+        method="percentile",
+        rng=np.random.default_rng(4),
+    )
     assert res["ratio"] == pytest.approx(np.median(a) / np.median(b))
     assert res["ratio_ci_low"] == pytest.approx(ref.confidence_interval.low, abs=0.02)
     assert res["ratio_ci_high"] == pytest.approx(ref.confidence_interval.high, abs=0.02)
@@ -102,11 +108,22 @@ def test_group_table_statistics_against_numpy():
     # Reference: numpy percentiles, mean, std (ddof 1) and the exact k1 on one group.
     rng = np.random.default_rng(37)
     v = rng.normal(1.0, 0.1, 25)
-    df = pd.DataFrame({"meter": "m", "serial": "s", "mode": "ACV", "volts": 100.0,
-                       "load": "short", "delay_s": 0.0, "peak_a": -v,
-                       "flag_not_captured": False})  # fmt: skip
-    limits = [{"metric": "peak_a", "max": 1.2, "statistic": "p95"},
-              {"metric": "peak_a", "max": 1.2, "statistic": "utl"}]  # fmt: skip
+    df = pd.DataFrame(
+        {
+            "meter": "m",
+            "serial": "s",
+            "mode": "ACV",
+            "volts": 100.0,
+            "load": "short",
+            "delay_s": 0.0,
+            "peak_a": -v,
+            "flag_not_captured": False,
+        }
+    )
+    limits = [
+        {"metric": "peak_a", "max": 1.2, "statistic": "p95"},
+        {"metric": "peak_a", "max": 1.2, "statistic": "utl"},
+    ]
     g = group_stats(df, None, limits, metric_names=("peak_a",), rng=np.random.default_rng(0))
     assert len(g) == 2
     row = g.iloc[0]

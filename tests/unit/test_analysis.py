@@ -67,15 +67,31 @@ def make_run(
         for v in volts:
             for d in delays:
                 for rep in range(reps):
-                    row = {"event": event, "key": f"{mode}/{v:g}/short/{d:g}/{rep}",
-                           "meter": "Fictitia FM-1", "serial": serial, "mode": mode,
-                           "volts": v, "load": "short", "load_ohms": 0.05, "delay_s": d,
-                           "rep": rep}  # fmt: skip
+                    row = {
+                        "event": event,
+                        "key": f"{mode}/{v:g}/short/{d:g}/{rep}",
+                        "meter": "Fictitia FM-1",
+                        "serial": serial,
+                        "mode": mode,
+                        "volts": v,
+                        "load": "short",
+                        "load_ohms": 0.05,
+                        "delay_s": d,
+                        "rep": rep,
+                    }
                     plan.append(dict(row))
                     if event in drop:
-                        journal.append({**row, "status": "not_captured", "file": None,
-                                        "sha256": None, "time": "2026-12-01T10:00:00Z",
-                                        "supply_volts": v, "residual_volts": None})  # fmt: skip
+                        journal.append(
+                            {
+                                **row,
+                                "status": "not_captured",
+                                "file": None,
+                                "sha256": None,
+                                "time": "2026-12-01T10:00:00Z",
+                                "supply_volts": v,
+                                "residual_volts": None,
+                            }
+                        )
                         event += 1
                         continue
                     v_left = v * math.exp(-d / sd_tau)
@@ -86,19 +102,36 @@ def make_run(
                     codes = np.round(i / GAIN + rng.normal(0.0, 0.7, N))
                     wf = Waveform(
                         codes=np.clip(codes, -32768, 32767).astype(np.int16)[None, :],
-                        gain=np.array([GAIN]), offset=np.array([0.0]),
-                        code_min=np.array([-32768]), code_max=np.array([32767]),
-                        dt=DT, t0=float(t[0]), channels=("current",), units=("A",),
-                    )  # fmt: skip
+                        gain=np.array([GAIN]),
+                        offset=np.array([0.0]),
+                        code_min=np.array([-32768]),
+                        code_max=np.array([32767]),
+                        dt=DT,
+                        t0=float(t[0]),
+                        channels=("current",),
+                        units=("A",),
+                    )
                     rel = f"waveforms/e{event:06d}.npz"
                     sha = save_waveform(run / rel, wf)
-                    journal.append({**row, "status": "captured", "file": rel, "sha256": sha,
-                                    "time": "2026-12-01T10:00:00Z", "supply_volts": v,
-                                    "residual_volts": 0.5})  # fmt: skip
+                    journal.append(
+                        {
+                            **row,
+                            "status": "captured",
+                            "file": rel,
+                            "sha256": sha,
+                            "time": "2026-12-01T10:00:00Z",
+                            "supply_volts": v,
+                            "residual_volts": 0.5,
+                        }
+                    )
                     event += 1
-    manifest = {"format": 1, "run_id": name, "status": "complete",
-                "sequence": {"name": "invented qualification", "limits": limits or []},
-                "bench": {"limits": {"safe_residual_volts": 30.0}}}  # fmt: skip
+    manifest = {
+        "format": 1,
+        "run_id": name,
+        "status": "complete",
+        "sequence": {"name": "invented qualification", "limits": limits or []},
+        "bench": {"limits": {"safe_residual_volts": 30.0}},
+    }
     (run / "manifest.json").write_text(json.dumps(manifest), encoding="utf-8")
     (run / "plan.json").write_text(json.dumps(plan), encoding="utf-8")
     with open(run / "journal.jsonl", "w", encoding="utf-8") as fh:
@@ -187,22 +220,49 @@ def test_indicators():
 @pytest.fixture
 def limits():
     return [
-        {"metric": "charge_c", "max": 150e-9, "statistic": "utl", "modes": ["ACV"],
-         "volts": None, "loads": None},
-        {"metric": "peak_a", "max": 1.0, "statistic": "max", "modes": None, "volts": [100.0],
-         "loads": ["short"]},
-    ]  # fmt: skip
+        {
+            "metric": "charge_c",
+            "max": 150e-9,
+            "statistic": "utl",
+            "modes": ["ACV"],
+            "volts": None,
+            "loads": None,
+        },
+        {
+            "metric": "peak_a",
+            "max": 1.0,
+            "statistic": "max",
+            "modes": None,
+            "volts": [100.0],
+            "loads": ["short"],
+        },
+    ]
 
 
 def test_analyze_run_end_to_end(tmp_path, limits):
-    run = make_run(tmp_path, "r1", rng=np.random.default_rng(1), limits=limits,
-                   drop={3}, noise_only={12})  # fmt: skip
+    run = make_run(
+        tmp_path, "r1", rng=np.random.default_rng(1), limits=limits, drop={3}, noise_only={12}
+    )
     res = analyze_run(run)
     assert res.metrics_path.exists() and res.groups_path.exists()
     assert res.selfdischarge is None and "selfdischarge" not in res.paths
     m = pd.read_parquet(res.metrics_path)
-    journal_cols = ["event", "key", "meter", "serial", "mode", "volts", "load", "load_ohms",
-                    "delay_s", "rep", "status", "file", "sha256", *JOURNAL_EXTRA]  # fmt: skip
+    journal_cols = [
+        "event",
+        "key",
+        "meter",
+        "serial",
+        "mode",
+        "volts",
+        "load",
+        "load_ohms",
+        "delay_s",
+        "rep",
+        "status",
+        "file",
+        "sha256",
+        *JOURNAL_EXTRA,
+    ]
     assert list(m.columns) == journal_cols + list(METRIC_COLUMNS)
     assert m.loc[m.event == 3, "flag_not_captured"].all()
     assert np.isnan(m.loc[m.event == 3, "peak_a"]).all()
@@ -250,8 +310,14 @@ def test_run_folder_errors_name_the_file(tmp_path):
 
 
 def test_self_discharge_on_exponential_data(tmp_path):
-    run = make_run(tmp_path, "sweep", rng=np.random.default_rng(4), reps=4,
-                   delays=(0.0, 1.0, 2.0, 4.0), sd_tau=3.0)  # fmt: skip
+    run = make_run(
+        tmp_path,
+        "sweep",
+        rng=np.random.default_rng(4),
+        reps=4,
+        delays=(0.0, 1.0, 2.0, 4.0),
+        sd_tau=3.0,
+    )
     res = analyze_run(run)
     sd = pd.read_csv(res.selfdischarge_path)
     assert list(sd.columns) == list(SELFDISCHARGE_COLUMNS)
@@ -277,9 +343,20 @@ def test_fit_self_discharge_against_numpy_polyfit():
     assert fit.q0_c == pytest.approx(math.exp(icpt), rel=1e-9)
     assert fit.tau_ci_low < fit.tau_s < fit.tau_ci_high
     assert math.isnan(fit_self_discharge([1.0, 1.0, 1.0], [1, 2, 3]).tau_s)
-    df = pd.DataFrame({"meter": "m", "serial": "s", "mode": "ACV", "volts": 100.0,
-                       "load": "short", "delay_s": d, "charge_c": q, "flag_not_captured": False,
-                       "c_equiv_f": q / 100.0, "peak_a": q * 1e6})  # fmt: skip
+    df = pd.DataFrame(
+        {
+            "meter": "m",
+            "serial": "s",
+            "mode": "ACV",
+            "volts": 100.0,
+            "load": "short",
+            "delay_s": d,
+            "charge_c": q,
+            "flag_not_captured": False,
+            "c_equiv_f": q / 100.0,
+            "peak_a": q * 1e6,
+        }
+    )
     sd = self_discharge(df, safe_charge_c=0.1e-6)
     assert sd["delay_to_safe_s"][0] == pytest.approx(fit.tau_s * math.log(fit.q0_c / 0.1e-6))
 
@@ -289,10 +366,10 @@ def test_fit_self_discharge_against_numpy_polyfit():
 
 def test_compare_equivalent_different_and_missing(tmp_path):
     base = make_run(tmp_path, "base", rng=np.random.default_rng(10), reps=12)
-    same = make_run(tmp_path, "same", rng=np.random.default_rng(11), reps=12,
-                    serial="SN-0002")  # fmt: skip
-    worse = make_run(tmp_path, "worse", rng=np.random.default_rng(12), reps=12, scale=1.3,
-                     volts=(100.0, 200.0))  # fmt: skip
+    same = make_run(tmp_path, "same", rng=np.random.default_rng(11), reps=12, serial="SN-0002")
+    worse = make_run(
+        tmp_path, "worse", rng=np.random.default_rng(12), reps=12, scale=1.3, volts=(100.0, 200.0)
+    )
     analyze_run(base)  # one analysed, the others computed in memory
 
     df = compare_runs(same, base)

@@ -24,8 +24,9 @@ def test_load_run_journal_then_metrics(tmp_path):
 
 
 def test_group_waveforms_and_one_event(tmp_path):
-    run = make_run(tmp_path, "api2", rng=np.random.default_rng(2), reps=4, drop={1},
-                   volts=(100.0, 200.0))  # fmt: skip
+    run = make_run(
+        tmp_path, "api2", rng=np.random.default_rng(2), reps=4, drop={1}, volts=(100.0, 200.0)
+    )
     t, values, rows = group_waveforms(run, mode="ACV", volts=200.0)
     assert values.shape == (4, N) and len(rows) == 4
     assert set(rows["volts"]) == {200.0} and set(rows["mode"]) == {"ACV"}
