@@ -14,6 +14,12 @@ from drivers.errors import (
     SafetyError,
     ScpiError,
 )
+from drivers.metermode import ManualMeterMode, MeterMode, ScpiMeterMode
+from drivers.profile import Profile
+from drivers.scope import Scope, Trace
+from drivers.session import ScpiSession
+from drivers.supply import Supply
+from drivers.switch import SwitchBoard
 
 __all__ = [
     "BlockFormatError",
@@ -30,4 +36,14 @@ __all__ = [
     "SafetyError",
     "ScpiError",
     "VirtualClock",
+    # instrument layer
+    "ManualMeterMode",
+    "MeterMode",
+    "Profile",
+    "Scope",
+    "ScpiMeterMode",
+    "ScpiSession",
+    "Supply",
+    "SwitchBoard",
+    "Trace",
 ]
