@@ -362,7 +362,7 @@ def _parse_channel_list(text: str) -> tuple[int, ...]:
 
 
 def _parse_one(text: str) -> Param:
-    t = text.strip()
+    t = text.strip(WHITESPACE)
     if not t:
         raise CommandRejected(-102, "empty parameter")
     if t[0] in "'\"":
@@ -432,7 +432,7 @@ def split_units(message: str) -> list[str]:
 
 def parse_params(text: str) -> list[Param]:
     """Parse the comma-separated program data of one message unit."""
-    if not text.strip():
+    if not text.strip(WHITESPACE):
         return []
     return [_parse_one(p) for p in _split_outside(text, ",")]
 
@@ -475,7 +475,10 @@ class Call:
 
 _HEADER = re.compile(r"^:?[A-Za-z][A-Za-z0-9_]*(?::[A-Za-z][A-Za-z0-9_]*)*\??$")
 _COMMON = re.compile(r"^\*[A-Za-z]+\??$")
-_INVALID_CHAR = re.compile(r"[^\x20-\x7e\t]")
+# IEEE 488.2 7.4.1.2 [M]: white space is any byte 0x00-0x09 or 0x0B-0x20 (LF terminates)
+WHITESPACE = "".join(chr(c) for c in [*range(0x00, 0x0A), *range(0x0B, 0x21)])
+_INVALID_CHAR = re.compile(r"[\x7f-\xff]")
+_HEADER_SPLIT = re.compile(r"^([^\x00-\x09\x0b-\x20]+)[\x00-\x09\x0b-\x20]*(.*)$", re.S)
 
 UnitFilter = Callable[[str], "CommandRejected | None"]
 
@@ -608,10 +611,9 @@ class ScpiDevice:
             text = bytes(message).decode("latin-1")
         else:
             text = message
-        text = text.rstrip("\r")
         with self.lock:
             responses: list = []
-            if not text.strip():
+            if not text.strip(WHITESPACE):
                 return responses
             try:
                 units = split_units(text)
@@ -640,13 +642,13 @@ class ScpiDevice:
         unit_filter: UnitFilter | None,
     ) -> list[str]:
         if _INVALID_CHAR.search(unit):
-            raise CommandRejected(-101, "byte outside printable ASCII")
-        stripped = unit.strip()
+            raise CommandRejected(-101, "byte outside 7-bit ASCII")
+        stripped = unit.strip(WHITESPACE)
         if not stripped:
             raise CommandRejected(-102, "empty message unit")
-        parts = stripped.split(None, 1)
-        header = parts[0]
-        param_text = parts[1] if len(parts) > 1 else ""
+        m = _HEADER_SPLIT.match(stripped)
+        assert m is not None  # stripped is not empty and starts with a non-blank byte
+        header, param_text = m.group(1), m.group(2)
         is_common = header.startswith("*")
         if is_common:
             if not _COMMON.match(header):

@@ -282,7 +282,7 @@ def test_rst_keeps_the_queue_cls_clears_it(dev: _Probe) -> None:
 
 @pytest.mark.parametrize(
     ("line", "code"),
-    [(b"\xff\xfe", -101), (b"VOLT 1\x00", -101), (b"VOLT 'abc", -102), (b"VOLT (1", -102),
+    [(b"\xff\xfe", -101), (b"VOLT 1\x7f", -101), (b"\x00VOL\x00T 1", -113), (b"VOLT 'abc", -102), (b"VOLT (1", -102),
      (b";", -102), (b"VOLT 1;;VOLT 2", -102), (b"1VOLT", -102), (b"*", -102), (b"*XYZ", -113),
      (b"VOLT@ 3", -102), (b"VOLT 1,", -102), (b"\xc3\xa9", -101)],
 )  # fmt: skip
@@ -293,9 +293,12 @@ def test_bad_lines_leave_standard_errors(dev: _Probe, line: bytes, code: int) ->
 
 
 def test_whitespace_lines_are_ignored(dev: _Probe) -> None:
-    for line in (b"", b"   ", b"\r", b"\t"):
+    # IEEE 488.2 7.4.1.2 [M]: bytes 0x00-0x09 and 0x0B-0x20 are white space
+    for line in (b"", b"   ", b"\r", b"\t", b"\x00\x01\x1f"):
         assert dev.execute(line) == []
     assert _errors(dev) == []
+    dev.execute(b"\x00VOLT\x01\x027\r")
+    assert dev.volts == 7.0 and _errors(dev) == []
 
 
 # -- blocks --------------------------------------------------------------------------------------
