@@ -224,12 +224,13 @@ class StateSpace:
             x = Phi @ x + Gam @ u
         dts = np.diff(t)
         X[:, 0] = x
-        j = 1
-        while j < t.size:
-            h = dts[j - 1]
-            run = 1
-            while j - 1 + run < dts.size and abs(dts[j - 1 + run] - h) <= 1e-9 * max(h, 1e-30):
-                run += 1
+        if not dts.size:
+            return X
+        # runs of equal steps (uniform grids are one run): boundaries found once, vectorised
+        change = np.abs(np.diff(dts)) > 1e-9 * np.maximum(dts[1:], 1e-30)
+        bounds = np.concatenate([[0], np.nonzero(change)[0] + 1, [dts.size]])
+        for r0, r1 in zip(bounds[:-1], bounds[1:], strict=True):
+            j, run, h = int(r0) + 1, int(r1 - r0), float(dts[r0])
             Phi, Gam = self._phi(h)
             g = Gam @ u
             blk = min(run, 512)
@@ -245,7 +246,6 @@ class StateSpace:
                 X[:, j + done : j + done + n] = chunk.T
                 x = chunk[-1]
                 done += n
-            j += run
         return X
 
 

@@ -112,6 +112,18 @@ class BenchWorld:
         self._start_segment(t0, self._circuit.state_vector())
         self._record(t0)
 
+    @property
+    def netlist(self) -> MeterNetlist:
+        """The connected meter's netlist (ground truth for tests)."""
+        with self._lock:
+            return self._netlist
+
+    @property
+    def circuit(self) -> Circuit:
+        """The present bench circuit (meter plus bench parts), e.g. for ``time_constants``."""
+        with self._lock:
+            return self._circuit
+
     # -- construction ------------------------------------------------------------------------
     def _bench_circuit(self, net: MeterNetlist) -> Circuit:
         w, cfg = self.config.wiring, self.config
