@@ -503,6 +503,7 @@ class ScpiDevice:
         self._oper_event = 0
         self._oper_last = 0
         self._oper_enable = 0
+        self._pending_output = False
         self._add_core_commands()
 
     # -- registration ------------------------------------------------------------------------
@@ -622,6 +623,7 @@ class ScpiDevice:
                 return responses
             path: list[str] = []
             for index, unit in enumerate(units):
+                self._pending_output = bool(responses)  # MAV for *STB? inside this message
                 try:
                     path = self._execute_unit(unit, path, index == 0, responses, unit_filter)
                 except CommandRejected as exc:
@@ -709,7 +711,7 @@ class ScpiDevice:
         self.add("*ESR", query=self._esr_query)
         self.add("*ESE", set=self._ese_set, query=lambda c: str(self.ese))
         self.add("*SRE", set=self._sre_set, query=lambda c: str(self.sre))
-        self.add("*STB", query=lambda c: str(self.status_byte()))
+        self.add("*STB", query=lambda c: str(self.status_byte(self._pending_output)))
         self.add("*TST", query=lambda c: str(int(self.self_test())))
         self.add("SYSTem:ERRor[:NEXT]", query=lambda c: self._pop_error())
         self.add("SYSTem:ERRor:COUNt", query=lambda c: str(len(self._errors)))
