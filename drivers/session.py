@@ -75,7 +75,9 @@ _ORDERS = {"big": ">", "little": "<"}
 _MAX_ERRORS_DRAINED = 64  # a queue that never empties must not hang the session
 _DRAIN_QUIET_S = 0.25  # silence that ends a drain (pyvisa-py's clear() waits 0.1 s)
 _MAX_RECV = 4 << 20  # receive size for block payloads (pyvisa-py's default is 4096)
-_ERROR_RE = re.compile(r'^\s*([+-]?\d+)\s*(?:,\s*"?(.*?)"?)?\s*$', re.DOTALL)
+# '<code>,"<message>"': the comma is required, so a stray late answer such as "0" or "1" is
+# never mistaken for an empty error queue
+_ERROR_RE = re.compile(r'^\s*([+-]?\d+)\s*,\s*"?(.*?)"?\s*$', re.DOTALL)
 _CONNECTION_CODES = {
     constants.StatusCode.error_connection_lost,
     constants.StatusCode.error_invalid_object,

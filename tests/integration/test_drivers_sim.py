@@ -20,7 +20,7 @@ from drivers.clock import VirtualClock
 from drivers.errors import BlockFormatError, LimitError, ProfileError, SafetyError, ScpiError
 from drivers.metermode import ManualMeterMode, ScpiMeterMode
 from drivers.profile import Profile
-from drivers.scope import Scope
+from drivers.scope import Scope, Trace
 from drivers.session import ScpiSession
 from drivers.sim.bench import SimBench, start_sim_bench
 from drivers.sim.interfaces import BenchWiring, Faults, LoadSpec, WorldConfig
@@ -171,6 +171,12 @@ def test_refused_setting_raises_scpi_error() -> None:
         assert (info.value.instrument, info.value.code) == ("supply", -200)
         assert info.value.command == PROFILE.command("supply", "set_voltage", volts=20.0)
         assert r.supply.programmed_voltage() == 10.0  # the refused command did nothing
+        r.supply.output(True)  # 3rd setting: accepted
+        with pytest.raises(ScpiError) as info:
+            r.supply.make_safe()  # 4th (output off) refused, 5th (0 V) still sent
+        assert info.value.command == PROFILE.command("supply", "output_off")
+        last = r.world.history()[-1][1]
+        assert (last["supply_on"], last["supply_volts"]) == (True, 0.0)
     finally:
         r.close()
 
@@ -269,6 +275,40 @@ def test_discharge_capture_matches_the_rc_decay(rig: Rig, bits: int, order: str)
     )
 
 
+def test_scope_and_switch_values_are_checked_before_sending(rig: Rig) -> None:
+    scope = rig.sessions["scope"]
+    before = scope.query("SENSe1:VOLTage:RANGe:PTPeak?")
+    good = {
+        "coupling": "DC",
+        "impedance_ohms": 50,
+        "bandwidth_hz": None,
+        "range_volts": 0.5,
+        "offset_volts": 0.0,
+    }
+    for ch, bad in [
+        (5, {}),  # profile: inputs 1..4
+        (1, {"coupling": "GND"}),
+        (1, {"range_volts": 0.0}),
+        (1, {"bandwidth_hz": -1.0}),
+        (1, {"offset_volts": float("inf")}),
+    ]:
+        with pytest.raises(LimitError):
+            rig.scope.configure_channel(ch, **{**good, **bad})
+    with pytest.raises(LimitError):
+        rig.scope.configure_acquisition(1e-6, 500, 0.0)  # profile: 1000 points at least
+    with pytest.raises(LimitError):
+        rig.scope.configure_trigger(1, 0.1, "sideways")
+    with pytest.raises(LimitError):
+        rig.scope.set_format(12, "big")
+    with pytest.raises(LimitError):
+        rig.scope.wait_complete(rig.clock, timeout_s=1.0, poll_s=0.0)
+    with pytest.raises(LimitError):
+        rig.switch.transfer([1], [1, 2], clock=rig.clock, settle_s=0.0)
+    assert scope.query("SENSe1:VOLTage:RANGe:PTPeak?") == before
+    assert scope.errors() == []
+    assert not any(any(r.values()) for _, r in relays_at(rig.world))
+
+
 def test_wait_complete_gives_up_when_nothing_triggers(rig: Rig) -> None:
     configure_scope(rig.scope, 8, "big")
     rig.scope.arm()
@@ -348,3 +388,13 @@ def test_sessions_ride_through_dropped_links() -> None:
         assert len(calls) >= 3  # reconnected (and re-ran the set-up) again and again
     finally:
         r.close()
+
+
+def test_trace_scaling_follows_the_profile_formula() -> None:
+    # volts = (code - y_reference) * y_increment + y_origin; seconds = x_origin + i * x_increment
+    # (the scaling rule stated in the shipped profile's [scope.preamble_fields] comment)
+    codes = np.array([-128, 0, 10, 127], dtype=np.int8)
+    tr = Trace(codes, 2e-9, -4e-9, 0.5, 1.0, 10.0, 8)
+    np.testing.assert_array_equal(tr.volts(), [-68.0, -4.0, 1.0, 59.5])
+    np.testing.assert_allclose(tr.time(), [-4e-9, -2e-9, 0.0, 2e-9], atol=1e-24)
+    assert tr.volts().dtype == np.float64

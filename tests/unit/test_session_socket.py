@@ -327,9 +327,10 @@ def test_parse_error_reply_forms() -> None:
     assert parse_error_reply('0,"No error"') == (0, "No error")
     assert parse_error_reply('+0,"No error"') == (0, "No error")
     assert parse_error_reply('-222,"Data out of range;""x"""') == (-222, 'Data out of range;"x"')
-    assert parse_error_reply("-100") == (-100, "")
-    with pytest.raises(ValueError):
-        parse_error_reply("No error")
+    assert parse_error_reply("-100,Command error") == (-100, "Command error")  # unquoted
+    for stray in ("No error", "0", "1", "+1.5E+00"):  # a late answer is not an error reply
+        with pytest.raises(ValueError):
+            parse_error_reply(stray)
 
 
 def test_refused_query_reports_the_queued_error(
