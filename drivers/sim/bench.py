@@ -40,13 +40,11 @@ class SimBench:
             self.close()
             raise
         self.resources: dict[str, str] = {r: s.resource for r, s in self.servers.items()}
-        self._closed = False
 
     def close(self) -> None:
         """Stop every server; safe to call twice."""
         for server in self.servers.values():
-            server.close()
-        self._closed = True
+            server.close()  # each server's close() is idempotent
 
     def __enter__(self) -> SimBench:
         return self

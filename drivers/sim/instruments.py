@@ -260,7 +260,7 @@ class _Acquisition:
     inputs: tuple[_Input, ...]
     windows: dict[float, tuple[int, float | None]] = field(default_factory=dict)
     t_trig: float | None = None
-    volts: dict[int, np.ndarray] | None = None
+    volts: dict[int, np.ndarray] | None = None  # per input: volts - offset, float32
 
     def t_last(self) -> float:
         assert self.t_trig is not None
@@ -548,28 +548,33 @@ class SimScope(ScpiDevice):
         return acq, acq.volts[n]
 
     def _make_record(self, acq: _Acquisition) -> dict[int, np.ndarray]:
+        """Samples of every enabled input, stored as float32 volts relative to the input's
+        offset (float32 keeps 16-bit resolution near mid-scale even with a large offset)."""
         assert acq.t_trig is not None
         on = [k + 1 for k, i in enumerate(acq.inputs) if i.on]
         highest = max(on)
         out = {n: np.empty(acq.points, dtype=np.float32) for n in on}
+        noise = float(self.world.config.noise_volts)
+        rc = 1.0 / (2.0 * math.pi * AC_COUPLING_HZ)
+        a = rc / (rc + acq.dt)
+        # AC coupling, first-order high-pass y[k] = a (y[k-1] + x[k] - x[k-1]), its state carried
+        # across chunks; before the record the input is taken as steady at its first value
+        hp_state: dict[int, tuple[float, np.ndarray]] = {}
         t0 = acq.t_trig + acq.x_origin
         for start in range(0, acq.points, _TRIGGER_CHUNK):
             stop = min(acq.points, start + _TRIGGER_CHUNK)
             t = t0 + np.arange(start, stop) * acq.dt
             v = self.world.scope_inputs(t, acq.bandwidths[:highest])
             for n in on:
-                out[n][start:stop] = v[n - 1]
-        noise = float(self.world.config.noise_volts)
-        for n in on:
-            x = out[n].astype(np.float64)
-            if acq.inputs[n - 1].coupling == "AC":
-                # first-order high-pass y[k] = a (y[k-1] + x[k] - x[k-1]), a = RC / (RC + dt)
-                rc = 1.0 / (2.0 * math.pi * AC_COUPLING_HZ)
-                a = rc / (rc + acq.dt)
-                x = lfilter([a], [1.0, -a], np.diff(x, prepend=x[0]))
-            if noise > 0:
-                x = x + self.rng.normal(0.0, noise, acq.points)
-            out[n] = x.astype(np.float32)
+                inp = acq.inputs[n - 1]
+                x = np.asarray(v[n - 1], dtype=np.float64)
+                if inp.coupling == "AC":
+                    prev, zi = hp_state.get(n, (float(x[0]), np.zeros(1)))
+                    x, zi = lfilter([a], [1.0, -a], np.diff(x, prepend=prev), zi=zi)
+                    hp_state[n] = (float(v[n - 1][-1]), zi)
+                if noise > 0:
+                    x = x + self.rng.normal(0.0, noise, stop - start)
+                out[n][start:stop] = x - inp.offset_v
         return out
 
     def _channel_param(self, call: Call) -> int:
@@ -582,9 +587,9 @@ class SimScope(ScpiDevice):
     def _fetch(self, call: Call) -> Block:
         n = self._channel_param(call)
         acq, volts = self._record(n)
-        y_inc, y_off = self._scaling(acq, n)
+        y_inc, _ = self._scaling(acq, n)
         lo, hi = -(2 ** (self.bits - 1)), 2 ** (self.bits - 1) - 1
-        codes = np.clip(np.rint((volts.astype(np.float64) - y_off) / y_inc), lo, hi)
+        codes = np.clip(np.rint(volts.astype(np.float64) / y_inc), lo, hi)  # volts - y_off
         dtype = np.dtype(f"i{self.bits // 8}").newbyteorder("<" if self.swapped else ">")
         return Block(codes.astype(dtype).tobytes())
 
