@@ -398,3 +398,51 @@ def test_trace_scaling_follows_the_profile_formula() -> None:
     np.testing.assert_array_equal(tr.volts(), [-68.0, -4.0, 1.0, 59.5])
     np.testing.assert_allclose(tr.time(), [-4e-9, -2e-9, 0.0, 2e-9], atol=1e-24)
     assert tr.volts().dtype == np.float64
+
+
+def test_drivers_run_the_shipped_bench_world() -> None:
+    """The same drivers against the circuit-engine world that ``start_sim_bench`` builds by
+    default (not the test double): a charge, a discharge and a capture end to end."""
+    clock = VirtualClock()
+    config = WorldConfig(meter_model=METER)
+    with start_sim_bench(config, clock) as sim:
+        sessions = [
+            ScpiSession(res, role, profile=PROFILE, timeout_s=2.0)
+            for role, res in sim.resources.items()
+        ]
+        try:
+            by_role = {s.name: s for s in sessions}
+            supply = Supply(by_role["supply"], PROFILE)
+            switch = SwitchBoard(by_role["switch"], PROFILE)
+            scope = Scope(by_role["scope"], PROFILE)
+            meter = ScpiMeterMode(by_role["meter"], PROFILE)
+            first = sim.world.meter_modes()[0]
+            meter.set_mode(first)
+            assert meter.mode() == first == sim.world.meter_mode()
+            supply.set_current_limit(0.01)
+            supply.set_voltage(100.0)
+            switch.transfer([DISCHARGE, BLEED], [CHARGE], clock=clock, settle_s=1e-3)
+            supply.output(True)
+            clock.sleep(2.0)
+            supply.make_safe()
+            switch.open([CHARGE])
+            assert sim.world.meter_input_volts() > 50.0
+            scope.configure_channel(
+                1,
+                coupling="DC",
+                impedance_ohms=50,
+                bandwidth_hz=None,
+                range_volts=2.0,
+                offset_volts=0.0,
+            )
+            scope.configure_acquisition(1e-9, 5000, -200e-9)
+            scope.configure_trigger(1, 0.02, "either")
+            scope.set_format(16, "big")
+            scope.arm()
+            switch.transfer([CHARGE, BLEED], [DISCHARGE], clock=clock, settle_s=1e-6)
+            assert scope.wait_complete(clock, timeout_s=0.01, poll_s=1e-5)
+            volts = scope.fetch(1).volts()
+            assert np.abs(volts).max() > 0.02  # the event crossed the trigger level
+        finally:
+            for s in sessions:
+                s.close()
