@@ -272,14 +272,16 @@ class _Validator:
     def fail(self, key: str, problem: str) -> ProfileError:
         return ProfileError(self.path, key, problem)
 
-    def table(self, data: Mapping[str, Any], key: str, *, required: bool) -> dict[str, Any] | None:
-        node: Any = data
-        for part in key.split("."):
-            if not isinstance(node, Mapping) or part not in node:
-                if required:
-                    raise self.fail(key, "missing table")
-                return None
-            node = node[part]
+    def table(
+        self, data: Mapping[str, Any], name: str, *, required: bool, where: str = ""
+    ) -> dict[str, Any] | None:
+        """The table ``name`` inside ``data`` (itself at dotted path ``where``), or None."""
+        key = f"{where}.{name}" if where else name
+        if name not in data:
+            if required:
+                raise self.fail(key, "missing table")
+            return None
+        node = data[name]
         if not isinstance(node, Mapping):
             raise self.fail(key, f"must be a table, found {type(node).__name__}")
         return dict(node)
@@ -382,7 +384,7 @@ class _Validator:
             raise self.fail(key, f"format spec does not fit the value: {exc}") from None
 
     def ranges(self, role: str, body: Mapping[str, Any]) -> dict[str, tuple[float, float]]:
-        table = self.table(body, "ranges", required=False)
+        table = self.table(body, "ranges", required=False, where=role)
         if table is None:
             raise self.fail(f"{role}.ranges", "missing table")
         out: dict[str, tuple[float, float]] = {}
@@ -405,7 +407,7 @@ class _Validator:
         return out
 
     def preamble(self, body: Mapping[str, Any]) -> dict[str, int]:
-        table = self.table(body, "preamble_fields", required=False)
+        table = self.table(body, "preamble_fields", required=False, where="scope")
         if table is None:
             raise self.fail("scope.preamble_fields", "missing table")
         out: dict[str, int] = {}
@@ -430,7 +432,7 @@ class _Validator:
         return out
 
     def functions(self, body: Mapping[str, Any]) -> dict[str, str]:
-        table = self.table(body, "functions", required=False)
+        table = self.table(body, "functions", required=False, where="meter")
         if not table:
             raise self.fail("meter.functions", "missing or empty table (mode name -> function)")
         out: dict[str, str] = {}

@@ -115,6 +115,8 @@ CASES = [
     ("functions-missing", lambda t: drop_table(t, "meter.functions"), "meter.functions", "missing"),
     ("function-empty", lambda t: edit(t, "meter.functions", '"AC V"', '""'), "meter.functions", "non-empty"),
     ("table-is-value", lambda t: drop_table(t, "common") + 'common = "x"\n', "common", "table"),
+    ("ranges-is-value", lambda t: edit(drop_table(t, "supply.ranges"), "supply", "ranges", "5"), "supply.ranges", "must be a table"),
+    ("functions-is-value", lambda t: edit(drop_table(t, "meter.functions"), "meter", "functions", '"x"'), "meter.functions", "must be a table"),
 ]  # fmt: skip
 
 
