@@ -458,3 +458,42 @@ def test_never_triggers_fault(rm: pyvisa.ResourceManager) -> None:
         finally:
             for i in opened.values():
                 i.close()
+
+
+def test_sixteen_bit_codes_with_a_large_offset(rm: pyvisa.ResourceManager) -> None:
+    # no noise, divider ratio 1: input 2 carries the meter voltage (about 50 V); a 10 mV range
+    # around a 49.5 V offset must still resolve 10 mV / 65536 = 0.15 uV steps
+    wiring = replace(WIRING, divider_ratio=1.0)
+    config = replace(CONFIG, wiring=wiring, noise_volts=0.0)
+    with _start(config) as sim:
+        opened = {role: open_instrument(rm, res) for role, res in sim.resources.items()}
+        try:
+            assert opened["meter"].query('FUNC "VOLT:AC";*OPC?') == "1"
+            _charge(opened, sim)
+            sim.world.clock.sleep(1e-3)  # self-discharge through the leak from here on
+            scope = opened["scope"]
+            offset = round(sim.world.meter_input_volts(), 4)
+            assert (
+                scope.query(
+                    f"SENS2:VOLT:RANG 0.01;OFFS {offset};:SENS:SWE:TINT 1e-9;POIN 1000;"
+                    f"OFFS:TIME -5e-7;:TRIG:SOUR INT1;LEV 0.1;SLOP POS;:FORM INT,16;:INIT;*OPC?"
+                )
+                == "1"
+            )
+            _discharge(opened)
+            sim.world.clock.sleep(1e-3)
+            pre = _preamble(scope, 2)
+            codes = np.asarray(
+                from_ieee_block(query_raw_block(scope, "TRAC:DATA? INT2")[:-1], "h", True, np.array)
+            )
+            t_trig = sim.world.history()[-1][0]  # the discharge relay closing (ground truth)
+            t = t_trig + pre["x_origin"] + np.arange(codes.size) * pre["x_increment"]
+            truth = sim.world.scope_inputs(t, [None, None])[1]
+            expected = np.clip(np.rint((truth - offset) / pre["y_increment"]), -32768, 32767)
+            pre_trigger = slice(0, 500)  # steady part: the codes must match to one step
+            assert np.max(np.abs(codes[pre_trigger] - expected[pre_trigger])) <= 1
+            # the leak's 50 V/s decay: about 160 steps over the 500 ns before the trigger
+            assert codes[0] - codes[499] > 100
+        finally:
+            for i in opened.values():
+                i.close()
