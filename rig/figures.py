@@ -36,6 +36,7 @@ from rig.units import axis_label, eng, eng_scale
 __all__ = [
     "OKABE_ITO",
     "RenderedFigure",
+    "Series",
     "TraceSummary",
     "colour_map",
     "fig_iec_charge",
@@ -144,6 +145,8 @@ def render(fig: Figure, name: str, out_dir: str | Path) -> RenderedFigure:
         buf = io.BytesIO()
         fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
         png = buf.getvalue()
+        # the layout is solved; keep it for the SVG instead of solving it again
+        fig.set_layout_engine("none")
         sbuf = io.StringIO()
         fig.savefig(sbuf, format="svg", metadata={"Creator": None, "Date": None})
         svg = sbuf.getvalue()

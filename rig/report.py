@@ -26,6 +26,8 @@ import pandas as pd
 
 from drivers.errors import RunFolderError
 from rig import figures as F
+from rig.api import group_waveforms, load_run
+from rig.compare import compare_runs
 from rig.store import read_manifest
 from rig.units import eng, metric_label, metric_unit
 from rig.waveform import load_waveform
@@ -95,11 +97,7 @@ def _load_metrics(run: Path) -> pd.DataFrame:
     path = run / "metrics.parquet"
     if not path.exists():
         raise RunFolderError(f"{path}: no metrics; analyse the run before the report")
-    try:
-        from rig import api  # the notebook API, when present, is the one reader of runs
-    except ImportError:
-        api = None
-    df = api.load_run(run) if api is not None else pd.read_parquet(path)
+    df = load_run(run)
     missing = [c for c in _NEEDED if c not in df.columns]
     if missing:
         raise RunFolderError(f"{path} [{', '.join(missing)}]: column missing")
@@ -127,29 +125,17 @@ def _load_groups(run: Path) -> pd.DataFrame:
     return g
 
 
-def _group_waveforms(run: Path, metrics: pd.DataFrame, **filters: Any):
-    """(t, values events x samples, rows) of the captured events matching ``filters``."""
-    rows = metrics
-    for k, v in filters.items():
-        rows = rows[rows[k] == v]
-    rows = rows[rows["file"].notna()]
-    if rows.empty:
-        return None
+def _group_waveforms(run: Path, **filters: Any):
+    """(t, values events x samples, rows) of the captured events matching ``filters``, or None
+    when there are none or their records differ in shape (logged; the panel goes without)."""
     try:
-        from rig import api
-    except ImportError:
-        api = None
-    if api is not None and hasattr(api, "group_waveforms"):
-        t, values, r = api.group_waveforms(run, channel="current", **filters)
-        return np.asarray(t, float), np.atleast_2d(np.asarray(values, float)), r
-    traces, t = [], None
-    for f in rows["file"]:
-        wf = load_waveform(run / f)
-        traces.append(wf.values("current"))
-        if t is None:
-            t = wf.time()
-    n = min(len(x) for x in traces)
-    return t[:n], np.vstack([x[:n] for x in traces]), rows
+        t, values, rows = group_waveforms(run, channel="current", **filters)
+    except RunFolderError as exc:
+        log.warning("report: group %s of %s left out of the waveform figure: %s", filters, run, exc)
+        return None
+    if len(rows) == 0:
+        return None
+    return np.asarray(t, float), np.atleast_2d(np.asarray(values, float)), rows
 
 
 # --- sections ----------------------------------------------------------------------------------
@@ -307,6 +293,7 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
     meters = list(dict.fromkeys(mz["meter"]))
     peak_metric = _peak_metric(g)
     rows = []
+    summary: dict[tuple[str, bool], list[str]] = {}
     for (mode, load), d in mz.groupby(["mode", "load"], sort=False):
         per = d.groupby("meter")["volts"].apply(set)
         common = set.intersection(*per.tolist()) if len(per) else set()
@@ -345,7 +332,7 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
             stats, unit = cells[metric]
             row.append(
                 "<br>".join(
-                    f"{esc(k)}: {esc(eng(s[0], unit))} <span class='n'>(n={s[3]})</span>"
+                    f"<span class='nw'>{esc(k)}: {esc(eng(s[0], unit))} <span class='n'>(n={s[3]})</span></span>"
                     for k, s in stats.items()
                 )
             )
@@ -355,33 +342,49 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
         if len(stats) < 2:
             verdict = "single meter: no comparison"
         elif winners[0][0] and winners[0][0] == winners[1][0]:
-            how = "clearly" if winners[0][1] and winners[1][1] else "not clearly (CIs overlap)"
+            clear = winners[0][1] and winners[1][1]
+            how = "clearly" if clear else "not clearly (CIs overlap)"
             verdict = f"<b>{esc(winners[0][0])}</b>, {how}"
+            summary.setdefault((winners[0][0], clear), []).append(f"{mode} ({load})")
         else:
             verdict = "mixed: neither is lower on both"
+            summary.setdefault(("", False), []).append(f"{mode} ({load})")
         row.append(verdict)
         rows.append(row)
     if not rows:
         return "<p>No mode was tested at a voltage common to all meters.</p>"
+    said = []
+    for (meter, clear), where in summary.items():
+        modes = esc(", ".join(where))
+        if not meter:
+            said.append(f"no meter is lower on both in {modes}")
+        else:
+            how = "clearly lower" if clear else "lower, within the uncertainty,"
+            said.append(f"<b>{esc(meter)}</b> is {how} on both peak current and charge in {modes}")
+    lead = f"<p class='lead'>In short: {'; '.join(said)}.</p>" if said else ""
     intro = (
         "<p>Per mode: each meter's median |peak current| and median charge at the highest "
         "charge voltage tested by every meter (shortest delay). The lower meter dumps less "
         "into the next circuit its probes touch. “Clear” means the 95 % confidence "
         "intervals of the medians do not overlap.</p>"
     )
-    return intro + _table(
-        [
-            "Mode",
-            "Load",
-            "At",
-            "Median |peak current|",
-            "Lower peak",
-            "Median charge",
-            "Lower charge",
-            "Lower on both",
-        ],
-        rows,
-        "glance",
+    return (
+        lead
+        + intro
+        + _table(
+            [
+                "Mode",
+                "Load",
+                "At",
+                "Median |peak current|",
+                "Lower peak",
+                "Median charge",
+                "Lower charge",
+                "Lower on both",
+            ],
+            rows,
+            "glance",
+        )
     )
 
 
@@ -538,11 +541,11 @@ def _wave_rows(
                 "load": load,
                 "delay_s": sel["delay_s"].iloc[0],
             }
-            got = _group_waveforms(run, m, **filt)
+            got = _group_waveforms(run, **filt)
             if got is not None:
                 loaded.append((meter, "", got))
             if other is not None:
-                got_b = _group_waveforms(other[0], other[1], **filt)
+                got_b = _group_waveforms(other[0], **filt)
                 if got_b is not None:
                     loaded.append((meter, " (baseline)", got_b))
         if not loaded:
@@ -707,45 +710,86 @@ def _section_groups(g: pd.DataFrame) -> str:
     )
 
 
+# Known columns of compare-<id>.csv (rig.compare.COMPARE_COLUMNS) in the order shown, with
+# their headings; any other column follows under its own name.
+_COMPARE_SHOWN = {
+    "meter": "Meter",
+    "mode": "Mode",
+    "volts": "Voltage",
+    "load": "Load",
+    "delay_s": "Delay",
+    "metric": "Metric",
+    "verdict": "Verdict",
+    "ratio": "Ratio run / baseline",
+    "median_run": "Median run",
+    "median_baseline": "Median baseline",
+    "n_run": "n run",
+    "n_baseline": "n baseline",
+    "mw_p": "Rank test p",
+    "tost_p": "TOST p",
+    "tolerance": "Tolerance",
+    "serials_run": "Serials run",
+    "serials_baseline": "Serials baseline",
+}
+_COMPARE_HIDDEN = {"ratio_ci_low", "ratio_ci_high", "mw_u"}
+
+
+def _compare_cell(col: str, r: pd.Series, unit: str) -> str:
+    val = r[col]
+    missing = val is None or (isinstance(val, float) and math.isnan(val))
+    if col == "verdict":
+        return _verdict_cell("" if missing else str(val))
+    if missing:
+        return "–"
+    if col == "metric":
+        return esc(metric_label(str(val)))
+    if col == "volts":
+        return esc(eng(val, "V"))
+    if col == "delay_s":
+        return esc(eng(val, "s"))
+    if col in ("median_run", "median_baseline"):
+        return esc(eng(val, unit))
+    if col == "ratio":
+        lo, hi = r.get("ratio_ci_low", np.nan), r.get("ratio_ci_high", np.nan)
+        ci = f" ({lo:.3f} – {hi:.3f})" if np.isfinite([lo, hi]).all() else ""
+        return esc(f"{val:.3f}{ci}")
+    if col == "tolerance" and isinstance(val, float):
+        return esc(f"±{100 * val:.0f} %")
+    if isinstance(val, float):
+        return esc(f"{val:.3g}")
+    return esc(val)
+
+
 def _compare_table(run: Path, base: Path, base_man: dict[str, Any]) -> str:
-    ids = [str(base_man.get("run_id") or ""), base.name]
+    """The equivalence verdicts: compare-<baseline-id>.csv if the run has it, else computed now
+    with rig.compare.compare_runs (not written: the report only writes its own files)."""
+    ids = [str(base_man.get("run_id") or base_man.get("id") or ""), base.name]
     path = next(
         (run / f"compare-{i}.csv" for i in ids if i and (run / f"compare-{i}.csv").exists()), None
     )
-    if path is not None:
-        c = pd.read_csv(path)
-    else:
-        try:
-            from rig import compare
-        except ImportError:
-            return "<p>No comparison file (compare-&lt;baseline-id&gt;.csv) and no rig.compare.</p>"
-        c = compare.compare_runs(run, base)
-        if not isinstance(c, pd.DataFrame):
-            c = pd.DataFrame(c)
+    c = pd.read_csv(path) if path is not None else compare_runs(run, base)
     if c.empty:
-        return "<p>The comparison holds no common group.</p>"
-    rows = []
-    for _, r in c.iterrows():
-        u = metric_unit(str(r.get("metric", "")))
-        cells = []
-        for col in c.columns:
-            val = r[col]
-            if col == "verdict":
-                cells.append(_verdict_cell("" if val != val else str(val)))
-            elif col == "metric":
-                cells.append(esc(metric_label(str(val))))
-            elif isinstance(val, float) and col.startswith(("median", "mean", "diff")):
-                cells.append(esc(eng(val, u)))
-            elif col == "volts":
-                cells.append(esc(eng(val, "V")))
-            elif isinstance(val, float):
-                cells.append(esc(f"{val:.4g}"))
-            else:
-                cells.append(esc(val))
-        rows.append(cells)
+        return "<p>The comparison holds no group.</p>"
+    cols = [k for k in _COMPARE_SHOWN if k in c.columns]
+    cols += [k for k in c.columns if k not in _COMPARE_SHOWN and k not in _COMPARE_HIDDEN]
+    rows = [
+        [_compare_cell(k, r, metric_unit(str(r.get("metric", "")))) for k in cols]
+        for _, r in c.iterrows()
+    ]
+    source = (
+        path.name if path is not None else "rig.compare.compare_runs (computed for this report)"
+    )
+    counts = (
+        ", ".join(f"{n} {esc(k)}" for k, n in c["verdict"].fillna("–").value_counts().items())
+        if "verdict" in c.columns
+        else ""
+    )
     return (
-        f"<p>From {esc(path.name if path else 'rig.compare.compare_runs')}.</p><div class='wide'>"
-        + _table([esc(x) for x in c.columns], rows, "groups")
+        f"<p class='lead'>{len(c)} group × metric comparisons: {counts}.</p>"
+        f"<p class='n'>From {esc(source)}. Ratio: median of this run over the baseline's, with "
+        "its confidence interval. Equivalent: the two one-sided tests (TOST) place the ratio "
+        "within the tolerance.</p><div class='wide'>"
+        + _table([esc(_COMPARE_SHOWN.get(k, k)) for k in cols], rows, "groups")
         + "</div>"
     )
 
@@ -761,7 +805,7 @@ border-bottom:2px solid var(--ink);padding-bottom:3px}h3{font-size:1.05em;margin
 table{border-collapse:collapse;margin:.5em 0 1em;font-size:.88em}
 th,td{border-bottom:1px solid var(--rule);padding:4px 8px;text-align:left;vertical-align:top}
 th{background:#f0f0f3;font-weight:600}
-.wide{overflow-x:auto}table.glance td,table.groups td,table.flagged td{white-space:nowrap}.n{color:var(--mute);font-size:.9em}
+.wide{overflow-x:auto}table.groups td,table.flagged td,.nw{white-space:nowrap}.n{color:var(--mute);font-size:.9em}
 .v{font-weight:700;padding:1px 6px;border-radius:3px;white-space:nowrap}
 .v.pass{color:var(--pass);background:#e3f4ec}.v.fail{color:#fff;background:var(--fail)}
 .v.other{color:var(--mute);background:#eee}

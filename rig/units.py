@@ -39,6 +39,7 @@ def eng(value: float | None, unit: str = "", digits: int = 3, ascii: bool = Fals
 
     ``eng(1.2e-8, "s")`` -> ``"12 ns"``; ``eng(0.0, "A")`` -> ``"0 A"``; ``eng(nan)`` -> ``"–"``.
     Trailing zeros are dropped; a rounded mantissa that reaches 1000 moves up one prefix.
+    Without a unit (counts, ratios) the number is written plainly: ``eng(0.707)`` -> ``"0.707"``.
     """
     if value is None:
         return "–"
@@ -52,6 +53,8 @@ def eng(value: float | None, unit: str = "", digits: int = 3, ascii: bool = Fals
         return f"{'-' if x < 0 else ''}∞ {unit}".strip()
     if x == 0.0:
         return f"0 {unit}".strip()
+    if not unit:  # counts and ratios: a prefix alone ("707 m") would read as a unit
+        return f"{x:.{digits}g}"
     e = _exp3(x)
     mant = float(f"{x / 10.0**e:.{digits}g}")
     if abs(mant) >= 1000.0 and e < _MAX_EXP:

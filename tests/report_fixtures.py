@@ -23,7 +23,7 @@ from scipy import stats
 
 from rig.waveform import Waveform, save_waveform
 
-__all__ = ["FakeMeter", "DEFAULT_METERS", "build_run", "write_compare_csv"]
+__all__ = ["DEFAULT_METERS", "FakeMeter", "build_run"]
 
 MODES = ("AC V", "AC mV", "DC V")
 LOAD = ("short", 0.05)
@@ -203,6 +203,7 @@ def build_run(
     *,
     run_id: str = "2026-12-01-120000-fictitious-qualification",
     meters: tuple[FakeMeter, ...] = DEFAULT_METERS,
+    modes: tuple[str, ...] = MODES,
     volts: tuple[float, ...] = (300.0, 600.0),
     reps: int = 4,
     delays: tuple[float, ...] = (0.5, 1.0, 2.0, 5.0),
@@ -212,7 +213,7 @@ def build_run(
     """Write a synthetic analysed run folder ``root/run_id``; returns its path.
 
     ``reps`` events per (meter, mode, voltage) group at zero delay, plus a delay sweep (2 events
-    per delay) at the highest voltage in the first mode when ``delays`` is not empty. Two
+    per delay) at the highest voltage in the first of ``modes`` when ``delays`` is not empty. Two
     events are made faulty on purpose: one clips the scope, one is not captured.
     ``gain_scale`` multiplies every meter's currents (a repaired meter for a baseline test).
     """
@@ -221,7 +222,7 @@ def build_run(
     t = T0 + DT * np.arange(N_SAMPLES)
     plan: list[dict[str, object]] = []
     for m in meters:
-        for mode in MODES:
+        for mode in modes:
             for v in volts:
                 for r in range(reps):
                     plan.append(
@@ -234,7 +235,7 @@ def build_run(
                             "rep": r,
                         }
                     )
-            if delays and mode == MODES[0]:
+            if delays and mode == modes[0]:
                 for d in delays:
                     for r in range(2):
                         plan.append(
@@ -290,7 +291,7 @@ def build_run(
         )
         full_scale = 1.6 * v_eff * (1 / m.r_fast + 1 / m.r_slow) + 10 * NOISE_A
         if ev == clip_event:
-            full_scale *= 0.4
+            full_scale *= 0.25
         gain = full_scale / 32000
         codes = np.clip(np.round(i / gain), -32768, 32767).astype(np.int16)
         wf = Waveform(
@@ -326,7 +327,7 @@ def build_run(
             fh.write(json.dumps(rec) + "\n")
     (run / "plan.json").write_text(json.dumps(plan, indent=1), encoding="utf-8")
     (run / "manifest.json").write_text(
-        json.dumps(_manifest(run_id, meters, volts, reps, operator_note), indent=1),
+        json.dumps(_manifest(run_id, meters, modes, volts, reps, operator_note), indent=1),
         encoding="utf-8",
     )
     return run
@@ -358,7 +359,7 @@ def _selfdischarge(metrics: pd.DataFrame, meters: tuple[FakeMeter, ...]) -> pd.D
     return pd.DataFrame(rows)
 
 
-def _manifest(run_id, meters, volts, reps, note) -> dict[str, object]:
+def _manifest(run_id, meters, modes, volts, reps, note) -> dict[str, object]:
     return {
         "format": 1,
         "run_id": run_id,
@@ -366,10 +367,10 @@ def _manifest(run_id, meters, volts, reps, note) -> dict[str, object]:
             "name": "fictitious qualification",
             "path": "sequences/fictitious.toml",
             "meters": [
-                {"name": m.name, "serial": m.serial, "rating": m.rating, "modes": list(MODES)}
+                {"name": m.name, "serial": m.serial, "rating": m.rating, "modes": list(modes)}
                 for m in meters
             ],
-            "modes": list(MODES),
+            "modes": list(modes),
             "volts": list(volts),
             "loads": [{"name": LOAD[0], "ohms": LOAD[1], "henry": 2e-7}],
             "repeats": reps,
@@ -407,51 +408,3 @@ def _manifest(run_id, meters, volts, reps, note) -> dict[str, object]:
         "ended": "2026-12-01T12:20:00Z",
         "status": "complete",
     }
-
-
-def write_compare_csv(run_dir: str | Path, baseline_dir: str | Path) -> Path:
-    """A ``compare-<baseline-id>.csv`` for the fixture runs: ratio of medians, rank test, TOST.
-
-    Equivalence: the ratio's 90 % bootstrap-free interval (log-normal approximation) inside
-    [0.8, 1.25] (two one-sided tests at 5 %); fixture arithmetic, not rig.compare.
-    """
-    run_dir, baseline_dir = Path(run_dir), Path(baseline_dir)
-    a = pd.read_parquet(run_dir / "metrics.parquet")
-    b = pd.read_parquet(baseline_dir / "metrics.parquet")
-    keys = ["meter", "serial", "mode", "volts", "load", "delay_s"]
-    rows = []
-    for gk, ga in a.groupby(keys):
-        gb = b
-        for k, v in zip(keys, gk, strict=True):
-            gb = gb[gb[k] == v]
-        for m in ("abs_peak_a", "charge_c"):
-            xa, xb = ga[m].dropna().to_numpy(float), gb[m].dropna().to_numpy(float)
-            if xa.size < 2 or xb.size < 2:
-                continue
-            la, lb = np.log(xa), np.log(xb)
-            d = la.mean() - lb.mean()
-            se = math.sqrt(la.var(ddof=1) / la.size + lb.var(ddof=1) / lb.size)
-            z = stats.norm.ppf(0.95)
-            lo, hi = math.exp(d - z * se), math.exp(d + z * se)
-            p = stats.mannwhitneyu(xa, xb).pvalue
-            eq = lo >= 0.8 and hi <= 1.25
-            rows.append(
-                dict(zip(keys, gk, strict=True))
-                | {
-                    "metric": m,
-                    "n_run": xa.size,
-                    "n_baseline": xb.size,
-                    "median_run": float(np.median(xa)),
-                    "median_baseline": float(np.median(xb)),
-                    "ratio": math.exp(d),
-                    "ratio_ci_low": lo,
-                    "ratio_ci_high": hi,
-                    "p_rank": float(p),
-                    "tolerance": "0.8-1.25",
-                    "verdict": "equivalent" if eq else "not shown equivalent",
-                }
-            )
-    base_id = baseline_dir.name
-    out = run_dir / f"compare-{base_id}.csv"
-    pd.DataFrame(rows).to_csv(out, index=False)
-    return out

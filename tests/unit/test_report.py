@@ -17,7 +17,7 @@ from drivers.errors import RunFolderError
 from rig import figures as F
 from rig.report import write_report
 from rig.units import eng, eng_scale
-from tests.report_fixtures import DEFAULT_METERS, FakeMeter, build_run, write_compare_csv
+from tests.report_fixtures import DEFAULT_METERS, FakeMeter, build_run
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (W3C/ISO 15948), section 5.2
 EVIL = "<script>alert(1)</script>"
@@ -234,22 +234,44 @@ def test_group_table_has_every_row(report):
     assert len(page.tables["groups"]) == 1 + len(g)
 
 
-def test_baseline_overlays_and_equivalence(tmp_path):
+@pytest.fixture(scope="module")
+def two_runs(tmp_path_factory):
+    """A baseline run and a "repaired" run whose currents are 1.5 times larger."""
+    root = tmp_path_factory.mktemp("pair")
     rng = np.random.default_rng(11)
-    base = build_run(tmp_path, rng, run_id="base-run", reps=3, delays=())
-    run = build_run(tmp_path, rng, run_id="repaired-run", reps=3, delays=(), gain_scale=1.5)
-    write_compare_csv(run, base)
+    base = build_run(root, rng, run_id="base-run", reps=5, delays=())
+    run = build_run(root, rng, run_id="repaired-run", reps=5, delays=(), gain_scale=1.5)
+    return run, base
+
+
+def test_baseline_overlays_and_equivalence_from_the_compare_file(two_runs):
+    from rig.compare import compare_runs, write_comparison
+
+    run, base = two_runs
+    c = compare_runs(run, base)
+    csv = write_comparison(c, run, base)
+    assert csv.name == "compare-base-run.csv"
     page = _parse(write_report(run, base).read_text(encoding="utf-8"))
-    assert page.sections[-1] == "baseline"
-    assert page.sections.count("selfdischarge") == 1  # section present, saying there is none
+    assert page.sections == EXPECTED_SECTIONS + ["baseline"]
     assert (run / "figures" / "baseline-ac-v.png").exists()
-    c = pd.read_csv(run / "compare-base-run.csv")
     table = page.tables["baseline"]
     assert len(table) == 1 + len(c)
-    verdicts = [r[table[0].index("verdict")] for r in table[1:]]
+    verdicts = [r[table[0].index("Verdict")] for r in table[1:]]
     assert verdicts == c["verdict"].tolist()
-    # a 1.5x gain is outside the 0.8-1.25 equivalence window for the peaks
-    assert "not shown equivalent" in verdicts
+    # currents 1.5x the baseline's: far outside a +-10 % equivalence margin
+    peak = [v for v, m in zip(verdicts, c["metric"], strict=True) if m == "peak_a"]
+    assert peak and all(v == "different" for v in peak)
+    imgs = [a for t, a in page.tags if t == "img"]
+    assert len(imgs) == 8 - 1 + 3  # no self-discharge figure; 3 baseline overlays
+
+
+def test_baseline_without_compare_file_is_computed_not_written(tmp_path):
+    rng = np.random.default_rng(12)
+    base = build_run(tmp_path, rng, run_id="b", modes=("AC V",), reps=5, delays=())
+    run = build_run(tmp_path, rng, run_id="r", modes=("AC V",), reps=5, delays=())
+    text = "".join(_parse(write_report(run, base).read_text(encoding="utf-8")).text)
+    assert "computed for this report" in text
+    assert not list(run.glob("compare-*.csv"))
 
 
 def test_missing_analysis_is_a_clear_error(tmp_path):
@@ -261,7 +283,7 @@ def test_missing_analysis_is_a_clear_error(tmp_path):
 
 
 def test_sparse_manifest_is_tolerated(tmp_path):
-    run = build_run(tmp_path, np.random.default_rng(3), reps=2, delays=())
+    run = build_run(tmp_path, np.random.default_rng(3), modes=("DC V",), reps=2, delays=())
     (run / "manifest.json").write_text(json.dumps({"status": "aborted"}), encoding="utf-8")
     page = _parse(write_report(run).read_text(encoding="utf-8"))
     text = "".join(page.text)
@@ -271,7 +293,7 @@ def test_sparse_manifest_is_tolerated(tmp_path):
 
 
 def test_metrics_missing_a_column_names_it(tmp_path):
-    run = build_run(tmp_path, np.random.default_rng(4), reps=2, delays=())
+    run = build_run(tmp_path, np.random.default_rng(4), modes=("DC V",), reps=2, delays=())
     m = pd.read_parquet(run / "metrics.parquet").drop(columns=["charge_c"])
     m.to_parquet(run / "metrics.parquet")
     with pytest.raises(RunFolderError, match=r"metrics\.parquet \[charge_c\]"):
@@ -293,6 +315,7 @@ def test_metrics_missing_a_column_names_it(tmp_path):
         (1500.0, "V", "1.5 kV"),
         (0.0, "A", "0 A"),
         (float("nan"), "A", "–"),
+        (0.707, "", "0.707"),  # no unit: no prefix
     ],
 )
 def test_engineering_prefixes(value, unit, text):
