@@ -25,9 +25,9 @@ turned positive by the event's polarity, ``Ip`` its peak):
   90 % of ``Ip`` and max(10 % of ``Ip``, 3 x noise); at most 256 evenly spaced samples.
 - fwhm: time between the 50 % crossings either side of the peak.
 - charge: integral of i dt over the record (signed); energy: load_ohms x integral of i^2 dt.
-- pulses: separate pulses above H = max(25 % of ``Ip``, noise_factor x noise), with
-  hysteresis: a pulse ends when the current falls below min(H / 2, H - noise_factor x noise)
-  (contact bounce).
+- pulses: separate pulses above H = max(25 % of ``Ip``, (noise_factor + 3) x noise), with
+  hysteresis: a pulse ends when the current falls below max(3 x noise, min(H / 2,
+  H - noise_factor x noise)) (contact bounce); at least 1 for an event above noise.
 - c_equiv: abs(charge) / charge voltage; r_equiv: tau / c_equiv.
 - flags: clipped (a sample at the ADC's lowest or highest code), truncated (mean of the last
   samples still above 5 % of ``Ip``), below noise (``Ip`` not above noise_factor x noise: the
@@ -306,13 +306,12 @@ def _chunk(
     rows = np.arange(r)
     pre = raw[:, base_lo:base_hi]
     if raw.dtype == np.int8:
-        base, mad = _median_mad_int8(pre)
+        base, noise = _baseline_int8(pre)
     else:
         base = np.median(pre, axis=1)
-        mad = np.median(np.abs(pre - base[:, None]), axis=1)
-    noise = MAD_TO_SIGMA * mad
-    if integer:
-        noise = _code_noise(pre, base, noise)
+        noise = MAD_TO_SIGMA * np.median(np.abs(pre - base[:, None]), axis=1)
+        if integer:
+            noise = _code_noise(pre, base, noise)
     vmax, vmin = raw.max(axis=1), raw.min(axis=1)
     if integer:
         out["flag_clipped"][sl] = (vmax >= code_hi) | (vmin <= code_lo)
@@ -337,7 +336,7 @@ def _chunk(
     out["baseline_a"][sl] = base
     out["noise_a"][sl] = noise
     # float32 sums are pairwise / SIMD-blocked: relative error ~1e-5 over 1e5 samples
-    out["charge_c"][sl] = pol * (y @ np.ones(n, dtype=y.dtype))
+    out["charge_c"][sl] = pol * np.einsum("ij->i", y)
     out["energy_j"][sl] = np.einsum("ij,ij->i", y, y)
     out["flag_below_noise"][sl] = below
     if not ok.any():
@@ -369,11 +368,14 @@ def _chunk(
     tail_mean = y[:, n - tail :].mean(axis=1, dtype=np.float64)
     out["flag_truncated"][sl] = ok & (tail_mean > trunc_fraction * ip)
 
-    # Hysteresis of at least noise_factor x noise, so noise on a slow tail is not a pulse.
-    thr_hi = np.maximum(pulse_fraction * ip, noise_factor * noise)
-    thr_lo = np.maximum(np.minimum(0.5 * thr_hi, thr_hi - noise_factor * noise), 0.0)
+    # Thresholds: the upper one at least (noise_factor + 3) x noise and the lower one at
+    # least 3 x noise, so there are noise_factor x noise of hysteresis (noise on a slow tail
+    # is not a new pulse) and the baseline reads firmly as "under" (few state changes).
+    thr_hi = np.maximum(pulse_fraction * ip, (noise_factor + 3.0) * noise)
+    thr_lo = np.maximum(np.minimum(0.5 * thr_hi, thr_hi - noise_factor * noise), 3.0 * noise)
     above, under = _pulse_masks(raw, y, base, pol, thr_hi, thr_lo, integer)
-    out["pulses"][sl] = np.where(ok, _count_pulses(above, under), 0)
+    # an event whose peak clears the noise but not the upper threshold is one pulse
+    out["pulses"][sl] = np.where(ok, np.maximum(_count_pulses(above, under), 1), 0)
 
 
 def _code_noise(pre: np.ndarray, base: np.ndarray, mad_sigma: np.ndarray) -> np.ndarray:
@@ -389,28 +391,28 @@ def _code_noise(pre: np.ndarray, base: np.ndarray, mad_sigma: np.ndarray) -> np.
     return np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))
 
 
-def _median_mad_int8(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Row medians and MADs of int8 codes from per-row histograms (same values as
-    np.median, in a fraction of the time: 256 bins instead of a partition per row)."""
+def _baseline_int8(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Row medians and noise (codes) of int8 codes from per-row histograms: the median, and
+    the standard deviation of the samples within median +- (4 sigma + 3 codes), where sigma
+    = IQR / 1.349 (normal distribution); the same rule as :func:`_code_noise` with the
+    interquartile range in place of the MAD, at a fraction of the cost."""
     r, k = pre.shape
     flat = (pre.astype(np.int64) + 128) + 256 * np.arange(r)[:, None]
     counts = np.bincount(flat.ravel(), minlength=256 * r).reshape(r, 256)
-    lo_rank, hi_rank = (k - 1) // 2, k // 2
+    cum = np.cumsum(counts, axis=1)
+    codes = np.arange(-128, 128, dtype=np.float64)
 
-    def wmedian(values: np.ndarray, weights: np.ndarray) -> np.ndarray:
-        cum = np.cumsum(weights, axis=1)
-        at = np.arange(r)
-        return 0.5 * (
-            values[at, np.argmax(cum > lo_rank, axis=1)]
-            + values[at, np.argmax(cum > hi_rank, axis=1)]
-        )
+    def rank(q: int) -> np.ndarray:
+        return codes[np.argmax(cum > q, axis=1)]
 
-    codes = np.broadcast_to(np.arange(-128, 128, dtype=np.float64), (r, 256))
-    med = wmedian(codes, counts)
-    dev = np.abs(codes - med[:, None])
-    order = np.argsort(dev, axis=1, kind="stable")
-    mad = wmedian(np.take_along_axis(dev, order, 1), np.take_along_axis(counts, order, 1))
-    return med, mad
+    med = 0.5 * (rank((k - 1) // 2) + rank(k // 2))
+    sigma = (rank((3 * k) // 4) - rank(k // 4)) / 1.349
+    dev = codes[None, :] - med[:, None]
+    w = np.where(np.abs(dev) <= (4.0 * sigma + 3.0)[:, None], counts, 0)
+    cnt = np.maximum(w.sum(axis=1), 1)
+    mean = (w * dev).sum(axis=1) / cnt
+    var = (w * (dev - mean[:, None]) ** 2).sum(axis=1) / np.maximum(cnt - 1, 1)
+    return med, np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))
 
 
 def _pulse_masks(
@@ -577,25 +579,26 @@ def _fit_tail(y: np.ndarray, start: np.ndarray, end: np.ndarray) -> np.ndarray:
 
 
 def _count_pulses(above: np.ndarray, under: np.ndarray) -> np.ndarray:
-    """Pulses per row: entries into ``above`` that follow a dip into ``under`` (or the start)."""
+    """Pulses per row: entries into ``above`` that follow a dip into ``under`` (or the start).
+
+    The state +1 (above), -1 (under) or 0 (between) changes only at a few samples; those
+    changes, found in one pass, are all the hysteresis logic needs."""
     r, n = above.shape
-    # Entries are sparse: flat indices in the (r, n - 1) grid of "sample k+1 enters".
-    ent_a = np.flatnonzero(above[:, 1:] > above[:, :-1])
-    ent_u = np.flatnonzero(under[:, 1:] > under[:, :-1])
-    keys = np.concatenate([ent_a, ent_u])
-    kind = np.concatenate([np.ones(ent_a.size, np.int8), -np.ones(ent_u.size, np.int8)])
-    order = np.argsort(keys, kind="stable")
-    rows = keys[order] // (n - 1)
-    kind = kind[order]
-    start_above = above[:, 0]
-    prev = np.empty_like(kind)
-    if kind.size:
-        prev[1:] = kind[:-1]
-        new_row = np.ones(kind.size, dtype=bool)
-        new_row[1:] = rows[1:] != rows[:-1]
-        prev[new_row] = np.where(start_above[rows[new_row]], 1, -1)
-    starts = (kind == 1) & (prev == -1)
-    return np.bincount(rows[starts], minlength=r) + start_above
+    state = above.view(np.int8) - under.view(np.int8)
+    change = np.flatnonzero(state[:, 1:] != state[:, :-1])  # flat in the (r, n - 1) grid
+    rows, col = np.divmod(change, n - 1)
+    new = state.reshape(-1)[rows * n + col + 1]
+    keep = new != 0  # entering "between" changes nothing
+    rows, new = rows[keep], new[keep]
+    start = np.where(state[:, 0] > 0, 1, -1).astype(np.int8)  # between at the start: under
+    prev = np.empty_like(new)
+    if new.size:
+        prev[1:] = new[:-1]
+        first = np.ones(new.size, dtype=bool)
+        first[1:] = rows[1:] != rows[:-1]
+        prev[first] = start[rows[first]]
+    starts = (new == 1) & (prev == -1)
+    return np.bincount(rows[starts], minlength=r) + (start > 0)
 
 
 # --------------------------------------------------------------------------- run folders

@@ -18,7 +18,7 @@ import pytest
 
 from drivers.errors import FileFormatError, RunFolderError
 from rig.analysis import METRIC_COLUMNS, analyze_run, compute_metrics, event_metrics
-from rig.analysis import _median_mad_int8 as median_mad_int8
+from rig.analysis import _baseline_int8 as baseline_int8
 from rig.compare import COMPARE_COLUMNS, all_equivalent, compare_runs, write_comparison
 from rig.measure import measure_file
 from rig.selfdischarge import SELFDISCHARGE_COLUMNS, fit_self_discharge, self_discharge
@@ -143,16 +143,26 @@ def make_run(
 # --------------------------------------------------------------------------- kernel
 
 
-def test_histogram_median_equals_numpy_median():
-    # Reference: numpy.median on the same codes (odd and even counts).
+def test_histogram_baseline_equals_numpy():
+    # Reference: numpy.median, and numpy.std (ddof 1) of the samples inside the window
+    # median +- (4 IQR / 1.349 + 3 codes) found by numpy.sort, on the same codes.
     rng = np.random.default_rng(11)
     for k in (101, 256):
-        pre = rng.integers(-128, 128, (30, k)).astype(np.int8)
-        pre[:10] = np.clip(rng.normal(3, 2, (10, k)), -128, 127).astype(np.int8)
-        med, mad = median_mad_int8(pre)
-        ref = np.median(pre, axis=1)
-        np.testing.assert_array_equal(med, ref)
-        np.testing.assert_array_equal(mad, np.median(np.abs(pre - ref[:, None]), axis=1))
+        for sigma in (0.6, 2.0, 8.0):
+            pre = np.clip(np.round(rng.normal(3, sigma, (30, k))), -128, 127).astype(np.int8)
+            med, noise = baseline_int8(pre)
+            np.testing.assert_array_equal(med, np.median(pre, axis=1))
+            srt = np.sort(pre, axis=1).astype(float)
+            s = (srt[:, (3 * k) // 4] - srt[:, k // 4]) / 1.349
+            for row in range(30):
+                x = pre[row][np.abs(pre[row] - med[row]) <= 4 * s[row] + 3]
+                assert noise[row] == pytest.approx(max(x.std(ddof=1), 12**-0.5), rel=1e-9)
+            # normal noise: the estimate is close to sigma (Sheppard: + 1/12 code^2)
+            assert np.median(noise) == pytest.approx(np.hypot(sigma, 12**-0.5), rel=0.1)
+    # a spike far outside the window does not count as noise
+    pre = np.clip(np.round(rng.normal(0, 1.0, (1, 500))), -128, 127).astype(np.int8)
+    pre[0, 7] = 120
+    assert baseline_int8(pre)[1][0] == pytest.approx(np.delete(pre[0], 7).std(ddof=1))
 
 
 def test_codes_and_floats_give_the_same_metrics():
