@@ -232,7 +232,7 @@ def cmd_instruments(args: argparse.Namespace) -> int:
         for s in ob._sessions:
             errs = s.errors()
             q = "error queue empty" if not errs else "; ".join(f"{c},{m!r}" for c, m in errs)
-            _out(f"{s.name:8s} {s.resource}  {ob.identities.get(s.name, '?')}  ({q})")
+            _out(f"{s.name:8s} {s.resource_name}  {ob.identities.get(s.name, '?')}  ({q})")
         if ob.sim is not None:
             _out("(simulated bench, started in-process on loopback)")
     return EXIT_OK

@@ -162,74 +162,127 @@ def _verdict_cell(v: str) -> str:
     return f'<span class="v {cls}">{esc(v) or "–"}</span>'
 
 
-def _section_tested(run: Path, man: dict[str, Any], m: pd.DataFrame) -> str:
-    seq = man.get("sequence") if isinstance(man.get("sequence"), dict) else {}
-    bench = man.get("bench") if isinstance(man.get("bench"), dict) else {}
-    info = [
-        ("Run", man.get("run_id") or run.name),
-        ("Status", man.get("status")),
-        ("Started", man.get("started")),
-        ("Ended", man.get("ended")),
-        ("Host", man.get("host")),
-        ("Sequence", seq.get("name") or seq.get("path")),
-        ("Bench", bench.get("name") or bench.get("path")),
-    ]
-    sw = man.get("software")
-    info.append(("Software", _plain(sw)))
-    note = (
-        man.get("operator_note") or man.get("note") or seq.get("operator_note") or seq.get("note")
+def _dict(v: object) -> dict[str, Any]:
+    return v if isinstance(v, dict) else {}
+
+
+def _short(value: object, limit: int = 160) -> str:
+    """A manifest value as one short line: nested tables beyond one level are elided."""
+    if isinstance(value, dict):
+        text = ", ".join(
+            f"{k}={'…' if isinstance(v, dict | list) and v else _plain(v)}"
+            for k, v in value.items()
+        )
+    elif isinstance(value, list) and any(isinstance(v, dict) for v in value):
+        text = "; ".join(_short(v, limit) for v in value)
+    else:
+        text = _plain(value)
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
+def _kv(items: Iterable[tuple[str, object]]) -> str:
+    rows = [(k, _short(v)) for k, v in items if v not in (None, "", [], {})]
+    return (
+        "<dl class='kv'>"
+        + "".join(f"<dt>{esc(k)}</dt><dd>{esc(v)}</dd>" for k, v in rows)
+        + "</dl>"
     )
-    parts = ["<dl class='kv'>"]
-    for k, v in info:
-        if v not in (None, ""):
-            parts.append(f"<dt>{esc(k)}</dt><dd>{esc(_plain(v))}</dd>")
-    parts.append("</dl>")
-    if note:
-        parts.append(f"<p class='note'><b>Operator note:</b> {esc(note)}</p>")
-    # meters: what the data holds, completed with the sequence's meter entries (ratings...)
+
+
+def _meter_rows(seq: dict[str, Any], m: pd.DataFrame) -> list[list[str]]:
+    """One row per meter in the data, completed with the sequence's entry (rating...)."""
     decl = seq.get("meters") or []
     if isinstance(decl, dict):
         decl = [dict(v, name=k) if isinstance(v, dict) else {"name": k} for k, v in decl.items()]
-    by_name = {str(d.get("name")): d for d in decl if isinstance(d, dict)}
+    entries = [d for d in decl if isinstance(d, dict)]
+
+    def entry(meter: str, serial: object) -> dict[str, Any]:
+        named = [d for d in entries if str(d.get("model", d.get("name"))) == meter]
+        same = [d for d in named if str(d.get("serial")) == str(serial)]
+        return (same or named or [{}])[0]
+
     rows = []
     for (meter, serial), g in m.groupby(["meter", "serial"], sort=False, dropna=False):
-        d = by_name.get(str(meter), {})
-        extra = {k: v for k, v in d.items() if k not in ("name", "serial", "modes")}
-        rating = extra.pop("rating", "")
+        d = entry(str(meter), serial)
+        extra = {
+            k: v for k, v in d.items() if k not in ("name", "model", "serial", "modes", "rating")
+        }
+        if extra.get("sim_model"):
+            extra["sim_model"] = Path(str(extra["sim_model"])).name
         rows.append(
             [
                 esc(meter),
                 esc(serial if serial == serial else d.get("serial", "")),
-                esc(_plain(rating)),
+                esc(_plain(d.get("rating", ""))),
                 esc(", ".join(map(str, dict.fromkeys(g["mode"])))),
                 esc(", ".join(eng(v, "V") for v in sorted(g["volts"].unique()))),
                 esc(", ".join(map(str, dict.fromkeys(g["load"])))),
                 f"{int(g['file'].notna().sum())} / {len(g)}",
-                esc(_plain(extra)),
+                esc(_short(extra)),
             ]
         )
-    parts.append(
-        _table(
+    return rows
+
+
+def _instrument_rows(man: dict[str, Any], bench: dict[str, Any]) -> list[list[str]]:
+    """Role, identity (``*IDN?`` answers in the manifest), resource, profile, control."""
+    ids = _dict(man.get("instruments"))
+    specs = _dict(bench.get("instruments"))
+    rows = []
+    for role in dict.fromkeys([*specs, *ids]):
+        ident = ids.get(role, "")
+        spec = _dict(specs.get(role))
+        if isinstance(ident, dict):  # {"idn": ..., "resource": ...} also accepted
+            spec = {**ident, **spec}
+            ident = ident.get("idn") or ident.get("identity") or ""
+        profile = spec.get("profile")
+        rows.append(
             [
-                "Meter",
-                "Serial",
-                "Rating",
-                "Modes",
-                "Charge voltages",
-                "Loads",
-                "Events captured / run",
-                "Other",
-            ],
-            rows,
+                esc(role),
+                esc(_plain(ident)),
+                esc(_plain(spec.get("resource") or spec.get("address") or "")),
+                esc(Path(str(profile)).name if profile else ""),
+                esc(_plain(spec.get("control", ""))),
+            ]
         )
+    return rows
+
+
+def _section_tested(run: Path, man: dict[str, Any], m: pd.DataFrame) -> str:
+    seq, bench = _dict(man.get("sequence")), _dict(man.get("bench"))
+    sw = man.get("software")
+    host = man.get("host") or _dict(sw).get("host")
+    software = {k: v for k, v in _dict(sw).items() if k not in ("host", "platform")} or sw
+    simulated = man.get("simulated", bool(bench.get("simulation")) if bench else None)
+    info = [
+        ("Run", man.get("run_id") or man.get("id") or run.name),
+        ("Status", man.get("status")),
+        ("Started", man.get("started")),
+        ("Ended", man.get("ended")),
+        ("Sequence", " · ".join(str(x) for x in (seq.get("name"), man.get("sequence_file")) if x)),
+        ("Bench", " · ".join(str(x) for x in (bench.get("name"), man.get("bench_file")) if x)),
+        ("Simulated bench", simulated),
+        ("Host", " · ".join(str(x) for x in (host, _dict(sw).get("platform")) if x)),
+        ("Software", software),
+    ]
+    parts = [_kv(info)]
+    note = (
+        man.get("operator_note") or man.get("note") or seq.get("operator_note") or seq.get("note")
     )
-    loads = m.groupby("load", sort=False)["load_ohms"].first() if "load_ohms" in m else None
-    if loads is not None:
-        parts.append(
-            "<p><b>Loads:</b> "
-            + esc("; ".join(f"{k}: {eng(v, 'Ω')}" for k, v in loads.items()))
-            + "</p>"
+    if note:
+        parts.append(f"<p class='note'><b>Operator note:</b> {esc(note)}</p>")
+    header = ["Meter", "Serial", "Rating", "Modes", "Charge voltages", "Loads"]
+    header += ["Events captured / run", "Other"]
+    parts.append(_table(header, _meter_rows(seq, m)))
+    loads = {str(d.get("name")): d for d in bench.get("loads", []) if isinstance(d, dict)}
+    lrows = []
+    for name, g in m.groupby("load", sort=False):
+        d = loads.get(str(name), {})
+        ohms = g["load_ohms"].iloc[0] if "load_ohms" in g else d.get("ohms")
+        lrows.append(
+            f"{name}: {eng(ohms, 'Ω')}" + (f", {eng(d['henry'], 'H')}" if d.get("henry") else "")
         )
+    parts.append("<p><b>Loads:</b> " + esc("; ".join(lrows)) + "</p>")
     delays = sorted(m["delay_s"].dropna().unique())
     if len(delays) > 1:
         parts.append(
@@ -237,31 +290,21 @@ def _section_tested(run: Path, man: dict[str, Any], m: pd.DataFrame) -> str:
             + esc(", ".join(eng(d, "s") for d in delays))
             + "</p>"
         )
-    inst = man.get("instruments")
-    if isinstance(inst, dict) and inst:
-        irows = []
-        for role, v in inst.items():
-            if isinstance(v, dict):
-                ident = v.get("idn") or v.get("identity") or v.get("id") or ""
-                res = v.get("resource") or v.get("address") or ""
-                rest = {
-                    k: x
-                    for k, x in v.items()
-                    if k not in ("idn", "identity", "id", "resource", "address")
-                }
-                irows.append([esc(role), esc(_plain(ident)), esc(_plain(res)), esc(_plain(rest))])
-            else:
-                irows.append([esc(role), esc(_plain(v)), "", ""])
+    irows = _instrument_rows(man, bench)
+    if irows:
         parts.append(
-            "<h3>Instruments</h3>" + _table(["Role", "Identity", "Resource", "Other"], irows)
+            "<h3>Instruments</h3>"
+            + _table(["Role", "Identity", "Resource", "Profile", "Control"], irows)
         )
-    items = [(k, v) for k, v in bench.items() if k not in ("name", "path")]
-    if items:
-        parts.append(
-            "<h3>Bench</h3><dl class='kv'>"
-            + "".join(f"<dt>{esc(k)}</dt><dd>{esc(_plain(v))}</dd>" for k, v in items)
-            + "</dl>"
-        )
+    skip = {"name", "path", "instruments", "loads", "simulation", "limits"}
+    shown = [(k, v) for k, v in bench.items() if k not in skip]
+    shown += [(f"limits.{k}", v) for k, v in _dict(bench.get("limits")).items()]
+    if shown:
+        parts.append("<h3>Bench</h3>" + _kv(shown))
+    skip = {"name", "path", "meters", "operator_note", "volts", "loads", "limits"}
+    settings = [(k, v) for k, v in seq.items() if k not in skip]
+    if settings:
+        parts.append("<h3>Sequence settings</h3>" + _kv(settings))
     return "".join(parts)
 
 
@@ -399,6 +442,31 @@ def _lower(stats: dict[str, tuple[float, float, float, int]]) -> tuple[tuple[str
     clear = all(np.isfinite([b[2], stats[k][1]]).all() and b[2] < stats[k][1] for k in order[1:])
     tag = "clear" if clear else "CIs overlap"
     return (best, clear), f"<b>{esc(best)}</b> ({ratio:.2f}× lower; {tag})"
+
+
+def _limits_table(man: dict[str, Any]) -> str:
+    """The limits of the run's sequence, as the analysis applied them."""
+    lims = _dict(man.get("sequence")).get("limits") or []
+    rows = []
+    for lim in lims if isinstance(lims, list) else []:
+        if not isinstance(lim, dict):
+            continue
+        metric = str(lim.get("metric", ""))
+        rows.append(
+            [
+                esc(metric_label(metric)),
+                esc(eng(lim.get("max"), metric_unit(metric))),
+                esc(lim.get("statistic") or "utl"),
+                esc(_plain(lim.get("modes")) or "all"),
+                esc(", ".join(eng(v, "V") for v in lim.get("volts") or []) or "all"),
+                esc(_plain(lim.get("loads")) or "all"),
+            ]
+        )
+    if not rows:
+        return ""
+    return "<h3>Limits of the sequence</h3>" + _table(
+        ["Metric", "Limit", "Statistic checked", "Modes", "Voltages", "Loads"], rows
+    )
 
 
 def _section_verdicts(g: pd.DataFrame) -> str:
@@ -843,7 +911,7 @@ def write_report(
     body: dict[str, str] = {}
     body["tested"] = _section_tested(run, man, m)
     body["glance"] = _section_glance(m, g)
-    body["verdicts"] = _section_verdicts(g)
+    body["verdicts"] = _section_verdicts(g) + _limits_table(man)
     body["caution"] = _CAUTION
     body["waveforms"] = _section_waveforms(run, m, modes, colours, out)
     log.info("report %s: waveforms done after %.1f s", run.name, time.perf_counter() - t_start)

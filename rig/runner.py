@@ -260,6 +260,7 @@ class Runner:
         b.supply.output(True)
         self._dwell()
         supply_volts = b.supply.measure_voltage()
+        charged_volts = lock.verify_charged(e.volts)
 
         self._enter(e, Phase.ISOLATE)
         b.supply.output(False)
@@ -307,6 +308,7 @@ class Runner:
             "time": self._iso(),
             "t_bench_s": clock.now(),
             "supply_volts": supply_volts,
+            "charged_volts": charged_volts,
             "residual_volts": residual,
         }
         row.pop("index", None)

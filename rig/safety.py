@@ -118,6 +118,20 @@ class Interlocks:
             )
         return r
 
+    def verify_charged(self, volts: float, fraction: float = 0.5) -> float | None:
+        """After the dwell, the meter input must have reached ``fraction`` of the setpoint.
+
+        Less means current is going somewhere else - a shorted input, or a discharge relay
+        whose contacts welded while its coil reads back open - so the run stops before the
+        discharge. Returns the input voltage (None without a divider probe)."""
+        v = self.residual()
+        if v is not None and volts > 0 and abs(v) < fraction * volts:
+            raise SafetyError(
+                f"meter input reached only {v:.3g} V of {volts:g} V after the charge dwell: "
+                "shorted input or welded discharge relay? check the bench before going on"
+            )
+        return v
+
     # -- bleeding -------------------------------------------------------------------------------
     def bleed_until_safe(
         self, bleed_s: float, max_wait_s: float, settle_s: float = 0.01
@@ -187,26 +201,34 @@ class Interlocks:
                 rep.problems.append(f"bleed channel {self.bleed} does not read back closed")
         except Exception as exc:
             rep.problems.append(f"switch readback failed ({exc})")
-        try:
-            if self.divider:
-                waited = 0.0
-                step = max(bleed_s, 1e-3)
-                while True:
-                    b.clock.sleep(step)
-                    waited += step
-                    rep.residual_volts = self.residual()
-                    if abs(rep.residual_volts) < self.limits.safe_residual_volts:
-                        break
-                    if waited >= max_wait_s:
-                        rep.problems.append(
-                            f"residual {rep.residual_volts:.3g} V above "
-                            f"{self.limits.safe_residual_volts:g} V after {waited:.3g} s"
-                        )
-                        break
-                    step = min(step * 2, max_wait_s - waited)
-            else:
-                b.clock.sleep(bleed_s)
-        except Exception as exc:
-            rep.problems.append(f"residual measurement failed ({exc})")
+        # bleed: measured where a divider is fitted; where the measurement fails or no
+        # divider is fitted, wait the full bleed allowance, since nothing can confirm it
+        waited, step = 0.0, max(bleed_s, 1e-3)
+        measured = bool(self.divider)
+        while True:
+            step = min(step, max_wait_s - waited) if waited < max_wait_s else 0.0
+            b.clock.sleep(step)
+            waited += step
+            if not measured:
+                if waited >= max_wait_s:
+                    break
+                step *= 2
+                continue
+            try:
+                rep.residual_volts = self.residual()
+            except Exception as exc:
+                rep.problems.append(f"residual measurement failed ({exc}); bled {max_wait_s:g} s")
+                rep.residual_volts = None
+                measured = False
+                continue
+            if abs(rep.residual_volts) < self.limits.safe_residual_volts:
+                break
+            if waited >= max_wait_s:
+                rep.problems.append(
+                    f"residual {rep.residual_volts:.3g} V above "
+                    f"{self.limits.safe_residual_volts:g} V after {waited:.3g} s of bleeding"
+                )
+                break
+            step *= 2
         log.info("%s", rep.summary())
         return rep

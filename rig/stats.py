@@ -194,6 +194,8 @@ def _applies(limit: Mapping[str, Any], mode: Any, volts: Any, load: Any) -> bool
     if limit.get("loads") and load not in limit["loads"]:
         return False
     if limit.get("volts"):
+        if volts is None:
+            return False
         return any(math.isclose(float(volts), float(v), rel_tol=1e-9) for v in limit["volts"])
     return True
 
@@ -266,14 +268,20 @@ def group_stats(
     for k in keys:  # groupby drops None keys; keep them as a visible value
         if k not in frame:
             frame[k] = None
+    groups: dict[tuple, pd.Index] = {}
+    for gkey, grp in frame.groupby(keys, sort=False, dropna=False):
+        groups[tuple(None if _isnan(v) else v for v in gkey)] = grp.index
+    for pkey in planned:  # planned but nothing journalled yet (an interrupted run)
+        groups.setdefault(pkey, frame.index[:0])
     rows = []
-    for gkey, grp in frame.groupby(keys, sort=True, dropna=False):
+    for gkey in sorted(groups, key=lambda k: tuple(map(str, k))):
+        index = groups[gkey]
         gdict = dict(zip(keys, gkey, strict=True))
-        lookup = tuple(None if _isnan(v) else v for v in gkey)
-        n_planned = planned.get(lookup, planned.get(gkey, len(grp)))
-        n_captured = int(captured[grp.index].sum())
+        n_planned = planned.get(gkey, len(index))
+        n_captured = int(captured[index].sum())
+        grp = frame.loc[index]
         for name in names:
-            v = pd.to_numeric(grp.loc[captured[grp.index], name], errors="coerce").to_numpy(float)
+            v = pd.to_numeric(grp.loc[captured[index], name], errors="coerce").to_numpy(float)
             v = v[np.isfinite(v)]
             if name in SIGNED:
                 v = np.abs(v)

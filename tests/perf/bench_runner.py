@@ -46,8 +46,10 @@ hold_s = 0.05
 sample_interval_s = 1e-9
 points = {points}
 trigger_offset_s = -1e-6
-current_range_amps = 40.0
+current_range_amps = 50.0
+current_offset_amps = 20.0
 trigger_level_amps = 0.2
+trigger_slope = "POSitive"
 bits = 8
 bandwidth_hz = 500e6
 """
@@ -73,16 +75,20 @@ def main() -> None:
     n = max(int(tm["events"]), 1)
     other = tm["total"] - tm["io"] - tm["transfer"] - tm["storage"]
     ms = 1e3 / n
-    print(f"events: {n} ({outcome.status}), {points} points per record, wall {wall:.1f} s "
-          f"({wall / n * 1e3:.1f} ms per event incl. set-up and safe state)")
+    print(
+        f"events: {n} ({outcome.status}), {points} points per record, wall {wall:.1f} s "
+        f"({wall / n * 1e3:.1f} ms per event incl. set-up and safe state)"
+    )
     print(f"  instrument I/O     {tm['io'] * ms:8.2f} ms/event")
     print(f"  waveform transfer  {tm['transfer'] * ms:8.2f} ms/event")
     print(f"  storage            {tm['storage'] * ms:8.2f} ms/event")
     print(f"  everything else    {other * ms:8.2f} ms/event")
     overhead = (tm["storage"] + other) * ms
     verdict = "met" if overhead < 5.0 else "NOT met"
-    print(f"controller overhead (storage + everything else): {overhead:.2f} ms/event; "
-          f"target < 5 ms: {verdict}")
+    print(
+        f"controller overhead (storage + everything else): {overhead:.2f} ms/event; "
+        f"target < 5 ms: {verdict}"
+    )
 
 
 if __name__ == "__main__":
