@@ -360,50 +360,86 @@ def _selfdischarge(metrics: pd.DataFrame, meters: tuple[FakeMeter, ...]) -> pd.D
 
 
 def _manifest(run_id, meters, modes, volts, reps, note) -> dict[str, object]:
+    """A manifest shaped like the one ``rig run`` writes: the resolved sequence and bench,
+    the instruments' identities, host and software."""
+    sim = {
+        "role": "",
+        "resource": "sim",
+        "profile": "/x/drivers/profiles/scpi1999.toml",
+        "timeout_s": 5.0,
+        "control": "scpi",
+    }
     return {
-        "format": 1,
         "run_id": run_id,
+        "sequence_file": "/lab/sequences/fictitious.toml",
+        "bench_file": "/lab/sequences/benches/fictitious-bench.toml",
         "sequence": {
-            "name": "fictitious qualification",
             "path": "sequences/fictitious.toml",
+            "name": "fictitious qualification",
+            "operator_note": note,
             "meters": [
-                {"name": m.name, "serial": m.serial, "rating": m.rating, "modes": list(modes)}
+                {
+                    "model": m.name,
+                    "serial": m.serial,
+                    "rating": m.rating,
+                    "modes": list(modes),
+                    "sim_model": "/x/drivers/sim/meters/fictitious.toml",
+                }
                 for m in meters
             ],
-            "modes": list(modes),
             "volts": list(volts),
-            "loads": [{"name": LOAD[0], "ohms": LOAD[1], "henry": 2e-7}],
-            "repeats": reps,
-            "operator_note": note,
+            "loads": [LOAD[0]],
+            "repetitions": reps,
+            "delays_s": [0.0],
+            "scope": {"sample_interval_s": DT, "points": N_SAMPLES, "bits": 16},
             # the fixture's own groups.csv applies the same limits (LIMITS)
             "limits": [
-                {"metric": "peak_a", "max": LIMITS["abs_peak_a"], "statistic": "utl"},
-                {"metric": "charge_c", "max": LIMITS["charge_c"], "statistic": "utl"},
+                {
+                    "metric": "peak_a",
+                    "max": LIMITS["abs_peak_a"],
+                    "statistic": "utl",
+                    "modes": None,
+                    "volts": None,
+                    "loads": None,
+                },
+                {
+                    "metric": "charge_c",
+                    "max": LIMITS["charge_c"],
+                    "statistic": "utl",
+                    "modes": None,
+                    "volts": None,
+                    "loads": None,
+                },
             ],
         },
         "bench": {
+            "path": "sequences/benches/fictitious-bench.toml",
             "name": "simulated bench (fictitious)",
-            "simulated": True,
-            "max_volts": 1000.0,
-            "safe_residual_volts": 30.0,
-            "sense": {"kind": "shunt", "ohms": 0.1},
+            "instruments": {r: sim | {"role": r} for r in ("supply", "switch", "scope", "meter")},
+            "charge_ohms": 100e3,
+            "loads": [{"name": LOAD[0], "ohms": LOAD[1], "henry": 2e-7, "channel": 4}],
+            "sense": {"kind": "shunt", "ohms": 0.1, "amps_per_volt": 1.0, "bandwidth_hz": None},
+            "limits": {
+                "max_volts": 1100.0,
+                "safe_residual_volts": 1.0,
+                "stored_charge_limit_c": 45e-6,
+            },
+            "simulation": {"clock": "virtual", "world": {"seed": 1, "wiring": {"loads": []}}},
         },
+        "simulated": True,
         "instruments": {
-            "supply": {
-                "idn": "FICTIVE,HV-1K,SN0001,1.0",
-                "resource": "TCPIP0::127.0.0.1::5025::SOCKET",
-            },
-            "switch": {
-                "idn": "FICTIVE,RLY-8,SN0002,1.0",
-                "resource": "TCPIP0::127.0.0.1::5026::SOCKET",
-            },
-            "scope": {
-                "idn": "FICTIVE,SCOPE-2,SN0003,1.0",
-                "resource": "TCPIP0::127.0.0.1::5027::SOCKET",
-            },
+            "supply": "FICTIVE,HV-1K,SN0001,1.0",
+            "switch": "FICTIVE,RLY-8,SN0002,1.0",
+            "scope": "FICTIVE,SCOPE-2,SN0003,1.0",
+            "meter": "FICTIVE,DMM-SIM,SN0004,1.0",
         },
-        "software": {"discharge-rig": "0.1.0", "python": "3.11", "numpy": np.__version__},
-        "host": "bench-pc (fictitious)",
+        "software": {
+            "host": "bench-pc (fictitious)",
+            "platform": "Linux",
+            "python": "3.11",
+            "rig": "0.1.0",
+            "numpy": np.__version__,
+        },
         "started": "2026-12-01T12:00:00Z",
         "ended": "2026-12-01T12:20:00Z",
         "status": "complete",

@@ -184,6 +184,24 @@ def test_strings_from_files_show_as_text(report):
     assert not [t for t, _ in page.tags if t == "i"]  # the rating's <i> stayed text
 
 
+def test_what_was_tested_comes_from_the_manifest_and_the_data(report):
+    run, _path, _html, page = report
+    man = json.loads((run / "manifest.json").read_text(encoding="utf-8"))
+    text = " ".join("".join(page.text).split())
+    for ident in man["instruments"].values():
+        assert ident in text
+    for meter in man["sequence"]["meters"]:
+        assert meter["model"] in text and meter["rating"] in text and meter["serial"] in text
+    for key in ("started", "ended", "status"):
+        assert man[key] in text
+    assert f"rig={man['software']['rig']}" in text and man["software"]["host"] in text
+    assert f"Operator note: {man['sequence']['operator_note']}" in text
+    assert "short: 50 mΩ, 200 nH" in text  # load from the data (ohms) and the bench (henry)
+    limits = page.tables["verdicts"]
+    assert any(r[:3] == ["Meter", "Serial", "AC V"] for r in limits)
+    assert "Limits of the sequence" in text
+
+
 def test_at_a_glance_is_computed_from_the_events(report):
     run, _path, _html, page = report
     m = pd.read_parquet(run / "metrics.parquet")
