@@ -581,6 +581,78 @@ def _fit_tail(y: np.ndarray, start: np.ndarray, end: np.ndarray) -> np.ndarray:
 def _count_pulses(above: np.ndarray, under: np.ndarray) -> np.ndarray:
     """Pulses per row: entries into ``above`` that follow a dip into ``under`` (or the start).
 
+    Block by block where the masks can be read 8 samples to a machine word (records of a
+    multiple of 8 samples), else sample by sample; both give the same counts."""
+    if above.shape[1] % 8 == 0 and above.flags.c_contiguous and under.flags.c_contiguous:
+        return _count_pulses_blocks(above, under)
+    return _count_pulses_sparse(above, under)
+
+
+def _prev_nonzero(tok: np.ndarray) -> np.ndarray:
+    """For each position, the last nonzero token strictly before it in its row (-1 if none:
+    a record starts "under")."""
+    r, m = tok.shape
+    pos = np.where(tok != 0, np.arange(m, dtype=np.int32), np.int32(-1))
+    last = np.maximum.accumulate(pos, axis=1)
+    prev_pos = np.full_like(last, -1)
+    prev_pos[:, 1:] = last[:, :-1]
+    vals = np.take_along_axis(tok, np.maximum(prev_pos, 0), axis=1)
+    return np.where(prev_pos >= 0, vals, np.int8(-1)).astype(np.int8)
+
+
+def _block_any(mask: np.ndarray, words: int) -> np.ndarray:
+    """Whether each block of ``words`` x 8 samples holds a True (a last, shorter block takes
+    the rest), reading the booleans as 64-bit words and OR-ing them pairwise."""
+    w = mask.view(np.uint64)
+    nb = w.shape[1] // words
+    m = w[:, : nb * words]
+    while m.shape[1] > nb:
+        m = m[:, 0::2] | m[:, 1::2]
+    out = m != 0
+    if w.shape[1] > nb * words:
+        out = np.concatenate([out, (w[:, nb * words :] != 0).any(axis=1)[:, None]], axis=1)
+    return out
+
+
+def _count_pulses_blocks(above: np.ndarray, under: np.ndarray, block: int = 64) -> np.ndarray:
+    """_count_pulses on blocks: a block with only "above" (or only "under") samples is one
+    token +1 (-1); the few blocks with both are resolved sample by sample into their first
+    and last state and the rises inside them."""
+    r, n = above.shape
+    a_any = _block_any(above, block // 8)
+    u_any = _block_any(under, block // 8)
+    nb = a_any.shape[1]
+    tok = np.zeros((r, 2 * nb), dtype=np.int8)  # (first, last) state of every block
+    plain = a_any.astype(np.int8) - u_any.astype(np.int8)
+    tok[:, 0::2] = plain
+    tok[:, 1::2] = plain
+    inner = np.zeros(r, dtype=np.int64)
+    br, bb = np.nonzero(a_any & u_any)
+    if br.size:
+        idx = bb[:, None] * block + np.arange(block)
+        valid = idx < n
+        idx = np.minimum(idx, n - 1)
+        st = above[br[:, None], idx].view(np.int8) - under[br[:, None], idx].view(np.int8)
+        st = np.where(valid, st, 0).astype(np.int8)
+        prev = _prev_nonzero(st)
+        first_pos = np.argmax(st != 0, axis=1)
+        last_pos = block - 1 - np.argmax(st[:, ::-1] != 0, axis=1)
+        first = st[np.arange(br.size), first_pos]
+        last = st[np.arange(br.size), last_pos]
+        # rises inside the block; one at its first state depends on the block before and is
+        # counted through the block's token instead
+        rises = ((st == 1) & (prev == -1)).sum(axis=1) - (first == 1)
+        tok[br, 2 * bb] = first
+        tok[br, 2 * bb + 1] = last
+        np.add.at(inner, br, rises)
+    prev_tok = _prev_nonzero(tok)
+    firsts = (tok[:, 0::2] == 1) & (prev_tok[:, 0::2] == -1)
+    return firsts.sum(axis=1) + inner
+
+
+def _count_pulses_sparse(above: np.ndarray, under: np.ndarray) -> np.ndarray:
+    """_count_pulses sample by sample.
+
     The state +1 (above), -1 (under) or 0 (between) changes only at a few samples; those
     changes, found in one pass, are all the hysteresis logic needs."""
     r, n = above.shape

@@ -19,6 +19,8 @@ import pytest
 from drivers.errors import FileFormatError, RunFolderError
 from rig.analysis import METRIC_COLUMNS, analyze_run, compute_metrics, event_metrics
 from rig.analysis import _baseline_int8 as baseline_int8
+from rig.analysis import _count_pulses_blocks as count_pulses_blocks
+from rig.analysis import _count_pulses_sparse as count_pulses_sparse
 from rig.compare import COMPARE_COLUMNS, all_equivalent, compare_runs, write_comparison
 from rig.measure import measure_file
 from rig.selfdischarge import SELFDISCHARGE_COLUMNS, fit_self_discharge, self_discharge
@@ -165,6 +167,21 @@ def test_histogram_baseline_equals_numpy():
     assert baseline_int8(pre)[1][0] == pytest.approx(np.delete(pre[0], 7).std(ddof=1))
 
 
+def test_block_pulse_count_equals_sample_by_sample():
+    # Reference: the plain sample-by-sample hysteresis count on the same random state masks
+    # (dense random states are the hardest case for the block shortcut).
+    rng = np.random.default_rng(12)
+    for trial in range(150):
+        r, n = int(rng.integers(1, 6)), 8 * int(rng.integers(1, 60))
+        x = rng.integers(-1, 2, (r, n))
+        if trial % 3 == 0:  # runs of equal states, like real pulses
+            x = np.repeat(rng.integers(-1, 2, (r, n // 8 + 1)), 8, axis=1)[:, :n]
+        above, under = x == 1, x == -1
+        ref = count_pulses_sparse(above, under)
+        for block in (8, 64):
+            np.testing.assert_array_equal(count_pulses_blocks(above, under, block), ref)
+
+
 def test_codes_and_floats_give_the_same_metrics():
     rng = np.random.default_rng(5)
     t = (np.arange(N) - PRE) * DT
@@ -308,6 +325,13 @@ def test_too_few_events_is_insufficient(tmp_path, limits):
     run = make_run(tmp_path, "r2", rng=np.random.default_rng(2), reps=3, limits=limits)
     g = analyze_run(run).groups
     assert set(g.loc[g["limit"].notna(), "verdict"]) == {"insufficient"}
+    # an interrupted run: the ACmV group is planned but nothing of it was journalled
+    lines = (run / "journal.jsonl").read_text(encoding="utf-8").splitlines(keepends=True)
+    (run / "journal.jsonl").write_text("".join(lines[:3]), encoding="utf-8")
+    g2 = analyze_run(run).groups
+    acmv = g2[g2["mode"] == "ACmV"]
+    assert len(acmv) > 0 and (acmv["n_planned"] == 3).all() and (acmv["n_captured"] == 0).all()
+    assert set(acmv.loc[acmv["limit"].notna(), "verdict"]) == {"insufficient"}
 
 
 def test_run_folder_errors_name_the_file(tmp_path):
