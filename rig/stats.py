@@ -17,7 +17,8 @@ The approximate form is kept for comparison with published tables.
 
 Verdicts: a limit {metric, max, statistic, modes, volts, loads} passes when the chosen
 statistic (utl by default, or max, p99, p95, median, mean) is at or below ``max``; with fewer
-than ``min_events`` finite values the verdict is "insufficient".
+than ``min_events`` finite values the verdict is "insufficient". Rows without a limit have
+no verdict (empty in the CSV).
 """
 
 from __future__ import annotations
@@ -303,7 +304,7 @@ def group_stats(
             ]
             if not applicable:
                 rows.append(
-                    {**base, "limit": math.nan, "share_over_limit": math.nan, "verdict": ""}
+                    {**base, "limit": math.nan, "share_over_limit": math.nan, "verdict": None}
                 )
             for lim in applicable:
                 share = float(np.mean(v > lim["max"])) if v.size else math.nan
@@ -315,7 +316,7 @@ def group_stats(
                     {**base, "limit": lim["max"], "share_over_limit": share, "verdict": verdict}
                 )
     out = pd.DataFrame(rows, columns=list(GROUPS_COLUMNS))
-    log.info("%s group x metric rows, %s verdicts", len(out), int((out["verdict"] != "").sum()))
+    log.info("%s group x metric rows, %s verdicts", len(out), int(out["verdict"].notna().sum()))
     return out
 
 

@@ -102,6 +102,9 @@ def test_tost_against_two_scipy_one_sided_tests():
     assert tost_log(a, b, 0.10) == pytest.approx(max(p_low, p_high), rel=1e-9)
     assert tost_log(a, b, 0.10) < 0.05  # 2 % apart with 5 % scatter: equivalent
     assert tost_log(a * 1.3, b, 0.10) > 0.5  # 30 % apart: not
+    # without scatter (every peak clipped at the same code) the means decide
+    assert tost_log(np.full(5, 2.0), np.full(5, 2.0)) == 0.0
+    assert tost_log(np.full(5, 2.5), np.full(5, 2.0)) == 1.0
 
 
 def test_group_table_statistics_against_numpy():
