@@ -153,9 +153,9 @@ def cmd_run(args: argparse.Namespace) -> int:
     seq = load_sequence(args.sequence, bench)
     plan = build_plan(seq, bench)
     findings = safety_review(plan, bench, seq)
+    _out(CAUTION)  # always, --quiet included
+    _out()
     if not args.quiet:
-        _out(CAUTION)
-        _out()
         _out(describe(plan, bench, seq))
     if any(f.level == "stop" for f in findings):
         _out("rig: the safety review stops this run; nothing was switched on")
@@ -301,8 +301,6 @@ def cmd_report(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    _out(CAUTION)
-    _out()
     _out("Demo: qualification of two invented candidate meters on the simulated bench.")
     ns = argparse.Namespace(
         sequence=str(DEMO_SEQUENCE),

@@ -257,6 +257,11 @@ def _thin(t: np.ndarray, lo: np.ndarray, mid: np.ndarray, hi: np.ndarray, max_po
     return t2, lo2, mid2, hi2
 
 
+def _half_step(t: np.ndarray) -> float:
+    """Half a sample interval (s): the first sample that counts as after the trigger."""
+    return 0.5 * float(t[1] - t[0]) if t.size > 1 else 0.0
+
+
 def summarise_traces(
     t: np.ndarray,
     values: np.ndarray,
@@ -271,8 +276,9 @@ def summarise_traces(
     q = np.quantile(v[:, sel], [0.05, 0.5, 0.95], axis=0) * dominant
     lo, mid, hi = (np.minimum(q[0], q[2]), q[1], np.maximum(q[0], q[2]))
     lin = _thin(t[sel], lo, mid, hi, max_points)
-    # log panel: per-event means over log-spaced bins of t > 0, then quantiles across events
-    pos = np.flatnonzero(t > 0)
+    # log panel: per-event means over log-spaced bins after the trigger, then quantiles across
+    # events; t0 + k dt leaves ~1e-22 s instead of 0 at the trigger sample, hence dt / 2
+    pos = np.flatnonzero(t > _half_step(t))
     tp = t[pos]
     edges = np.geomspace(tp[0], tp[-1], log_bins + 1)
     starts = np.unique(np.searchsorted(tp, edges[:-1]))
@@ -724,7 +730,7 @@ def sparkline_svg(
     y = np.asarray(y, dtype=float)
     if (t < 0).sum() >= 8:
         y = y - y[t < 0].mean()
-    pos = np.flatnonzero(t > 0)
+    pos = np.flatnonzero(t > _half_step(t))
     if pos.size < 2:
         return ""
     tp, yp = t[pos], y[pos]

@@ -170,7 +170,7 @@ def _short(value: object, limit: int = 160) -> str:
     """A manifest value as one short line: nested tables beyond one level are elided."""
     if isinstance(value, dict):
         text = ", ".join(
-            f"{k}={'…' if isinstance(v, dict | list) and v else _plain(v)}"
+            f"{k}={'…' if isinstance(v, dict | list) and v else _plain(v) or '–'}"
             for k, v in value.items()
         )
     elif isinstance(value, list) and any(isinstance(v, dict) for v in value):
@@ -369,7 +369,7 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
                 )
                 stats[meter] = (float(x.median()), lo, hi, x.size)
             cells[metric] = (stats, unit)
-        row = [esc(mode), esc(load), esc(eng(v, "V"))]
+        row = [esc(mode), esc(load), f"<span class='nw'>{esc(eng(v, 'V'))}</span>"]
         winners = []
         for metric in ("abs_peak_a", "charge_c"):
             stats, unit = cells[metric]

@@ -185,6 +185,10 @@ class Runner:
             if not isinstance(exc, KeyboardInterrupt | Terminated | Exception):
                 raise  # SystemExit and the like: the finally clause still makes the bench safe
         finally:
+            # from here to the end, a second Ctrl-C must not cut the safe-state procedure or
+            # the bookkeeping short (the run folder would say "running" forever)
+            in_main = threading.current_thread() is threading.main_thread()
+            old_int = signal.signal(signal.SIGINT, signal.SIG_IGN) if in_main else None
             failed_phase = self.phase
             safe = self._make_safe()
             restore()
@@ -206,22 +210,18 @@ class Runner:
                 timing=dict(self.timing),
             )
             self.obs.message(f"run ended by {exit_path.value}; {safe.summary()}")
+            if in_main:
+                signal.signal(signal.SIGINT, old_int)
         return RunOutcome(
             exit_path, status, error, failed_phase, safe, done, planned, dict(self.timing)
         )
 
     def _make_safe(self) -> SafeReport:
-        """Safe-state procedure, shielded from a second Ctrl-C while it runs."""
+        """Safe-state procedure (the caller shields it from a second Ctrl-C)."""
         self.phase = Phase.SAFE
-        in_main = threading.current_thread() is threading.main_thread()
-        old = signal.signal(signal.SIGINT, signal.SIG_IGN) if in_main else None
-        try:
-            return self.interlocks.make_safe(
-                bleed_s=max(self.seq.hold_s, 0.01), max_wait_s=max(30.0, 10 * self.seq.hold_s)
-            )
-        finally:
-            if in_main:
-                signal.signal(signal.SIGINT, old)
+        return self.interlocks.make_safe(
+            bleed_s=max(self.seq.hold_s, 0.01), max_wait_s=max(30.0, 10 * self.seq.hold_s)
+        )
 
     def _install_sigterm(self) -> Callable[[], None]:
         if threading.current_thread() is not threading.main_thread():
@@ -352,7 +352,9 @@ class Runner:
             target = loads[e.load].channel
             others = [c for c in selectors if c != target]
             b.switch.open([ch.discharge])
-            b.switch.transfer(others, [target] if target is not None else [], clock=b.clock, settle_s=0.0)
+            b.switch.transfer(
+                others, [target] if target is not None else [], clock=b.clock, settle_s=0.0
+            )
             self._load = e.load
         s = self.seq.scope_for(e.mode)
         if s != self._scope_key:

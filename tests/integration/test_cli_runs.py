@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 import signal
 import subprocess
@@ -74,9 +75,12 @@ def test_killed_run_verifies_and_resumes(tmp_path, seed, sig):
         os.kill(proc.pid, sig)
     out, err = proc.communicate(timeout=120)
     run = only_run(results)
-    if sig == signal.SIGINT and proc.returncode == 130:
-        assert "Ctrl-C" in out + err
-        assert "safe state reached" in out + err
+    manifest = json.loads((run / "manifest.json").read_text())
+    if sig == signal.SIGINT and manifest["status"] == "interrupted":
+        # the signal landed inside the run: the runner said how it ended, and went safe
+        assert proc.returncode == 130, out + err
+        assert "Ctrl-C" in out + err and "safe state reached" in out + err
+        assert manifest["exit_path"] == "Ctrl-C" and manifest["safe_state"]["reached"]
 
     journal_before = read_journal(run)  # readable whatever the moment of the kill
     v = rig("verify", str(run))
