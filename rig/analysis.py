@@ -645,9 +645,17 @@ def _count_pulses_blocks(above: np.ndarray, under: np.ndarray, block: int = 64) 
         tok[br, 2 * bb] = first
         tok[br, 2 * bb + 1] = last
         np.add.at(inner, br, rises)
-    prev_tok = _prev_nonzero(tok)
-    firsts = (tok[:, 0::2] == 1) & (prev_tok[:, 0::2] == -1)
-    return firsts.sum(axis=1) + inner
+    # Only tokens that differ from their neighbour can start a rise: few per row.
+    keep = tok != 0
+    keep[:, 1:] &= tok[:, 1:] != tok[:, :-1]
+    rows, cols = np.nonzero(keep)
+    vals = tok[rows, cols]
+    prev = np.full(vals.size, -1, dtype=np.int8)  # a record starts "under"
+    if vals.size > 1:
+        same_row = rows[1:] == rows[:-1]
+        prev[1:] = np.where(same_row, vals[:-1], -1)
+    rise = (vals == 1) & (prev == -1) & (cols % 2 == 0)  # rises at a block's first state
+    return np.bincount(rows[rise], minlength=r) + inner
 
 
 def _count_pulses_sparse(above: np.ndarray, under: np.ndarray) -> np.ndarray:
