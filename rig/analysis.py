@@ -4,8 +4,10 @@
 (int8/int16 with gain and offset) or of currents in amperes (float), and returns one 1-D
 array per metric. It works through the events in chunks of rows, converting each chunk once
 to float32 (codes, exact) or keeping float64, so memory stays bounded whatever the number of
-events. Searches for level crossings look only at a window around the peak that doubles
-until the crossing is found, so their cost follows the pulse, not the record length.
+events. Level crossings are searched sample by sample only in the 64 samples next to the
+peak; beyond them a table of 64-sample block minima names the one block to read, so the
+search costs a few blocks per event, not the record length. Pulses are counted on 64-sample
+blocks of the threshold masks read as machine words.
 
 Definitions (times in seconds, currents in amperes; ``y`` is the baseline-removed current
 turned positive by the event's polarity, ``Ip`` its peak):
