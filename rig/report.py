@@ -375,15 +375,23 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
             stats, unit = cells[metric]
             row.append(
                 "<br>".join(
-                    f"<span class='nw'>{esc(k)}: {esc(eng(s[0], unit))} <span class='n'>(n={s[3]})</span></span>"
+                    f"<span class='nw'>{esc(k)}: {esc(eng(s[0], unit))} <span class='n'>(n={s[3]})"
+                    f"</span></span>{_clip_note(d, k, v) if metric == 'abs_peak_a' else ''}"
                     for k, s in stats.items()
                 )
             )
             w, text = _lower(stats)
+            if metric == "abs_peak_a" and any(_clip_note(d, k, v) for k in stats):
+                w = ("?", False)  # a clipped peak is a lower bound: no ranking on peaks
+                text = "<span class='warn'>not ranked: clipped peaks</span>"
             winners.append(w)
             row.append(text)
         if len(stats) < 2:
             verdict = "single meter: no comparison"
+        elif winners[0][0] == "?":
+            lower_q = winners[1][0]
+            verdict = f"peaks clipped; lower charge: <b>{esc(lower_q)}</b>" if lower_q else "–"
+            summary.setdefault(("?" + lower_q, winners[1][1]), []).append(f"{mode} ({load})")
         elif winners[0][0] and winners[0][0] == winners[1][0]:
             clear = winners[0][1] and winners[1][1]
             how = "clearly" if clear else "not clearly (CIs overlap)"
@@ -399,7 +407,13 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
     said = []
     for (meter, clear), where in summary.items():
         modes = esc(", ".join(where))
-        if not meter:
+        if meter.startswith("?"):
+            said.append(
+                f"peaks clipped in {modes} (widen the scope's current range to rank them), so "
+                "only the charge ranks the meters there"
+                + (f": <b>{esc(meter[1:])}</b> delivers less" if meter[1:] else "")
+            )
+        elif not meter:
             said.append(f"no meter is lower on both in {modes}")
         else:
             how = "clearly lower" if clear else "lower, within the uncertainty,"
@@ -429,6 +443,17 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
             "glance",
         )
     )
+
+
+def _clip_note(d: pd.DataFrame, meter: str, volts: float) -> str:
+    """A warning when clipped events enter a median peak (the scope range cut the peak)."""
+    if "flag_clipped" not in d.columns:
+        return ""
+    sel = d[(d["meter"] == meter) & (d["volts"] == volts)]
+    k = int(sel["flag_clipped"].fillna(False).astype(bool).sum())
+    if not k:
+        return ""
+    return f"<br><span class='warn'>{k} of {len(sel)} clipped: the true peak is higher</span>"
 
 
 def _lower(stats: dict[str, tuple[float, float, float, int]]) -> tuple[tuple[str, bool], str]:
@@ -876,7 +901,7 @@ th{background:#f0f0f3;font-weight:600}
 .wide{overflow-x:auto}table.groups td,table.flagged td,.nw{white-space:nowrap}.n{color:var(--mute);font-size:.9em}
 .v{font-weight:700;padding:1px 6px;border-radius:3px;white-space:nowrap}
 .v.pass{color:var(--pass);background:#e3f4ec}.v.fail{color:#fff;background:var(--fail)}
-.v.other{color:var(--mute);background:#eee}
+.v.other{color:var(--mute);background:#eee}.warn{color:var(--fail);font-size:.88em}
 .caution{border-left:6px solid var(--fail);background:#fff5ef;padding:4px 14px}
 dl.kv{display:grid;grid-template-columns:max-content 1fr;gap:2px 14px;margin:.4em 0}
 dl.kv dt{font-weight:600}dl.kv dd{margin:0}

@@ -223,6 +223,19 @@ def test_at_a_glance_is_computed_from_the_events(report):
             assert f"{meter}: {eng(v, 'A')}" in cell
 
 
+def test_at_a_glance_does_not_rank_clipped_peaks(tmp_path):
+    """A clipped peak is a lower bound: the glance must not call either meter lower on it."""
+    run = build_run(tmp_path, np.random.default_rng(8), modes=("AC V",), reps=3, delays=())
+    m = pd.read_parquet(run / "metrics.parquet")
+    m.loc[m["volts"] == m["volts"].max(), "flag_clipped"] = True
+    m.to_parquet(run / "metrics.parquet")
+    page = _parse(write_report(run).read_text(encoding="utf-8"))
+    header, row = page.tables["glance"][0], page.tables["glance"][1]
+    assert row[header.index("Lower peak")] == "not ranked: clipped peaks"
+    assert row[header.index("Lower on both")].startswith("peaks clipped; lower charge:")
+    assert "clipped: the true peak is higher" in row[header.index("Median |peak current|")]
+
+
 def test_verdict_counts_match_groups_csv(report):
     run, _path, _html, page = report
     g = pd.read_csv(run / "groups.csv")
@@ -368,6 +381,17 @@ def test_log_bins_follow_an_exponential_tail():
     expect = i0 * np.exp(-s.log_t[ok] / tau)
     assert np.allclose(s.log_mid[ok], expect, rtol=0.01)
     assert np.all(np.diff(s.log_t) > 0)
+
+
+def test_log_panel_starts_one_sample_after_the_trigger():
+    """t = t0 + k dt puts ~1e-22 s, not 0, at the trigger sample; the log axis must not
+    start there (a real record: 2 us pre-trigger at 1 ns)."""
+    t = -2e-6 + 1e-9 * np.arange(20_000)
+    assert 0 < t[2000] < 1e-18  # the floating-point residue this guards against
+    y = np.where(t > 0, np.exp(-t / 1e-6), 0.0)
+    s = F.summarise_traces(t, y[None, :], (-1e-7, 1e-6))
+    assert s.log_t[0] == pytest.approx(1e-9, rel=1e-6)
+    assert "polyline" in F.sparkline_svg(t, y)
 
 
 def test_palette_is_okabe_ito():
