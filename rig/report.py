@@ -25,6 +25,7 @@ import numpy as np
 import pandas as pd
 
 from drivers.errors import RunFolderError
+from rig import __version__
 from rig import figures as F
 from rig.api import group_waveforms, load_run
 from rig.compare import compare_runs
@@ -313,10 +314,6 @@ def _peak_metric(g: pd.DataFrame) -> str:
     (which rig.stats summarises by magnitude)."""
     names = set(g["metric"].astype(str))
     return "abs_peak_a" if "abs_peak_a" in names or "peak_a" not in names else "peak_a"
-
-
-def _main_load(m: pd.DataFrame) -> str:
-    return str(m["load"].value_counts().index[0])
 
 
 def _at_zero_delay(df: pd.DataFrame) -> pd.DataFrame:
@@ -912,6 +909,115 @@ svg.spark{display:block;background:var(--bg)}
 """
 
 
+def _load_title(load: object, several: bool) -> tuple[str, str]:
+    """(heading HTML, figure-name suffix) of one load when the run has several."""
+    return (f"<h3>Load {esc(load)}</h3>", f"-{_slug(str(load))}") if several else ("", "")
+
+
+def _section_peaks(m, g, load, several, modes, colours, rng, out) -> str:
+    head, sfx = _load_title(load, several)
+    ml = _at_zero_delay(m)
+    ml = ml[ml["load"] == load]
+    fig = F.fig_strip(
+        ml,
+        "abs_peak_a",
+        "A",
+        "|Peak current|",
+        modes,
+        colours,
+        rng,
+        f"|Peak current| per event · load {load}",
+    )
+    note = (
+        "<p>Every event is a point (hollow: flagged). Boxes: quartiles; whiskers: 5 % to "
+        "95 %; black bar: median.</p>"
+    )
+    return (
+        head
+        + note
+        + _img(
+            F.render(fig, f"peak-current{sfx}", out),
+            "Peak current per event",
+            "|Peak current| per event by mode, voltage and meter.",
+        )
+    )
+
+
+def _section_trends(m, g, load, several, modes, colours, rng, out) -> str:
+    head, sfx = _load_title(load, several)
+    gl = _at_zero_delay(g[g["load"].astype(str) == str(load)])
+    metrics = [(_peak_metric(g), "|Peak current|", "A"), ("charge_c", "Charge", "C")]
+    fig = F.fig_vs_voltage(gl, metrics, modes, colours, f"Against charge voltage · load {load}")
+    return head + _img(
+        F.render(fig, f"vs-voltage{sfx}", out),
+        "Peak current and charge against voltage",
+        "Median with its 95 % confidence interval, upper tolerance bound (dashed) "
+        "and limit (dash-dot) where groups.csv sets one.",
+    )
+
+
+def _section_iec(m, g, load, several, modes, colours, rng, out) -> str:
+    head, sfx = _load_title(load, several)
+    ml = _at_zero_delay(m)
+    ml = ml[ml["load"] == load]
+    vmax = ml.groupby(["meter", "mode"])["volts"].transform("max")
+    fig = F.fig_iec_charge(ml[ml["volts"] == vmax], colours, rng, IEC61010_CHARGE_C)
+    return head + (
+        _img(
+            F.render(fig, f"iec-charge{sfx}", out),
+            "Charge against 45 µC",
+            "Charge per event, logarithmic axis.",
+        )
+    )
+
+
+_IEC_NOTE = (
+    "<p>IEC 61010-1 treats a stored charge up to 45 µC (for voltages up to 15 kV) as not "
+    "hazardous; the points are the charge each event delivered at the highest voltage of each "
+    "group. Defer to the standard's current text.</p>"
+)
+
+
+def _section_bounce(m, modes, colours, out) -> str:
+    if "pulses" not in m.columns or not m["pulses"].notna().any():
+        return "<p>metrics.parquet holds no pulse counts.</p>"
+    fig = F.fig_pulses(_at_zero_delay(m), modes, colours)
+    return _img(
+        F.render(fig, "bounce", out),
+        "Pulses per event",
+        "Separate current pulses per discharge (contact bounce), all loads and "
+        "voltages at the shortest delay.",
+    )
+
+
+def _section_selfdischarge(run: Path, m: pd.DataFrame, colours, out) -> str:
+    path = run / "selfdischarge.csv"
+    sd = pd.read_csv(path) if path.exists() else pd.DataFrame()
+    if sd.empty:
+        return "<p>No delay sweep in this run (no selfdischarge.csv).</p>"
+    fig = F.fig_selfdischarge(m, sd, colours)
+    rows = [
+        [
+            esc(r.meter),
+            esc(r.mode),
+            esc(eng(r.volts, "V")),
+            esc(r.load),
+            esc(f"{eng(r.tau_s, 's')} ({eng(r.tau_ci_low, 's')} – {eng(r.tau_ci_high, 's')})"),
+            esc(eng(r.safe_charge_c, "C")),
+            esc(eng(r.delay_to_safe_s, "s")),
+            esc(r.n_delays),
+        ]
+        for r in sd.itertuples()
+    ]
+    header = ["Meter", "Mode", "Voltage", "Load", "τ (95 % CI)", "Safe charge", "Delay to safe"]
+    return _img(
+        F.render(fig, "selfdischarge", out),
+        "Self-discharge",
+        "Charge delivered after each delay, with the fitted exponential (τ from "
+        "selfdischarge.csv).",
+    ) + _table(header + ["Delays"], rows)
+
+
 def write_report(
     run_dir: str | Path,
     baseline_dir: str | Path | None = None,
@@ -941,106 +1047,16 @@ def write_report(
     body["waveforms"] = _section_waveforms(run, m, modes, colours, out)
     log.info("report %s: waveforms done after %.1f s", run.name, time.perf_counter() - t_start)
 
-    mz = _at_zero_delay(m)
-    load = _main_load(m)
-    ml = mz[mz["load"] == load]
-    fig = F.fig_strip(
-        ml,
-        "abs_peak_a",
-        "A",
-        "|Peak current|",
-        modes,
-        colours,
-        rng,
-        f"|Peak current| per event · load {load}",
-    )
-    body["peaks"] = (
-        "<p>Every event is a point (hollow: flagged). Boxes: quartiles; whiskers: "
-        "5 % to 95 %; black bar: median.</p>"
-        + _img(
-            F.render(fig, "peak-current", out),
-            "Peak current per event",
-            "|Peak current| per event by mode, voltage and meter.",
-        )
-    )
-
-    gl = _at_zero_delay(g[g["load"].astype(str) == str(load)])
-    fig = F.fig_vs_voltage(
-        gl,
-        [(_peak_metric(g), "|Peak current|", "A"), ("charge_c", "Charge", "C")],
-        modes,
-        colours,
-        f"Against charge voltage · load {load}",
-    )
-    body["trends"] = _img(
-        F.render(fig, "vs-voltage", out),
-        "Peak current and charge against voltage",
-        "Median with its 95 % confidence interval, upper tolerance bound (dashed) "
-        "and limit (dash-dot) where groups.csv sets one.",
-    )
-
-    vmax = ml.groupby(["meter", "mode"])["volts"].transform("max")
-    fig = F.fig_iec_charge(ml[ml["volts"] == vmax], colours, rng, IEC61010_CHARGE_C)
-    body["iec-charge"] = (
-        "<p>IEC 61010-1 treats a stored charge up to 45 µC (for voltages up "
-        "to 15 kV) as not hazardous; the points are the charge each event "
-        "delivered at the highest voltage of each group. Defer to the "
-        "standard's current text.</p>"
-        + _img(
-            F.render(fig, "iec-charge", out),
-            "Charge against 45 µC",
-            "Charge per event, logarithmic axis.",
-        )
-    )
-
-    if "pulses" in m.columns and m["pulses"].notna().any():
-        fig = F.fig_pulses(mz, modes, colours)
-        body["bounce"] = _img(
-            F.render(fig, "bounce", out),
-            "Pulses per event",
-            "Separate current pulses per discharge (contact bounce).",
-        )
-    else:
-        body["bounce"] = "<p>metrics.parquet holds no pulse counts.</p>"
-
-    sd_path = run / "selfdischarge.csv"
-    sd = pd.read_csv(sd_path) if sd_path.exists() else pd.DataFrame()
-    if not sd.empty:
-        fig = F.fig_selfdischarge(m, sd, colours)
-        rows = [
-            [
-                esc(r.meter),
-                esc(r.mode),
-                esc(eng(r.volts, "V")),
-                esc(r.load),
-                esc(f"{eng(r.tau_s, 's')} ({eng(r.tau_ci_low, 's')} – {eng(r.tau_ci_high, 's')})"),
-                esc(eng(r.safe_charge_c, "C")),
-                esc(eng(r.delay_to_safe_s, "s")),
-                esc(r.n_delays),
-            ]
-            for r in sd.itertuples()
-        ]
-        body["selfdischarge"] = _img(
-            F.render(fig, "selfdischarge", out),
-            "Self-discharge",
-            "Charge delivered after each delay, with the fitted "
-            "exponential (τ from selfdischarge.csv).",
-        ) + _table(
-            [
-                "Meter",
-                "Mode",
-                "Voltage",
-                "Load",
-                "τ (95 % CI)",
-                "Safe charge",
-                "Delay to safe",
-                "Delays",
-            ],
-            rows,
-        )
-    else:
-        body["selfdischarge"] = "<p>No delay sweep in this run (no selfdischarge.csv).</p>"
-
+    loads = list(m["load"].value_counts().index)  # most events first
+    for key, fn in (
+        ("peaks", _section_peaks),
+        ("trends", _section_trends),
+        ("iec-charge", _section_iec),
+    ):
+        body[key] = "".join(fn(m, g, ld, len(loads) > 1, modes, colours, rng, out) for ld in loads)
+    body["iec-charge"] = _IEC_NOTE + body["iec-charge"]
+    body["bounce"] = _section_bounce(m, modes, colours, out)
+    body["selfdischarge"] = _section_selfdischarge(run, m, colours, out)
     body["flagged"] = _section_flagged(run, m, colours)
     body["groups"] = _section_groups(g)
     if baseline_dir is not None:
@@ -1061,7 +1077,8 @@ def write_report(
         "img-src data:; style-src 'unsafe-inline'\">"
         f"<title>{esc(title)}</title><style>{_CSS}</style></head><body><main>"
         f"<h1>{esc(title)}</h1><nav>{nav}</nav>{sections}"
-        f"<footer class='n'><p>Written by discharge-rig on {stamp}.</p></footer>"
+        f"<footer class='n'><p>Written by discharge-rig {esc(__version__)} on {stamp}.</p>"
+        "</footer>"
         "</main></body></html>"
     )
     path = run / REPORT

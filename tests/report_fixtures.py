@@ -12,6 +12,7 @@ fixture data for tests and benchmarks only; the real metrics come from rig.analy
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 from dataclasses import dataclass, field
@@ -74,24 +75,34 @@ DEFAULT_METERS = (
 
 
 def _current(
-    meter: FakeMeter, mode: str, volts: float, t: np.ndarray, restrikes, contact: float = 1.0
+    meter: FakeMeter,
+    mode: str,
+    volts: float,
+    t: np.ndarray,
+    restrikes,
+    contact: float = 1.0,
+    load_ohms: float = 0.0,
 ) -> np.ndarray:
     """Discharge current (A) of one event at times ``t`` (s), restrikes = [(t_k, fraction)];
-    ``contact`` scales the fast path's resistance (probe and relay contact, per event)."""
+    ``contact`` scales the fast path's resistance (probe and relay contact, per event); the
+    load adds to both paths' resistance."""
     tp = np.clip(t, 0.0, None)
     on = t >= 0.0
-    r_fast = meter.r_fast * contact
+    r_fast = meter.r_fast * contact + load_ohms
+    r_slow = meter.r_slow + load_ohms
     tau_f = r_fast * meter.c_fast
-    tau_s = meter.r_slow * meter.c_mode[mode]
+    tau_s = r_slow * meter.c_mode[mode]
     i = volts / r_fast * np.exp(-tp / tau_f) * (1 - np.exp(-tp / RISE))
-    i += volts / meter.r_slow * np.exp(-tp / tau_s) * (1 - np.exp(-tp / (10 * RISE)))
+    i += volts / r_slow * np.exp(-tp / tau_s) * (1 - np.exp(-tp / (10 * RISE)))
     for tk, frac in restrikes:
         tk_ = np.clip(t - tk, 0.0, None)
         i += (t >= tk) * frac * volts / r_fast * np.exp(-tk_ / tau_f) * (1 - np.exp(-tk_ / RISE))
     return i * on
 
 
-def _metrics(v: np.ndarray, t: np.ndarray, volts: float, clipped: bool) -> dict[str, object]:
+def _metrics(
+    v: np.ndarray, t: np.ndarray, volts: float, clipped: bool, load_ohms: float
+) -> dict[str, object]:
     """Per-event metrics of one decoded current trace (fixture arithmetic, not rig.analysis)."""
     pre = v[t < 0]
     base = float(pre.mean())
@@ -112,7 +123,7 @@ def _metrics(v: np.ndarray, t: np.ndarray, volts: float, clipped: bool) -> dict[
     i37 = first(a < 0.368 * ap, k)
     post = t >= 0
     charge = float(a[post].sum() * DT)
-    energy = float((a[post] ** 2).sum() * DT * LOAD[1])
+    energy = float((a[post] ** 2).sum() * DT * load_ohms)
     return {
         "peak_a": peak,
         "abs_peak_a": ap,
@@ -204,6 +215,7 @@ def build_run(
     run_id: str = "2026-12-01-120000-fictitious-qualification",
     meters: tuple[FakeMeter, ...] = DEFAULT_METERS,
     modes: tuple[str, ...] = MODES,
+    loads: tuple[tuple[str, float], ...] = (LOAD,),
     volts: tuple[float, ...] = (300.0, 600.0),
     reps: int = 4,
     delays: tuple[float, ...] = (0.5, 1.0, 2.0, 5.0),
@@ -223,18 +235,19 @@ def build_run(
     plan: list[dict[str, object]] = []
     for m in meters:
         for mode in modes:
-            for v in volts:
-                for r in range(reps):
-                    plan.append(
-                        {
-                            "meter": m.name,
-                            "serial": m.serial,
-                            "mode": mode,
-                            "volts": v,
-                            "delay_s": 0.0,
-                            "rep": r,
-                        }
-                    )
+            for load, v, r in itertools.product(loads, volts, range(reps)):
+                plan.append(
+                    {
+                        "meter": m.name,
+                        "serial": m.serial,
+                        "mode": mode,
+                        "volts": v,
+                        "delay_s": 0.0,
+                        "rep": r,
+                        "load": load[0],
+                        "load_ohms": load[1],
+                    }
+                )
             if delays and mode == modes[0]:
                 for d in delays:
                     for r in range(2):
@@ -246,12 +259,14 @@ def build_run(
                                 "volts": max(volts),
                                 "delay_s": d,
                                 "rep": r,
+                                "load": loads[0][0],
+                                "load_ohms": loads[0][1],
                             }
                         )
     for i, p in enumerate(plan):
-        p |= {"event": i, "load": LOAD[0], "load_ohms": LOAD[1]}
+        p["event"] = i
         p["key"] = (
-            f"{p['serial']}/{p['mode']}/{p['volts']:g}V/{LOAD[0]}/{p['delay_s']:g}s/{p['rep']}"
+            f"{p['serial']}/{p['mode']}/{p['volts']:g}V/{p['load']}/{p['delay_s']:g}s/{p['rep']}"
         )
     by_name = {m.name: m for m in meters}
     clip_event, lost_event = 1, 6
@@ -286,10 +301,11 @@ def build_run(
                 }
             )
             continue
-        i = _current(m, str(p["mode"]), v_eff, t, restrikes, rng.lognormal(0.0, 0.15)) + rng.normal(
-            0, NOISE_A, t.size
-        )
-        full_scale = 1.6 * v_eff * (1 / m.r_fast + 1 / m.r_slow) + 10 * NOISE_A
+        ohms = float(p["load_ohms"])
+        contact = rng.lognormal(0.0, 0.15)
+        i = _current(m, str(p["mode"]), v_eff, t, restrikes, contact, ohms)
+        i += rng.normal(0, NOISE_A, t.size)
+        full_scale = 1.6 * v_eff * (1 / (m.r_fast + ohms) + 1 / (m.r_slow + ohms)) + 10 * NOISE_A
         if ev == clip_event:
             full_scale *= 0.25
         gain = full_scale / 32000
@@ -307,10 +323,9 @@ def build_run(
         )
         rec["sha256"] = save_waveform(run / str(rec["file"]), wf)
         journal.append(rec)
-        met = _metrics(
-            wf.values("current"), t, float(p["volts"]), bool(np.any(np.abs(codes) >= 32767))
-        )
-        tau_s = m.r_slow * m.c_mode[str(p["mode"])] * (1 + rng.normal(0, 0.02))
+        clipped = bool(np.any(np.abs(codes) >= 32767))
+        met = _metrics(wf.values("current"), t, float(p["volts"]), clipped, ohms)
+        tau_s = (m.r_slow + ohms) * m.c_mode[str(p["mode"])] * (1 + rng.normal(0, 0.02))
         met |= {
             "pulses": 1 + len(restrikes),
             "tau_s": tau_s,
@@ -327,7 +342,7 @@ def build_run(
             fh.write(json.dumps(rec) + "\n")
     (run / "plan.json").write_text(json.dumps(plan, indent=1), encoding="utf-8")
     (run / "manifest.json").write_text(
-        json.dumps(_manifest(run_id, meters, modes, volts, reps, operator_note), indent=1),
+        json.dumps(_manifest(run_id, meters, modes, loads, volts, reps, operator_note), indent=1),
         encoding="utf-8",
     )
     return run
@@ -359,7 +374,7 @@ def _selfdischarge(metrics: pd.DataFrame, meters: tuple[FakeMeter, ...]) -> pd.D
     return pd.DataFrame(rows)
 
 
-def _manifest(run_id, meters, modes, volts, reps, note) -> dict[str, object]:
+def _manifest(run_id, meters, modes, loads, volts, reps, note) -> dict[str, object]:
     """A manifest shaped like the one ``rig run`` writes: the resolved sequence and bench,
     the instruments' identities, host and software."""
     sim = {
@@ -388,7 +403,7 @@ def _manifest(run_id, meters, modes, volts, reps, note) -> dict[str, object]:
                 for m in meters
             ],
             "volts": list(volts),
-            "loads": [LOAD[0]],
+            "loads": [name for name, _ in loads],
             "repetitions": reps,
             "delays_s": [0.0],
             "scope": {"sample_interval_s": DT, "points": N_SAMPLES, "bits": 16},
@@ -417,7 +432,10 @@ def _manifest(run_id, meters, modes, volts, reps, note) -> dict[str, object]:
             "name": "simulated bench (fictitious)",
             "instruments": {r: sim | {"role": r} for r in ("supply", "switch", "scope", "meter")},
             "charge_ohms": 100e3,
-            "loads": [{"name": LOAD[0], "ohms": LOAD[1], "henry": 2e-7, "channel": 4}],
+            "loads": [
+                {"name": name, "ohms": ohms, "henry": 2e-7, "channel": 4 + k}
+                for k, (name, ohms) in enumerate(loads)
+            ],
             "sense": {"kind": "shunt", "ohms": 0.1, "amps_per_volt": 1.0, "bandwidth_hz": None},
             "limits": {
                 "max_volts": 1100.0,

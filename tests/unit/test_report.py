@@ -236,6 +236,24 @@ def test_at_a_glance_does_not_rank_clipped_peaks(tmp_path):
     assert "clipped: the true peak is higher" in row[header.index("Median |peak current|")]
 
 
+def test_several_loads_get_a_figure_each_and_glance_rows(tmp_path):
+    loads = (("short", 0.05), ("500R", 500.0))
+    run = build_run(
+        tmp_path, np.random.default_rng(9), modes=("AC V",), loads=loads, reps=3, delays=()
+    )
+    page = _parse(write_report(run).read_text(encoding="utf-8"))
+    for name in ("peak-current", "vs-voltage", "iec-charge"):
+        assert (run / "figures" / f"{name}-short.png").exists()
+        assert (run / "figures" / f"{name}-500r.png").exists()
+    rows = page.tables["glance"][1:]
+    assert sorted(r[1] for r in rows) == ["500R", "short"]
+    m = pd.read_parquet(run / "metrics.parquet")
+    for r in rows:
+        d = m[(m["load"] == r[1]) & (m["volts"] == m["volts"].max())]
+        for meter, v in d.groupby("meter")["abs_peak_a"].median().items():
+            assert f"{meter}: {eng(v, 'A')}" in r[3]
+
+
 def test_verdict_counts_match_groups_csv(report):
     run, _path, _html, page = report
     g = pd.read_csv(run / "groups.csv")
