@@ -329,7 +329,8 @@ def cmd_sim_serve(args: argparse.Namespace) -> int:
     if args.meter:
         cfg = replace(cfg, meter_model=str(resolve_meter_model(args.meter)))
     with start_sim_bench(cfg, RealClock()) as sim:
-        _out(CAUTION.splitlines()[0] + " (simulated: no voltage leaves this computer)")
+        _out("Simulated bench: no voltage leaves this computer. Before driving a real bench,")
+        _out("read the high-voltage cautions of `rig --help` and the README.")
         _out(f"simulated bench running in real time, meter model {cfg.meter_model}")
         for role, res in sim.resources.items():
             _out(f"  {role:8s} {res}")
