@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 import drivers
+from drivers.errors import FileFormatError
 from drivers.sim.interfaces import (
     BenchWiring,
     BounceSpec,
@@ -43,6 +44,7 @@ from rig.tomlcheck import (
 )
 
 __all__ = [
+    "DEFAULT_CAPTURE",
     "METRICS",
     "PROFILES_DIR",
     "ROLES",
@@ -70,6 +72,9 @@ PROFILES_DIR = Path(drivers.__file__).resolve().parent / "profiles"
 SIM_METERS_DIR = Path(drivers.__file__).resolve().parent / "sim" / "meters"
 
 ROLES = ("supply", "switch", "scope", "meter")
+# Name of the single capture of a sequence without [scope.captures] tables (and of the
+# captures of runs recorded before captures existed).
+DEFAULT_CAPTURE = "main"
 # Per-event metric names written by the analysis (DEVELOPERS.md, "Analysis outputs").
 METRICS = (
     "peak_a",
@@ -567,7 +572,7 @@ class ScopeSettings:
 
 @dataclass(frozen=True)
 class LimitSpec:
-    """A limit on one metric's group statistic; None in modes/volts/loads means all."""
+    """A limit on one metric's group statistic; None in modes/volts/loads/captures means all."""
 
     metric: str
     max: float
@@ -575,13 +580,16 @@ class LimitSpec:
     modes: tuple[str, ...] | None = None
     volts: tuple[float, ...] | None = None
     loads: tuple[str, ...] | None = None
+    captures: tuple[str, ...] | None = None
 
-    def applies(self, mode: str, volts: float, load: str) -> bool:
-        """Whether this limit covers the group (mode, volts, load)."""
+    def applies(self, mode: str, volts: float, load: str, capture: str | None = None) -> bool:
+        """Whether this limit covers the group (mode, volts in V, load, capture); a limit
+        restricted to some captures does not cover ``capture=None``."""
         return (
             (self.modes is None or mode in self.modes)
             and (self.volts is None or any(math.isclose(volts, v) for v in self.volts))
             and (self.loads is None or load in self.loads)
+            and (self.captures is None or capture in self.captures)
         )
 
 
@@ -600,16 +608,31 @@ class Sequence:
     hold_s: float
     delays_s: tuple[float, ...]
     charge_done_amps: float | None
-    scope: ScopeSettings
-    scope_modes: dict[str, ScopeSettings]  # per-mode settings, overrides applied
+    scope: ScopeSettings  # [scope]: the base settings of every capture
+    scope_modes: dict[str, ScopeSettings]  # first capture, mode overrides applied (modes with any)
     limits: tuple[LimitSpec, ...]
     order: str  # "grouped" | "shuffled"
     shuffle_seed: int | None
     raw: dict[str, Any]
+    # Named captures in file order (one "main" capture when the file names none); every event
+    # of the plan is recorded once per capture.
+    captures: tuple[str, ...] = (DEFAULT_CAPTURE,)
+    scope_captures: dict[str, ScopeSettings] | None = None  # base + capture overrides
+    # capture -> mode -> base + capture + mode overrides (only modes with overrides)
+    scope_grid: dict[str, dict[str, ScopeSettings]] | None = None
 
-    def scope_for(self, mode: str) -> ScopeSettings:
-        """Scope settings for events in ``mode`` (the defaults unless overridden)."""
-        return self.scope_modes.get(mode, self.scope)
+    def scope_for(self, mode: str, capture: str | None = None) -> ScopeSettings:
+        """Scope settings for events in ``mode`` recorded by ``capture`` (None: the first
+        capture): the base settings, then the capture's overrides, then the mode's."""
+        name = self.captures[0] if capture is None else capture
+        if name not in self.captures:
+            raise KeyError(f"sequence {self.path} has no capture {name!r}")
+        grid = (self.scope_grid or {}).get(name, {})
+        if mode in grid:
+            return grid[mode]
+        if self.scope_captures is None or name not in self.scope_captures:
+            return self.scope_modes.get(mode, self.scope)
+        return self.scope_captures[name]
 
     @property
     def modes(self) -> tuple[str, ...]:
@@ -703,7 +726,11 @@ def _read_scope(t: _Table, base: ScopeSettings) -> ScopeSettings:
 
 
 def _read_limit(
-    t: _Table, modes: tuple[str, ...], volts: tuple[float, ...], loads: tuple[str, ...]
+    t: _Table,
+    modes: tuple[str, ...],
+    volts: tuple[float, ...],
+    loads: tuple[str, ...],
+    captures: tuple[str, ...],
 ) -> LimitSpec:
     lim_volts = t.numbers("volts", None, positive=True)
     if lim_volts is not None:
@@ -718,7 +745,42 @@ def _read_limit(
         modes=t.strings("modes", None, choices=modes, what="mode"),
         volts=lim_volts,
         loads=t.strings("loads", None, choices=loads, what="load"),
+        captures=t.strings("captures", None, choices=captures, what="capture"),
     )
+
+
+def _read_captures(
+    st: _Table, base: ScopeSettings, modes: tuple[str, ...]
+) -> tuple[tuple[str, ...], dict[str, ScopeSettings], dict[str, dict[str, ScopeSettings]]]:
+    """Capture names, base + capture settings, and capture -> mode -> settings with the mode
+    overrides on top (every combination is validated, since a mode override that fits one
+    capture's record may not fit another's)."""
+    raw = st.data.get("captures", {})
+    tables = st.table("captures", tuple(raw) if isinstance(raw, dict) else ())
+    if st.has("captures") and not tables.data:
+        raise st.error("captures", "needs at least one [scope.captures.<name>] table")
+    names = tuple(tables.data) or (DEFAULT_CAPTURE,)
+    for name in names:
+        if not name.strip() or "|" in name:
+            raise tables.error(name, f"capture name {name!r} must be non-empty and without '|'")
+    per_capture = {
+        name: _read_scope(tables.table(name, _SCOPE_KEYS), base) if tables.data else base
+        for name in names
+    }
+    per_mode = st.table("modes", modes)
+    grid: dict[str, dict[str, ScopeSettings]] = {}
+    for name in names:
+        grid[name] = {}
+        for mode in per_mode.data:
+            try:
+                grid[name][mode] = _read_scope(per_mode.table(mode, _SCOPE_KEYS), per_capture[name])
+            except FileFormatError as exc:
+                if len(names) == 1:
+                    raise
+                raise FileFormatError(
+                    exc.path, exc.key, f"{exc.problem} (with capture {name!r})", exc.line
+                ) from None
+    return names, per_capture, grid
 
 
 def load_sequence(path: str | Path, bench: Bench) -> Sequence:
@@ -754,15 +816,15 @@ def load_sequence(path: str | Path, bench: Bench) -> Sequence:
     delays = dis.numbers("delays_s", (0.0,), minimum=0.0)
     hold_s = top.table("bleed", ("hold_s",)).number("hold_s", 0.0, minimum=0.0)
     modes = tuple(dict.fromkeys(m for meter in meters for m in meter.modes))
-    st = top.table("scope", _SCOPE_KEYS + ("modes",))
+    st = top.table("scope", _SCOPE_KEYS + ("modes", "captures"))
     scope = _read_scope(st, ScopeSettings(voltage_range_volts=2.2 * max(volts)))
-    per_mode = st.table("modes", modes)
-    scope_modes = {
-        mode: _read_scope(per_mode.table(mode, _SCOPE_KEYS), scope) for mode in per_mode.data
-    }
+    captures, scope_captures, scope_grid = _read_captures(st, scope, modes)
+    scope_modes = dict(scope_grid[captures[0]])
     limits = tuple(
-        _read_limit(t, modes, volts, loads)
-        for t in top.tables("limits", ("metric", "max", "statistic", "modes", "volts", "loads"))
+        _read_limit(t, modes, volts, loads, captures)
+        for t in top.tables(
+            "limits", ("metric", "max", "statistic", "modes", "volts", "loads", "captures")
+        )
     )
     fields_ = {
         "path": path,
@@ -781,5 +843,8 @@ def load_sequence(path: str | Path, bench: Bench) -> Sequence:
         "limits": limits,
         "order": order,
         "shuffle_seed": shuffle_seed,
+        "captures": captures,
+        "scope_captures": scope_captures,
+        "scope_grid": scope_grid,
     }
     return Sequence(**fields_, raw=_jsonable(fields_))

@@ -1,11 +1,14 @@
 """The plan: the ordered list of discharge events, its duration estimate and a safety review.
 
 Events are grouped by meter, then by mode (so that the operator turns the dial, or the rig
-sends a function command, as seldom as possible), and inside a mode by voltage, load, delay
-and repetition, in the order the sequence file lists them. With ``order = "shuffled"`` the
-events of each (meter, mode) block are put in a seeded random order, and only inside that
-block: drift in the bench then spreads over all groups instead of biasing the last ones,
-while the number of mode changes stays the same.
+sends a function command, as seldom as possible), then by capture (so that the scope is set
+up once per mode and capture), and inside a capture by voltage, load, delay and repetition,
+in the order the sequence file lists them. Every event is planned once per capture: a fast
+capture resolves the nanosecond peak, a long one records the millisecond tail and so the
+charge. With ``order = "shuffled"`` the events of each (meter, mode, capture) block are put
+in a seeded random order, and only inside that block: drift in the bench then spreads over
+all groups instead of biasing the last ones, while the number of mode changes and scope
+set-ups stays the same.
 
 Nothing here touches an instrument.
 """
@@ -51,11 +54,12 @@ class Event:
     """One planned discharge event (what the runner does and the journal records)."""
 
     index: int  # position in the plan, 0-based
-    key: str  # stable identity, e.g. "m0|AC V|1000|short|0|r007"
+    key: str  # stable identity, e.g. "m0|AC V|peak|1000|short|0|r007"
     meter_index: int  # index into sequence.meters
     meter: str  # meter model
     serial: str
     mode: str
+    capture: str  # name of the scope capture (sequence.captures) that records this event
     volts: float  # charge setpoint, V
     load: str  # load name
     load_ohms: float  # its resistance, ohm
@@ -91,10 +95,13 @@ def _number_text(value: float) -> str:
 
 
 def event_key(
-    meter_index: int, mode: str, volts: float, load: str, delay_s: float, rep: int
+    meter_index: int, mode: str, capture: str, volts: float, load: str, delay_s: float, rep: int
 ) -> str:
     """The stable key of an event; unchanged as long as the sequence file is unchanged."""
-    return f"m{meter_index}|{mode}|{_number_text(volts)}|{load}|{_number_text(delay_s)}|r{rep:03d}"
+    return (
+        f"m{meter_index}|{mode}|{capture}|{_number_text(volts)}|{load}|"
+        f"{_number_text(delay_s)}|r{rep:03d}"
+    )
 
 
 def build_plan(sequence: Sequence, bench: Bench) -> Plan:
@@ -102,31 +109,36 @@ def build_plan(sequence: Sequence, bench: Bench) -> Plan:
     blocks: list[list[tuple[Any, ...]]] = []
     for m_index, meter in enumerate(sequence.meters):
         for k, mode in enumerate(meter.modes):
-            block = [
-                (m_index, meter, mode, volts, load, delay, rep)
-                for volts in sequence.volts
-                for load in sequence.loads
-                for delay in sequence.delays_s
-                for rep in range(sequence.repetitions)
-            ]
-            if sequence.order == "shuffled":
-                # One generator per block, seeded from (seed, meter, mode): a block's order
-                # does not change when another meter or mode is added to the file.
-                seed = np.random.SeedSequence([int(sequence.shuffle_seed or 0), m_index, k])
-                rng = np.random.default_rng(seed)
-                block = [block[i] for i in rng.permutation(len(block))]
-            blocks.append(block)
+            for c_index, capture in enumerate(sequence.captures):
+                block = [
+                    (m_index, meter, mode, capture, volts, load, delay, rep)
+                    for volts in sequence.volts
+                    for load in sequence.loads
+                    for delay in sequence.delays_s
+                    for rep in range(sequence.repetitions)
+                ]
+                if sequence.order == "shuffled":
+                    # One generator per block, seeded from (seed, meter, mode[, capture]): a
+                    # block's order does not change when another meter, mode or capture is
+                    # added to the file (the first capture keeps the seed of a file without).
+                    entropy = [int(sequence.shuffle_seed or 0), m_index, k]
+                    rng = np.random.default_rng(
+                        np.random.SeedSequence(entropy + ([c_index] if c_index else []))
+                    )
+                    block = [block[i] for i in rng.permutation(len(block))]
+                blocks.append(block)
     events: list[Event] = []
     for block in blocks:
-        for m_index, meter, mode, volts, load, delay, rep in block:
+        for m_index, meter, mode, capture, volts, load, delay, rep in block:
             events.append(
                 Event(
                     index=len(events),
-                    key=event_key(m_index, mode, volts, load, delay, rep),
+                    key=event_key(m_index, mode, capture, volts, load, delay, rep),
                     meter_index=m_index,
                     meter=meter.model,
                     serial=meter.serial,
                     mode=mode,
+                    capture=capture,
                     volts=float(volts),
                     load=load,
                     load_ohms=bench.load(load).ohms,
@@ -198,7 +210,7 @@ def _estimate_s(events: list[Event], sequence: Sequence, bench: Bench) -> float:
             total += METER_CHANGE_S if previous is not None else 0.0
         if previous is None or (previous.meter_index, previous.mode) != (e.meter_index, e.mode):
             total += MODE_CHANGE_MANUAL_S if manual else MODE_CHANGE_SCPI_S
-        scope = sequence.scope_for(e.mode)
+        scope = sequence.scope_for(e.mode, e.capture)
         total += (
             sequence.dwell_s
             + e.delay_s
@@ -448,6 +460,18 @@ def describe(plan: Plan, bench: Bench, sequence: Sequence) -> str:
         )
         for mode in meter.modes:
             lines.append(f"    {mode:<10s} {counts.get((m_index, mode), 0):6d} events")
+    lines.append(
+        f"captures  {len(sequence.captures)} per event "
+        "(sample interval, record, span, bits, bandwidth; per-mode overrides not shown):"
+    )
+    for name in sequence.captures:
+        s = (sequence.scope_captures or {}).get(name, sequence.scope)
+        bw = _si(s.bandwidth_hz, "Hz") if s.bandwidth_hz else "full"
+        lines.append(
+            f"    {name:<10s} {_si(s.sample_interval_s, 's')}, {s.points} points = "
+            f"{_si(s.record_s, 's')}, {s.current_offset_amps - s.current_range_amps / 2:g} .. "
+            f"{s.current_offset_amps + s.current_range_amps / 2:g} A, {s.bits} bits, {bw}"
+        )
     volts = ", ".join(f"{v:g}" for v in sequence.volts)
     delays = ", ".join(f"{d:g}" for d in sequence.delays_s)
     lines += [

@@ -274,7 +274,7 @@ class Runner:
 
         self._enter(e, Phase.DISCHARGE)
         b.switch.transfer([ch.charge, ch.bleed], [ch.discharge], clock=clock, settle_s=0.0)
-        s = self.seq.scope_for(e.mode)
+        s = self.seq.scope_for(e.mode, e.capture)
         record_s = s.points * s.sample_interval_s
         clock.sleep(record_s)
         captured = b.scope.wait_complete(
@@ -356,7 +356,7 @@ class Runner:
                 others, [target] if target is not None else [], clock=b.clock, settle_s=0.0
             )
             self._load = e.load
-        s = self.seq.scope_for(e.mode)
+        s = self.seq.scope_for(e.mode, e.capture)
         if s != self._scope_key:
             self._configure_scope(s)
             self._scope_key = s

@@ -208,12 +208,26 @@ def test_qualification_matches_the_demo_brief():
     ]
     assert all(m.modes == ("AC V", "AC mV", "DC V") for m in seq.meters)
     assert seq.volts == (500.0, 1000.0) and seq.loads == ("short",) and seq.repetitions == 25
-    s = seq.scope_for("AC V")
+    assert seq.captures == ("peak", "charge")
+    s = seq.scope_for("AC V")  # the first capture: the fast one
+    assert s == seq.scope_for("AC V", "peak")
     assert (s.sample_interval_s, s.points, s.trigger_offset_s) == (1e-9, 20000, -2e-6)
-    assert (s.current_range_amps, s.trigger_level_amps, s.bits) == (40.0, 0.2, 8)
+    assert (s.trigger_level_amps, s.bits, s.trigger_slope) == (0.2, 16, "POSitive")
     assert s.bandwidth_hz == 500e6
     assert s.voltage_range_volts == pytest.approx(2.2 * 1000)
+    q = seq.scope_for("AC V", "charge")  # the long one: 50 ms of tail
+    assert (q.sample_interval_s, q.points, q.trigger_offset_s) == (200e-9, 250_000, -20e-6)
+    assert q.record_s == pytest.approx(50e-3) and q.bandwidth_hz == 5e6 and q.bits == 16
+    for mode in seq.modes:
+        for capture in seq.captures:
+            c = seq.scope_for(mode, capture)
+            # the demo meters peak near 27 A (demo-a) and 37 A (demo-b) at 1000 V, positive:
+            # the window must hold them with margin and reach a little below zero
+            low = c.current_offset_amps - c.current_range_amps / 2
+            high = c.current_offset_amps + c.current_range_amps / 2
+            assert low < 0 and high >= 1.4 * 37.0
     assert seq.limits[0].metric == "abs_peak_a" and seq.limits[0].statistic == "utl"
+    assert seq.limits[0].captures == ("peak",)
 
 
 def test_safety_defaults_are_the_iec_61010_values():
@@ -393,6 +407,10 @@ def test_sequence_resolves(tmp_path, sim_bench):
     assert seq.delays_s == (0.0, 0.1) and seq.hold_s == 0.2 and seq.charge_done_amps is None
     assert seq.scope.trigger_offset_s == -2e-6
     assert seq.scope_for("DC V") is seq.scope
+    assert seq.captures == ("main",)  # no [scope.captures]: one capture
+    assert seq.scope_for("DC V", "main") is seq.scope
+    with pytest.raises(KeyError):
+        seq.scope_for("DC V", "peak")
 
 
 def test_scope_override_per_mode(tmp_path, sim_bench):
@@ -581,3 +599,113 @@ def test_scpi_meter_modes_must_be_in_its_profile(tmp_path, sim_bench):
     err = seq_error(tmp_path, text, sim_bench)
     assert err.key == "meters[1].modes[0]"
     assert "unknown meter-profile mode 'AC A'" in err.problem
+
+
+# --------------------------------------------------------------------------------------------
+# scope captures
+
+CAPTURES = """
+[scope.captures.fast]
+points = 5000
+
+[scope.captures.slow]
+sample_interval_s = "200n"
+points = 250000
+trigger_offset_s = "-20u"
+current_range_amps = 20
+"""
+
+
+def test_capture_tables_in_file_order(tmp_path, sim_bench):
+    text = edit(SEQUENCE, "\n[[limits]]", CAPTURES + "\n[[limits]]")
+    write(tmp_path, "net.toml", NETLIST)
+    seq = load_sequence(write(tmp_path, "seq.toml", text), sim_bench)
+    assert seq.captures == ("fast", "slow")
+    assert seq.scope_for("AC V") == seq.scope_for("AC V", "fast")
+    assert seq.scope_for("AC V", "fast") == replace(seq.scope, points=5000)
+    slow = seq.scope_for("DC V", "slow")
+    assert slow == replace(
+        seq.scope,
+        sample_interval_s=200e-9,
+        points=250_000,
+        trigger_offset_s=-20e-6,
+        current_range_amps=20.0,
+    )
+    assert slow.record_s == pytest.approx(0.05)
+    json.dumps(seq.raw)  # the manifest keeps the captures
+
+
+def test_override_order_base_then_capture_then_mode(tmp_path, sim_bench):
+    text = edit(SEQUENCE, "\n[[limits]]", CAPTURES + "\n[[limits]]")
+    text += '\n[scope.modes."DC V"]\ncurrent_range_amps = 10\nbits = 16\n'
+    write(tmp_path, "net.toml", NETLIST)
+    seq = load_sequence(write(tmp_path, "seq.toml", text), sim_bench)
+    # the mode override wins over the capture's (20 A) and the base (40 A default)
+    assert seq.scope_for("DC V", "slow").current_range_amps == 10.0
+    assert seq.scope_for("DC V", "slow").points == 250_000  # the capture's, not the base's
+    assert seq.scope_for("DC V", "fast").points == 5000
+    assert seq.scope_for("DC V", "fast").bits == 16
+    # a mode without overrides keeps the capture's values over the base's
+    assert seq.scope_for("AC V", "slow").current_range_amps == 20.0
+    assert seq.scope_for("AC V", "fast").current_range_amps == seq.scope.current_range_amps
+    assert seq.scope_for("AC V", "fast").bits == 8
+
+
+def test_capture_unknown_key_with_suggestion(tmp_path, sim_bench):
+    text = edit(SEQUENCE, "\n[[limits]]", CAPTURES + "\n[[limits]]")
+    text = edit(text, "points = 5000", "point = 5000")
+    err = seq_error(tmp_path, text, sim_bench)
+    assert err.key == "scope.captures.fast.point"
+    assert "did you mean 'points'?" in err.problem
+    assert err.line == line_of(text, "point = 5000")
+
+
+def test_capture_values_are_checked_like_the_base(tmp_path, sim_bench):
+    text = edit(SEQUENCE, "\n[[limits]]", CAPTURES + "\n[[limits]]")
+    text = edit(text, 'trigger_offset_s = "-20u"', 'trigger_offset_s = "-60m"')
+    err = seq_error(tmp_path, text, sim_bench)
+    assert err.key == "scope.captures.slow.trigger_offset_s"
+    assert "longer than the record" in err.problem
+    assert err.line == line_of(text, 'trigger_offset_s = "-60m"')
+    text = edit(SEQUENCE, "\n[[limits]]", CAPTURES + "\n[[limits]]")
+    text = edit(text, "current_range_amps = 20", "current_range_amps = -20")
+    err = seq_error(tmp_path, text, sim_bench)
+    assert err.key == "scope.captures.slow.current_range_amps"
+
+
+def test_mode_override_checked_against_every_capture(tmp_path, sim_bench):
+    # 30 us of pre-trigger fits the slow capture's 50 ms record, not the fast one's 5 us
+    text = edit(SEQUENCE, "\n[[limits]]", CAPTURES + "\n[[limits]]")
+    text += '\n[scope.modes."DC V"]\ntrigger_offset_s = "-30u"\n'
+    err = seq_error(tmp_path, text, sim_bench)
+    assert err.key == 'scope.modes."DC V".trigger_offset_s'
+    assert "longer than the record" in err.problem and "'fast'" in err.problem
+
+
+def test_capture_table_must_be_a_table(tmp_path, sim_bench):
+    text = edit(SEQUENCE, 'trigger_offset_s = "-2u"', 'trigger_offset_s = "-2u"\ncaptures = 3')
+    err = seq_error(tmp_path, text, sim_bench)
+    assert err.key == "scope.captures" and "must be a table" in err.problem
+
+
+def test_limit_restricted_to_one_capture(tmp_path, sim_bench):
+    text = edit(SEQUENCE, "\n[[limits]]", CAPTURES + "\n[[limits]]")
+    text = edit(text, "max = 15", 'max = 15\ncaptures = ["fast"]')
+    write(tmp_path, "net.toml", NETLIST)
+    seq = load_sequence(write(tmp_path, "seq.toml", text), sim_bench)
+    lim = seq.limits[0]
+    assert lim.captures == ("fast",)
+    assert lim.applies("AC V", 500.0, "short", "fast")
+    assert not lim.applies("AC V", 500.0, "short", "slow")
+    assert not lim.applies("AC V", 500.0, "short")
+    text = edit(text, 'captures = ["fast"]', 'captures = ["fats"]')
+    err = seq_error(tmp_path, text, sim_bench)
+    assert err.key == "limits[0].captures[0]" and "did you mean 'fast'?" in err.problem
+
+
+def test_limit_without_captures_applies_to_all(tmp_path, sim_bench):
+    write(tmp_path, "net.toml", NETLIST)
+    seq = load_sequence(write(tmp_path, "seq.toml", SEQUENCE), sim_bench)
+    lim = seq.limits[0]
+    assert lim.captures is None
+    assert lim.applies("AC V", 500.0, "short", "main") and lim.applies("AC V", 500.0, "short")

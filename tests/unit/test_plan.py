@@ -142,7 +142,8 @@ def test_grouped_order_and_counts(tmp_path):
     assert [(e.volts, e.load, e.delay_s, e.rep) for e in first] == expected
     assert {e.load: e.load_ohms for e in plan.events} == {"short": 0.05, "500R": 500.0}
     assert len({e.key for e in plan.events}) == 120
-    assert plan.events[10].key == "m0|AC V|1000|500R|0.1|r001"
+    assert plan.events[10].key == "m0|AC V|main|1000|500R|0.1|r001"
+    assert {e.capture for e in plan.events} == {"main"}  # no capture tables: one capture
     assert (plan.events[0].meter, plan.events[0].serial) == ("Meter X", "X-1")
 
 
@@ -155,6 +156,7 @@ def test_event_dict_has_the_journal_columns(tmp_path):
         "meter",
         "serial",
         "mode",
+        "capture",
         "volts",
         "load",
         "load_ohms",
@@ -166,8 +168,97 @@ def test_event_dict_has_the_journal_columns(tmp_path):
 
 
 def test_event_key_format():
-    assert event_key(0, "AC V", 1000.0, "short", 0.0, 7) == "m0|AC V|1000|short|0|r007"
-    assert event_key(2, "AC mV", 512.5, "500R", 0.05, 12) == "m2|AC mV|512.5|500R|0.05|r012"
+    assert event_key(0, "AC V", "peak", 1000.0, "short", 0.0, 7) == "m0|AC V|peak|1000|short|0|r007"
+    assert (
+        event_key(2, "AC mV", "main", 512.5, "500R", 0.05, 12)
+        == "m2|AC mV|main|512.5|500R|0.05|r012"
+    )
+
+
+CAPTURES = """
+[scope.captures.peak]
+points = 20000
+
+[scope.captures.charge]
+sample_interval_s = "200n"
+points = 250000
+trigger_offset_s = "-20u"
+"""
+
+
+def with_captures(**kw) -> str:
+    args = dict(reps=3, order="grouped", seed="", dwell=1.0, hold=0.5) | kw
+    return SEQUENCE.format(**args) + CAPTURES
+
+
+def test_captures_order_meter_mode_capture_then_the_rest(tmp_path):
+    bench, seq, plan = make(tmp_path, text=with_captures())
+    assert seq.captures == ("peak", "charge")
+    assert len(plan.events) == 2 * 120  # every event once per capture
+    runs = [k for k, _ in groupby(plan.events, key=lambda e: (e.meter_index, e.mode, e.capture))]
+    assert runs == [
+        (0, "AC V", "peak"),
+        (0, "AC V", "charge"),
+        (0, "DC V", "peak"),
+        (0, "DC V", "charge"),
+        (0, "AC mV", "peak"),
+        (0, "AC mV", "charge"),
+        (1, "DC V", "peak"),
+        (1, "DC V", "charge"),
+        (1, "AC V", "peak"),
+        (1, "AC V", "charge"),
+    ]  # the scope is set up once per (mode, capture): 10 set-ups, not one per event
+    assert plan.mode_changes == 4 and plan.meter_changes == 1  # captures are no mode change
+    inner = [(e.volts, e.load, e.delay_s, e.rep) for e in plan.events[24:48]]
+    assert inner == [
+        (v, ld, d, r)
+        for v in (1000, 500)
+        for ld in ("short", "500R")
+        for d in (0, 0.1)
+        for r in range(3)
+    ]
+    assert plan.events[24 + 10].key == "m0|AC V|charge|1000|500R|0.1|r001"
+    assert plan.events[10].key == "m0|AC V|peak|1000|500R|0.1|r001"
+    assert len({e.key for e in plan.events}) == 240
+    assert plan.events[30].to_dict()["capture"] == "charge"
+
+
+def test_captures_estimate_uses_each_record(tmp_path):
+    _, _, single = make(tmp_path, reps=2)
+    _, _, both = make(tmp_path, text=with_captures(reps=2))
+    n = len(single.events)
+    # the peak capture equals the single one; the charge capture repeats its n events with a
+    # 50 ms record instead of 20 us; scope set-ups cost nothing extra (no mode change)
+    charge_events = [e for e in both.events if e.capture == "charge"]
+    assert len(charge_events) == n
+    extra = both.estimated_s - single.estimated_s
+    per_event_single = (
+        single.estimated_s - 4 * MODE_CHANGE_SCPI_S - MODE_CHANGE_SCPI_S - METER_CHANGE_S
+    ) / n
+    record_peak, record_charge = 20000 * 1e-9, 250000 * 200e-9
+    assert extra == pytest.approx(n * (per_event_single - record_peak + record_charge), rel=1e-9)
+
+
+def test_shuffled_captures_stay_in_their_blocks(tmp_path):
+    _, _, grouped = make(tmp_path, text=with_captures())
+    _, _, a = make(tmp_path, text=with_captures(order="shuffled", seed="shuffle_seed = 3"))
+    key = lambda e: (e.meter_index, e.mode, e.capture)  # noqa: E731
+    assert [k for k, _ in groupby(a.events, key=key)] == [
+        k for k, _ in groupby(grouped.events, key=key)
+    ]
+    assert [e.key for e in a.events] != [e.key for e in grouped.events]
+    # the first capture keeps the order a file without captures gets from the same seed
+    _, _, plain = make(tmp_path, order="shuffled", seed=3)
+    first = [e.key.replace("|peak|", "|main|") for e in a.events if e.capture == "peak"]
+    assert first == [e.key for e in plain.events]
+
+
+def test_describe_lists_the_captures(tmp_path):
+    bench, seq, plan = make(tmp_path, text=with_captures())
+    text = describe(plan, bench, seq)
+    assert "captures  2 per event" in text
+    assert "peak       1 ns, 20000 points = 20 us" in text
+    assert "charge     200 ns, 250000 points = 50 ms" in text
 
 
 def test_shuffle_is_reproducible_and_confined_to_blocks(tmp_path):
