@@ -56,6 +56,7 @@ import numpy as np
 import pandas as pd
 
 from drivers.errors import RunFolderError
+from rig.stats import GROUP_KEYS, with_capture
 from rig.store import read_journal, read_manifest, read_plan
 from rig.waveform import Waveform, load_waveform
 
@@ -686,7 +687,7 @@ def _count_pulses_sparse(above: np.ndarray, under: np.ndarray) -> np.ndarray:
 
 # --------------------------------------------------------------------------- run folders
 
-_GROUP_KEYS = ("meter", "serial", "mode", "volts", "load", "delay_s")
+_GROUP_KEYS = GROUP_KEYS  # defined once in rig.stats
 
 
 @dataclass(frozen=True)
@@ -814,10 +815,12 @@ def compute_metrics(
     """Journal columns plus the per-event metrics of a run folder, without writing anything.
 
     The charge voltage for c_equiv is the supply readback (``supply_volts``) when the journal
-    has it, else the setpoint ``volts``.
+    has it, else the setpoint ``volts``. Besides METRIC_COLUMNS each event gets ``dt_s``
+    (sample interval, s) and ``record_s`` (record span, samples x dt, s) of its waveform
+    (NaN when not captured), and rows without a ``capture`` (older runs) get "main".
     """
     run_dir = Path(run_dir)
-    jr = journal_frame(run_dir)
+    jr = with_capture(journal_frame(run_dir))
     volts = pd.to_numeric(jr["volts"], errors="coerce").to_numpy(float)
     if "supply_volts" in jr:
         readback = pd.to_numeric(jr["supply_volts"], errors="coerce").to_numpy(float)
@@ -829,8 +832,12 @@ def compute_metrics(
     res["flag_not_captured"] = np.ones(len(jr), dtype=bool)
     res["polarity"] = np.zeros(len(jr), dtype=np.int8)
     res["pulses"] = np.zeros(len(jr), dtype=np.int64)
+    dt_s = np.full(len(jr), np.nan)
+    record_s = np.full(len(jr), np.nan)
     for idx, codes, gain, offset, lo, hi, dt, t0 in _batches(run_dir, jr, channel, batch):
         ix = np.asarray(idx)
+        dt_s[ix] = dt
+        record_s[ix] = codes.shape[1] * dt
         part = event_metrics(
             codes,
             dt=dt,
@@ -848,6 +855,8 @@ def compute_metrics(
     out = jr.copy()
     for k in METRIC_COLUMNS:
         out[k] = res[k]
+    out["dt_s"] = dt_s
+    out["record_s"] = record_s
     log.info("analysed %s events of %s", int((~res["flag_not_captured"]).sum()), run_dir)
     return out
 

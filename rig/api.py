@@ -4,7 +4,8 @@ Example::
 
     from rig.api import load_run, group_waveforms
     df = load_run("results/2026-12-01T10-00-00")       # one row per event
-    t, i, rows = group_waveforms("results/...", mode="ACV", volts=500.0, load="short")
+    t, i, rows = group_waveforms("results/...", mode="AC V", capture="peak", volts=500.0,
+                                 load="short")
     # t: (samples,) seconds from the trigger; i: (events, samples) amperes; rows: their rows
 
 Nothing here writes into the run folder.
@@ -20,6 +21,7 @@ import pandas as pd
 
 from drivers.errors import RunFolderError
 from rig.analysis import journal_frame
+from rig.stats import with_capture
 from rig.waveform import Waveform, load_waveform
 
 __all__ = ["group_waveforms", "load_event_waveform", "load_run"]
@@ -27,14 +29,15 @@ __all__ = ["group_waveforms", "load_event_waveform", "load_run"]
 
 def load_run(run_dir: str | Path) -> pd.DataFrame:
     """The run's events: metrics.parquet (journal plus metrics) when the run was analysed,
-    else the journal (one row per event; the last entry wins after a resume)."""
+    else the journal (one row per event; the last entry wins after a resume). A run recorded
+    before scope captures existed gets ``capture`` = "main" on every row."""
     run_dir = Path(run_dir)
     path = run_dir / "metrics.parquet"
     if path.exists():
-        return pd.read_parquet(path)
+        return with_capture(pd.read_parquet(path))
     if not run_dir.is_dir():
         raise RunFolderError(f"{run_dir}: no such run folder")
-    return journal_frame(run_dir)
+    return with_capture(journal_frame(run_dir))
 
 
 def _row(run_dir: Path, event: int) -> dict[str, Any]:
@@ -67,7 +70,8 @@ def group_waveforms(
 ) -> tuple[np.ndarray, np.ndarray, pd.DataFrame]:
     """Waveforms of the captured events that match ``filters`` (column=value; a list or tuple
     matches any of its values), stacked: (t in s, values in SI units (events x samples),
-    rows of those events). All matching records must share length, dt and t0."""
+    rows of those events). All matching records must share length, dt and t0: in a run with
+    several scope captures, filter on ``capture`` too."""
     run_dir = Path(run_dir)
     df = load_run(run_dir)
     sel = df["status"] == "captured"

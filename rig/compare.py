@@ -1,6 +1,7 @@
 """A run against a baseline run: per group and metric, is it the same, different, or unclear?
 
-Groups are matched on (meter, mode, volts, load, delay_s): the serial is left out, since a
+Groups are matched on (meter, mode, capture, volts, load, delay_s), the group keys of
+rig.stats without the serial: the serial is left out, since a
 repaired meter is compared with the baseline run of its model, often another unit (the
 serials of both sides are listed). Per group and metric (magnitudes; default peak_a, charge_c,
 energy_j):
@@ -26,7 +27,7 @@ import pandas as pd
 from scipy import stats as sps
 
 from drivers.errors import RunFolderError
-from rig.stats import bootstrap_ci
+from rig.stats import GROUP_KEYS, bootstrap_ci, with_capture
 from rig.store import read_manifest
 
 __all__ = [
@@ -41,13 +42,9 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-COMPARE_KEYS: tuple[str, ...] = ("meter", "mode", "volts", "load", "delay_s")
+COMPARE_KEYS: tuple[str, ...] = tuple(k for k in GROUP_KEYS if k != "serial")
 COMPARE_COLUMNS: tuple[str, ...] = (
-    "meter",
-    "mode",
-    "volts",
-    "load",
-    "delay_s",
+    *COMPARE_KEYS,
     "metric",
     "serials_run",
     "serials_baseline",
@@ -139,7 +136,7 @@ def compare_samples(
 def _load_metrics(run_dir: Path) -> pd.DataFrame:
     path = run_dir / "metrics.parquet"
     if path.exists():
-        return pd.read_parquet(path)
+        return with_capture(pd.read_parquet(path))
     from rig.analysis import compute_metrics
 
     log.info("%s is not analysed; computing its metrics in memory", run_dir)

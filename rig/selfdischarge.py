@@ -1,7 +1,7 @@
 """Delay sweeps: how fast a meter's input loses its charge by itself, and when it is safe.
 
 When a sequence sweeps the delay between the end of charging and the discharge, each group
-(meter, serial, mode, volts, load) gives the discharged charge Q against the delay d. A
+(meter, serial, mode, capture, volts, load) gives the discharged charge Q against the delay d. A
 self-discharging input follows Q(d) = Q0 exp(-d / tau), so log |Q| is linear in d: an
 ordinary least-squares line through all captured events gives tau = -1 / slope with a
 t-based confidence interval on the slope (textbook regression; REFERENCES.md section 6 for
@@ -22,6 +22,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats as sps
 
+from rig.stats import GROUP_KEYS, with_capture
+
 __all__ = [
     "DEFAULT_SAFE_VOLTS",
     "SELFDISCHARGE_COLUMNS",
@@ -37,13 +39,10 @@ log = logging.getLogger(__name__)
 #: Default safe residual, V d.c.: the hazardous-live d.c. level of IEC 61010-1 (earlier
 #: editions; edition 3 uses 70 V), REFERENCES.md section 3 [T].
 DEFAULT_SAFE_VOLTS = 60.0
-SWEEP_KEYS: tuple[str, ...] = ("meter", "serial", "mode", "volts", "load")
+#: The group keys of rig.stats without the delay (the sweep's variable).
+SWEEP_KEYS: tuple[str, ...] = tuple(k for k in GROUP_KEYS if k != "delay_s")
 SELFDISCHARGE_COLUMNS: tuple[str, ...] = (
-    "meter",
-    "serial",
-    "mode",
-    "volts",
-    "load",
+    *SWEEP_KEYS,
     "tau_s",
     "tau_ci_low",
     "tau_ci_high",
@@ -100,14 +99,17 @@ def fit_self_discharge(
 
 
 def has_delay_sweep(metrics: pd.DataFrame) -> bool:
-    """True when some (meter, serial, mode, volts, load) was run at more than one delay."""
+    """True when some (meter, serial, mode, capture, volts, load) was run at more than one
+    delay."""
     if "delay_s" not in metrics:
         return False
+    metrics = with_capture(metrics)
     frame = metrics[[*SWEEP_KEYS, "delay_s"]].astype(str)
     return bool((frame.groupby(list(SWEEP_KEYS))["delay_s"].nunique() > 1).any())
 
 
 def _captured(metrics: pd.DataFrame) -> pd.DataFrame:
+    metrics = with_capture(metrics)
     keep = ~metrics["flag_not_captured"].astype(bool)
     return metrics.loc[keep]
 

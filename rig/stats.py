@@ -1,6 +1,9 @@
 """Per-group statistics of event metrics, normal tolerance bounds and verdicts against limits.
 
-A group is one (meter, serial, mode, volts, load, delay_s). For each group and metric the
+A group is one (meter, serial, mode, capture, volts, load, delay_s): every event is recorded
+once per scope capture (a fast one for the peak, a long one for the charge), and the
+metrics of different captures are never pooled. Rows without a capture (runs recorded
+before captures existed) belong to the capture "main". For each group and metric the
 long-format table ``groups.csv`` (DEVELOPERS.md) holds the counts, mean, standard deviation,
 median with a seeded percentile-bootstrap confidence interval, 95th and 99th percentiles,
 maximum, the one-sided normal upper tolerance bound (UTL), and, for every limit that applies
@@ -15,7 +18,7 @@ m + k1 s with confidence ``confidence``, where exactly
 k1 = nct.ppf(confidence, N - 1, z_p sqrt(N)) / sqrt(N) (noncentral t), z_p = Phi^-1(coverage).
 The approximate form is kept for comparison with published tables.
 
-Verdicts: a limit {metric, max, statistic, modes, volts, loads} passes when the chosen
+Verdicts: a limit {metric, max, statistic, modes, volts, loads, captures} passes when the chosen
 statistic (utl by default, or max, p99, p95, median, mean) is at or below ``max``; with fewer
 than ``min_events`` finite values the verdict is "insufficient". Rows without a limit have
 no verdict (empty in the CSV).
@@ -36,6 +39,7 @@ from scipy import stats as sps
 from drivers.errors import FileFormatError
 
 __all__ = [
+    "DEFAULT_CAPTURE",
     "DEFAULT_METRICS",
     "GROUP_KEYS",
     "GROUPS_COLUMNS",
@@ -46,15 +50,21 @@ __all__ = [
     "tolerance_factor",
     "tolerance_factor_approx",
     "upper_tolerance_bound",
+    "with_capture",
 ]
 
 log = logging.getLogger(__name__)
 
-GROUP_KEYS: tuple[str, ...] = ("meter", "serial", "mode", "volts", "load", "delay_s")
+#: The keys of a group, defined once: analysis, report, compare (without the serial) and
+#: self-discharge (without the delay) take theirs from here.
+GROUP_KEYS: tuple[str, ...] = ("meter", "serial", "mode", "capture", "volts", "load", "delay_s")
+#: The capture of rows that name none (runs recorded before captures existed).
+DEFAULT_CAPTURE = "main"
 GROUPS_COLUMNS: tuple[str, ...] = (
     "meter",
     "serial",
     "mode",
+    "capture",
     "volts",
     "load",
     "delay_s",
@@ -151,10 +161,22 @@ def _median(x: np.ndarray) -> np.ndarray:
     return np.median(x, axis=-1)
 
 
+def with_capture(frame: pd.DataFrame) -> pd.DataFrame:
+    """``frame`` with a ``capture`` column: missing or empty captures become "main" (runs
+    recorded before captures existed had one capture). Returns a copy when it changes."""
+    if "capture" not in frame.columns:
+        frame = frame.copy()
+        frame["capture"] = DEFAULT_CAPTURE
+    elif frame["capture"].isna().any():
+        frame = frame.copy()
+        frame["capture"] = frame["capture"].fillna(DEFAULT_CAPTURE)
+    return frame
+
+
 def limits_from_manifest(manifest: Mapping[str, Any], source: str | Path = "manifest.json"):
     """The limits of the run's resolved sequence (``manifest["sequence"]["limits"]``, else a
     top-level ``limits``), validated: a list of dicts with ``metric``, ``max``, ``statistic``
-    (default utl) and optional ``modes``, ``volts``, ``loads`` lists (None: all)."""
+    (default utl) and optional ``modes``, ``volts``, ``loads``, ``captures`` lists (None: all)."""
     seq = manifest.get("sequence")
     raw = seq.get("limits") if isinstance(seq, Mapping) else None
     if raw is None:
@@ -180,7 +202,7 @@ def limits_from_manifest(manifest: Mapping[str, Any], source: str | Path = "mani
                 source, f"{key}.statistic", f"{stat!r} is not one of {', '.join(STATISTICS)}"
             )
         entry = {"metric": lim["metric"], "max": value, "statistic": stat}
-        for sel in ("modes", "volts", "loads"):
+        for sel in ("modes", "volts", "loads", "captures"):
             v = lim.get(sel)
             if v is not None and not isinstance(v, list):
                 raise FileFormatError(source, f"{key}.{sel}", "must be a list")
@@ -189,8 +211,12 @@ def limits_from_manifest(manifest: Mapping[str, Any], source: str | Path = "mani
     return out
 
 
-def _applies(limit: Mapping[str, Any], mode: Any, volts: Any, load: Any) -> bool:
+def _applies(
+    limit: Mapping[str, Any], mode: Any, volts: Any, load: Any, capture: Any = DEFAULT_CAPTURE
+) -> bool:
     if limit.get("modes") and mode not in limit["modes"]:
+        return False
+    if limit.get("captures") and capture not in limit["captures"]:
         return False
     if limit.get("loads") and load not in limit["loads"]:
         return False
@@ -202,7 +228,9 @@ def _applies(limit: Mapping[str, Any], mode: Any, volts: Any, load: Any) -> bool
 
 
 def _key(row: Mapping[str, Any]) -> tuple:
-    return tuple(row.get(k) for k in GROUP_KEYS)
+    return tuple(
+        (row.get(k) or DEFAULT_CAPTURE) if k == "capture" else row.get(k) for k in GROUP_KEYS
+    )
 
 
 def _summary(
@@ -265,7 +293,7 @@ def group_stats(
         planned[_key(row)] = planned.get(_key(row), 0) + 1
     captured = ~metrics["flag_not_captured"].astype(bool)
     keys = list(GROUP_KEYS)
-    frame = metrics.copy()
+    frame = with_capture(metrics).copy()
     for k in keys:  # groupby drops None keys; keep them as a visible value
         if k not in frame:
             frame[k] = None
@@ -300,7 +328,7 @@ def group_stats(
                 lim
                 for lim in limits
                 if lim["metric"] == name
-                and _applies(lim, gdict["mode"], gdict["volts"], gdict["load"])
+                and _applies(lim, gdict["mode"], gdict["volts"], gdict["load"], gdict["capture"])
             ]
             if not applicable:
                 rows.append(
