@@ -119,7 +119,8 @@ def _load_groups(run: Path) -> pd.DataFrame:
     missing = [c for c in need if c not in g.columns]
     if missing:
         raise RunFolderError(f"{path} [{', '.join(missing)}]: column missing")
-    for c in _GROUP_KEYS:
+    optional = ["median_ci_low", "median_ci_high", "utl", "limit", "share_over_limit", "max"]
+    for c in _GROUP_KEYS + optional:  # older or partial tables: show what is there
         if c not in g.columns:
             g[c] = np.nan
     g["verdict"] = g["verdict"].fillna("").astype(str).str.strip()
