@@ -352,9 +352,8 @@ def fig_waveforms(
                 ax_r.fill_between(sm.log_t, lo, sm.log_hi, color=s.colour, alpha=0.22, linewidth=0)
                 ax_r.plot(sm.log_t, mid, color=s.colour, linestyle=s.linestyle)
                 top = max(top, float(np.nanmax(sm.log_hi)))
-                floor = min(
-                    floor, max(0.3 * sm.noise if sm.noise == sm.noise else 0, 1e-5 * sm.peak)
-                )
+                noise = 0.3 * sm.noise if math.isfinite(sm.noise) else 0.0
+                floor = min(floor, max(noise, 1e-5 * sm.peak))  # noise or 100 dB below peak
             ax_l.set_xlim(window[0] * tf, window[1] * tf)
             ax_l.axhline(0, color=_GREY, linewidth=0.8)
             ax_l.set_xlabel(axis_label("Time after trigger", "s", tunit[:-1]))
@@ -700,19 +699,23 @@ def fig_selfdischarge(events: pd.DataFrame, fits: pd.DataFrame, colours: dict[st
                     ax.axvline(dts, color=colour, linestyle=":", linewidth=1.3)
                 safe = float(f.get("safe_charge_c", np.nan))
                 if np.isfinite(safe):
-                    ax.axhline(safe, color=_REF, linestyle="-.", linewidth=1.0)
+                    # the safe charge is the meter's own (its capacitance at the safe voltage)
+                    ax.axhline(safe, color=colour, linestyle="-.", linewidth=1.0)
                     ax.annotate(
                         f"safe charge {eng(safe, 'C')}",
                         (0, safe),
                         xytext=(4, 3),
                         textcoords="offset points",
                         fontsize=8.5,
+                        color=colour,
                     )
             ax.set_yscale("log")
             _eng_ticks(ax, "y", "C")
             ax.set_xlabel("Delay between charge and discharge (s)")
             ax.set_ylabel("Charge delivered (C, log)")
-            ax.set_title(mpl_text(f"{mode} (dotted: delay to safe)"), loc="left")
+            ax.set_title(
+                mpl_text(f"{mode} (dash-dot: safe charge; dotted: delay to reach it)"), loc="left"
+            )
             ax.legend(loc="upper right")
         fig.suptitle("Self-discharge: charge left after a delay", fontweight="bold", fontsize=12.5)
     return fig
