@@ -6,6 +6,14 @@ figure as PNG and SVG under ``figures/``. The HTML carries its CSS inline and it
 base64 PNG (thumbnails as inline SVG); it loads nothing from anywhere, so it opens from a USB
 stick. A Content-Security-Policy meta tag forbids any fetch besides ``data:`` images.
 Every string that comes from a file is HTML-escaped.
+
+Sections, in order (ids in :data:`SECTIONS`): what was tested; at a glance (per mode, each
+meter's median |peak| and charge at the highest common voltage and which is lower, clipped
+peaks not ranked); verdicts against the limits; high-voltage caution; discharge waveforms per
+mode (median and 5-95 % band, linear and log time); |peak| per event; peak and charge against
+voltage with tolerance bounds and limits; charge against the IEC 61010-1 45 µC figure; contact
+bounce; self-discharge; flagged events with thumbnails; the group table; and, with a baseline,
+overlays of both runs and the equivalence verdicts.
 """
 
 from __future__ import annotations
@@ -29,6 +37,7 @@ from rig import __version__
 from rig import figures as F
 from rig.api import group_waveforms, load_run
 from rig.compare import compare_runs
+from rig.stats import GROUP_KEYS, with_capture
 from rig.store import read_manifest
 from rig.units import eng, metric_label, metric_unit
 from rig.waveform import load_waveform
@@ -65,7 +74,7 @@ FLAG_TEXT = {
     "flag_truncated": "truncated (record ended before the tail)",
     "flag_below_noise": "below noise",
 }
-_GROUP_KEYS = ["meter", "serial", "mode", "volts", "load", "delay_s"]
+_GROUP_KEYS = list(GROUP_KEYS)  # defined once in rig.stats
 _NEEDED = ["meter", "mode", "volts", "load", "delay_s", "abs_peak_a", "charge_c", "file"]
 
 
@@ -124,7 +133,7 @@ def _load_groups(run: Path) -> pd.DataFrame:
         if c not in g.columns:
             g[c] = np.nan
     g["verdict"] = g["verdict"].fillna("").astype(str).str.strip()
-    return g
+    return with_capture(g)
 
 
 def _group_waveforms(run: Path, **filters: Any):
@@ -285,6 +294,11 @@ def _section_tested(run: Path, man: dict[str, Any], m: pd.DataFrame) -> str:
             f"{name}: {eng(ohms, 'Ω')}" + (f", {eng(d['henry'], 'H')}" if d.get("henry") else "")
         )
     parts.append("<p><b>Loads:</b> " + esc("; ".join(lrows)) + "</p>")
+    if "capture" in m.columns:
+        caps = "; ".join(_capture_text(m, str(c)) for c in dict.fromkeys(m["capture"]))
+        parts.append(
+            "<p><b>Scope captures (each event runs once per capture):</b> " + esc(caps) + "</p>"
+        )
     delays = sorted(m["delay_s"].dropna().unique())
     if len(delays) > 1:
         parts.append(
@@ -317,12 +331,47 @@ def _peak_metric(g: pd.DataFrame) -> str:
     return "abs_peak_a" if "abs_peak_a" in names or "peak_a" not in names else "peak_a"
 
 
+def _capture_roles(m: pd.DataFrame) -> tuple[str, str]:
+    """(capture with the finest sample interval, capture with the longest record span).
+
+    The |peak| is read from the first (only a fine timebase resolves a nanosecond peak), the
+    charge from the second (only a long record holds the millisecond tail that carries most
+    of it). Decided from the ``dt_s`` and ``record_s`` columns of metrics.parquet (medians
+    per capture), never from the names; without them (older runs) the first capture serves
+    both."""
+    caps = [str(c) for c in dict.fromkeys(m["capture"])] if "capture" in m else []
+    if not caps:
+        return "main", "main"
+    if len(caps) == 1 or not {"dt_s", "record_s"} <= set(m.columns):
+        return caps[0], caps[0]
+    per = m.groupby("capture", sort=False)[["dt_s", "record_s"]].median().dropna()
+    if per.empty:
+        return caps[0], caps[0]
+    return str(per["dt_s"].idxmin()), str(per["record_s"].idxmax())
+
+
+def _capture_text(m: pd.DataFrame, capture: str) -> str:
+    """``capture “peak”: 1 ns × 20000 samples = 20 µs`` from the events' dt_s and record_s."""
+    sel = m[m["capture"] == capture] if "capture" in m else m
+    if {"dt_s", "record_s"} <= set(sel.columns) and sel["dt_s"].notna().any():
+        dt = float(sel["dt_s"].median())
+        span = float(sel["record_s"].median())
+        return (
+            f"capture “{capture}”: {eng(dt, 's')} × {round(span / dt)} samples = {eng(span, 's')}"
+        )
+    return f"capture “{capture}”"
+
+
+def _several_captures(df: pd.DataFrame) -> bool:
+    return "capture" in df.columns and df["capture"].nunique() > 1
+
+
 def _at_zero_delay(df: pd.DataFrame) -> pd.DataFrame:
-    """Rows at the smallest delay of their (meter, mode, volts, load) group."""
+    """Rows at the smallest delay of their (meter, mode, capture, volts, load) group."""
     if df.empty:
         return df
     d = df["delay_s"].fillna(0.0)
-    keys = [k for k in ("meter", "mode", "volts", "load") if k in df.columns]
+    keys = [k for k in ("meter", "mode", "capture", "volts", "load") if k in df.columns]
     dmin = d.groupby([df[k] for k in keys]).transform("min")
     return df[d == dmin]
 
@@ -333,10 +382,14 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
     gz = _at_zero_delay(g)
     meters = list(dict.fromkeys(mz["meter"]))
     peak_metric = _peak_metric(g)
+    # |peak| from the finest capture, charge from the longest (see _capture_roles)
+    peak_cap, charge_cap = _capture_roles(mz)
+    source = {"abs_peak_a": peak_cap, "charge_c": charge_cap}
     rows = []
     summary: dict[tuple[str, bool], list[str]] = {}
-    for (mode, load), d in mz.groupby(["mode", "load"], sort=False):
-        per = d.groupby("meter")["volts"].apply(set)
+    for (mode, load), d_all in mz.groupby(["mode", "load"], sort=False):
+        d = d_all[d_all["capture"] == peak_cap]  # the peak's events (clip notes)
+        per = d_all.groupby("meter")["volts"].apply(set)
         common = set.intersection(*per.tolist()) if len(per) else set()
         if not common:
             continue
@@ -344,13 +397,15 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
         cells = {}
         for metric, unit in (("abs_peak_a", "A"), ("charge_c", "C")):
             stats = {}
+            dm = d_all[d_all["capture"] == source[metric]]
             for meter in meters:
-                x = d[(d["meter"] == meter) & (d["volts"] == v)][metric].dropna()
+                x = dm[(dm["meter"] == meter) & (dm["volts"] == v)][metric].dropna()
                 if x.empty:
                     continue
                 sel = gz[
                     (gz["meter"] == meter)
                     & (gz["mode"] == mode)
+                    & (gz["capture"] == source[metric])
                     & (gz["volts"] == v)
                     & (gz["load"] == load)
                     & (gz["metric"] == (peak_metric if metric == "abs_peak_a" else metric))
@@ -423,6 +478,14 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
         "into the next circuit its probes touch. “Clear” means the 95 % confidence "
         "intervals of the medians do not overlap.</p>"
     )
+    several = _several_captures(mz)
+    if several:
+        intro += (
+            f"<p>|Peak current| from {esc(_capture_text(mz, peak_cap))} (the finest sample "
+            f"interval); charge from {esc(_capture_text(mz, charge_cap))} (the longest "
+            "record, which holds the slow tail that carries most of the charge).</p>"
+        )
+    tag = {k: f" · capture {esc(c)}" if several else "" for k, c in source.items()}
     return (
         lead
         + intro
@@ -431,9 +494,9 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
                 "Mode",
                 "Load",
                 "At",
-                "Median |peak current|",
+                f"Median |peak current|{tag['abs_peak_a']}",
                 "Lower peak",
-                "Median charge",
+                f"Median charge{tag['charge_c']}",
                 "Lower charge",
                 "Lower on both",
             ],
@@ -483,12 +546,13 @@ def _limits_table(man: dict[str, Any]) -> str:
                 esc(_plain(lim.get("modes")) or "all"),
                 esc(", ".join(eng(v, "V") for v in lim.get("volts") or []) or "all"),
                 esc(_plain(lim.get("loads")) or "all"),
+                esc(_plain(lim.get("captures")) or "all"),
             ]
         )
     if not rows:
         return ""
     return "<h3>Limits of the sequence</h3>" + _table(
-        ["Metric", "Limit", "Statistic checked", "Modes", "Voltages", "Loads"], rows
+        ["Metric", "Limit", "Statistic checked", "Modes", "Voltages", "Loads", "Captures"], rows
     )
 
 
@@ -514,6 +578,7 @@ def _section_verdicts(g: pd.DataFrame) -> str:
             else:
                 what = "; ".join(
                     f"{metric_label(r.metric)} at {eng(r.volts, 'V')}"
+                    + (f", capture {r.capture}" if _several_captures(v) else "")
                     + (
                         f", delay {eng(r.delay_s, 's')}"
                         if r.delay_s == r.delay_s and r.delay_s
@@ -542,6 +607,7 @@ def _section_verdicts(g: pd.DataFrame) -> str:
                 [
                     esc(r.meter),
                     esc(r.mode),
+                    esc(r.capture) if _several_captures(v) else "",
                     esc(eng(r.volts, "V")),
                     esc(r.load),
                     esc(eng(r.delay_s, "s")),
@@ -563,6 +629,7 @@ def _section_verdicts(g: pd.DataFrame) -> str:
                 [
                     "Meter",
                     "Mode",
+                    "Capture",
                     "Voltage",
                     "Load",
                     "Delay",
@@ -610,12 +677,23 @@ def _wave_rows(
     mode: str,
     colours: dict[str, str],
     other: tuple[Path, pd.DataFrame] | None = None,
+    capture: str | None = None,
+    other_capture: str | None = None,
 ):
-    """Panels for one mode: one row per (voltage, load), highest voltages first."""
-    d = _at_zero_delay(m[(m["mode"] == mode) & m["file"].notna()])
+    """Panels for one mode and capture (records of one capture share their timebase): one
+    row per (voltage, load), highest voltages first. ``other_capture``: the baseline's
+    capture to overlay (default: the same name)."""
+    d = m[(m["mode"] == mode) & m["file"].notna()]
+    if capture is not None:
+        d = d[d["capture"] == capture]
+    d = _at_zero_delay(d)
+    other_capture = other_capture if other_capture is not None else capture
     combos = sorted(d.groupby(["volts", "load"]).groups, key=lambda k: (-k[0], str(k[1])))
     if other is not None:
-        od = _at_zero_delay(other[1][(other[1]["mode"] == mode) & other[1]["file"].notna()])
+        od = other[1][(other[1]["mode"] == mode) & other[1]["file"].notna()]
+        if other_capture is not None:
+            od = od[od["capture"] == other_capture]
+        od = _at_zero_delay(od)
         have = set(od.groupby(["volts", "load"]).groups)
         combos = [c for c in combos if c in have][:1]
     rows = []
@@ -632,11 +710,12 @@ def _wave_rows(
                 "load": load,
                 "delay_s": sel["delay_s"].iloc[0],
             }
-            got = _group_waveforms(run, **filt)
+            got = _group_waveforms(run, **filt, **({"capture": capture} if capture else {}))
             if got is not None:
                 loaded.append((meter, "", got))
             if other is not None:
-                got_b = _group_waveforms(other[0], **filt)
+                cap_b = {"capture": other_capture} if other_capture else {}
+                got_b = _group_waveforms(other[0], **filt, **cap_b)
                 if got_b is not None:
                     loaded.append((meter, " (baseline)", got_b))
         if not loaded:
@@ -662,17 +741,31 @@ def _section_waveforms(run: Path, m: pd.DataFrame, modes: list[str], colours, ou
         "events at each instant. Left: linear time around the nanosecond peak. Right: "
         "logarithmic time and current, so the millisecond tail shows as well.</p>"
     ]
-    for mode in modes:
-        rows = _wave_rows(run, m, mode, colours)
-        if not rows:
-            parts.append(f"<p>{esc(mode)}: no captured waveform.</p>")
-            continue
-        fig = F.fig_waveforms(rows, f"Discharge current · {mode}")
-        r = F.render(fig, f"waveforms-{_slug(mode)}", out)
+    captures = [str(c) for c in dict.fromkeys(m["capture"])]
+    several = len(captures) > 1
+    if several:
         parts.append(
-            f"<h3>{esc(mode)}</h3>"
-            + _img(r, f"Discharge waveforms, {mode}", f"Discharge current in mode {esc(mode)}.")
+            "<p>One figure per scope capture: a capture with a fine sample interval resolves "
+            "the peak but ends before the tail; a long capture records the tail (and so the "
+            "charge) but smooths the peak.</p>"
         )
+    for mode in modes:
+        head = f"<h3>{esc(mode)}</h3>"
+        for capture in captures:
+            rows = _wave_rows(run, m, mode, colours, capture=capture)
+            what = f"{mode} · capture {capture}" if several else mode
+            if not rows:
+                parts.append(f"{head}<p>{esc(what)}: no captured waveform.</p>")
+                head = ""
+                continue
+            fig = F.fig_waveforms(rows, f"Discharge current · {what}")
+            sfx = f"-{_slug(capture)}" if several else ""
+            r = F.render(fig, f"waveforms-{_slug(mode)}{sfx}", out)
+            caption = f"Discharge current in mode {esc(mode)}" + (
+                f", {esc(_capture_text(m, capture))}." if several else "."
+            )
+            parts.append(head + _img(r, f"Discharge waveforms, {what}", caption))
+            head = ""
     return "".join(parts)
 
 
@@ -699,6 +792,7 @@ def _section_flagged(run: Path, m: pd.DataFrame, colours: dict[str, str]) -> str
                 esc(getattr(r, "event", "")),
                 esc(r.meter),
                 esc(r.mode),
+                esc(r.capture) if _several_captures(m) else "",
                 esc(eng(r.volts, "V")),
                 esc(r.load),
                 esc(eng(r.delay_s, "s")),
@@ -716,6 +810,7 @@ def _section_flagged(run: Path, m: pd.DataFrame, colours: dict[str, str]) -> str
                 "Event",
                 "Meter",
                 "Mode",
+                "Capture",
                 "Voltage",
                 "Load",
                 "Delay",
@@ -746,6 +841,7 @@ def _section_groups(g: pd.DataFrame) -> str:
                 esc(r.meter),
                 esc(r.serial if r.serial == r.serial else ""),
                 esc(r.mode),
+                esc(r.capture),
                 esc(eng(r.volts, "V")),
                 esc(r.load),
                 esc(eng(r.delay_s, "s")),
@@ -777,6 +873,7 @@ def _section_groups(g: pd.DataFrame) -> str:
                 "Meter",
                 "Serial",
                 "Mode",
+                "Capture",
                 "Voltage",
                 "Load",
                 "Delay",
@@ -806,6 +903,7 @@ def _section_groups(g: pd.DataFrame) -> str:
 _COMPARE_SHOWN = {
     "meter": "Meter",
     "mode": "Mode",
+    "capture": "Capture",
     "volts": "Voltage",
     "load": "Load",
     "delay_s": "Delay",
@@ -991,9 +1089,16 @@ def _section_bounce(m, modes, colours, out) -> str:
     )
 
 
-def _section_selfdischarge(run: Path, m: pd.DataFrame, colours, out) -> str:
+def _section_selfdischarge(
+    run: Path, m: pd.DataFrame, colours, out, capture: str | None = None
+) -> str:
+    """The delay sweep's fits; ``m`` holds the events of ``capture`` (the longest record,
+    whose charge the fit needs), and only that capture's fits are shown."""
     path = run / "selfdischarge.csv"
     sd = pd.read_csv(path) if path.exists() else pd.DataFrame()
+    if not sd.empty and capture is not None:
+        sd = with_capture(sd)
+        sd = sd[sd["capture"].astype(str) == capture]
     if sd.empty:
         return "<p>No delay sweep in this run (no selfdischarge.csv).</p>"
     fig = F.fig_selfdischarge(m, sd, colours)
@@ -1048,16 +1153,42 @@ def write_report(
     body["waveforms"] = _section_waveforms(run, m, modes, colours, out)
     log.info("report %s: waveforms done after %.1f s", run.name, time.perf_counter() - t_start)
 
+    # Peaks (and pulses) from the capture with the finest sample interval, charges from the
+    # one with the longest record (decided from dt_s and record_s, see _capture_roles).
+    peak_cap, charge_cap = _capture_roles(m)
+    mp, mq = m[m["capture"] == peak_cap], m[m["capture"] == charge_cap]
+    g_trend = pd.concat(
+        [
+            g[(g["capture"] == peak_cap) & (g["metric"] != "charge_c")],
+            g[(g["capture"] == charge_cap) & (g["metric"] == "charge_c")],
+        ]
+    )
+    frames = {"peaks": (mp, g), "trends": (m, g_trend), "iec-charge": (mq, g)}
     loads = list(m["load"].value_counts().index)  # most events first
     for key, fn in (
         ("peaks", _section_peaks),
         ("trends", _section_trends),
         ("iec-charge", _section_iec),
     ):
-        body[key] = "".join(fn(m, g, ld, len(loads) > 1, modes, colours, rng, out) for ld in loads)
+        fm, fg = frames[key]
+        body[key] = "".join(
+            fn(fm, fg, ld, len(loads) > 1, modes, colours, rng, out) for ld in loads
+        )
     body["iec-charge"] = _IEC_NOTE + body["iec-charge"]
-    body["bounce"] = _section_bounce(m, modes, colours, out)
-    body["selfdischarge"] = _section_selfdischarge(run, m, colours, out)
+    if _several_captures(m):
+        p_text, q_text = esc(_capture_text(m, peak_cap)), esc(_capture_text(m, charge_cap))
+        body["peaks"] = (
+            f"<p class='n'>From {p_text} (the finest sample interval).</p>" + (body["peaks"])
+        )
+        body["trends"] = (
+            f"<p class='n'>|Peak current| from {p_text}; charge from {q_text}.</p>" + body["trends"]
+        )
+        body["iec-charge"] = (
+            f"<p class='n'>From {q_text} (the longest record: the tail holds most of the "
+            "charge).</p>" + body["iec-charge"]
+        )
+    body["bounce"] = _section_bounce(mp, modes, colours, out)
+    body["selfdischarge"] = _section_selfdischarge(run, mq, colours, out, charge_cap)
     body["flagged"] = _section_flagged(run, m, colours)
     body["groups"] = _section_groups(g)
     if baseline_dir is not None:
@@ -1098,18 +1229,26 @@ def _section_baseline(
         f" ({esc(base_man.get('started') or '')}). Solid: this run; dashed: the "
         "baseline.</p>"
     ]
+    # captures are paired by role (finest sample interval, longest record), not by name
+    pairs = dict(zip(_capture_roles(m), _capture_roles(bm), strict=True))
     for mode in modes:
-        rows = _wave_rows(run, m, mode, colours, other=(base, bm))
-        if not rows:
-            continue
-        fig = F.fig_waveforms(rows, f"This run against the baseline · {mode}")
-        r = F.render(fig, f"baseline-{_slug(mode)}", out)
-        parts.append(
-            _img(
-                r,
-                f"Baseline overlay, {mode}",
-                f"Mode {esc(mode)}: this run (solid) and the baseline (dashed).",
+        for capture, base_capture in pairs.items():
+            rows = _wave_rows(
+                run, m, mode, colours, other=(base, bm), capture=capture, other_capture=base_capture
             )
-        )
+            if not rows:
+                continue
+            what = f"{mode} · capture {capture}" if len(pairs) > 1 else mode
+            fig = F.fig_waveforms(rows, f"This run against the baseline · {what}")
+            sfx = f"-{_slug(capture)}" if len(pairs) > 1 else ""
+            r = F.render(fig, f"baseline-{_slug(mode)}{sfx}", out)
+            parts.append(
+                _img(
+                    r,
+                    f"Baseline overlay, {what}",
+                    f"Mode {esc(mode)}, capture {esc(capture)}: this run (solid) and the "
+                    f"baseline's capture {esc(base_capture)} (dashed).",
+                )
+            )
     parts.append("<h3>Equivalence</h3>" + _compare_table(run, base, base_man))
     return "".join(parts)

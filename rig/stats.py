@@ -169,7 +169,7 @@ def with_capture(frame: pd.DataFrame) -> pd.DataFrame:
         frame["capture"] = DEFAULT_CAPTURE
     elif frame["capture"].isna().any():
         frame = frame.copy()
-        frame["capture"] = frame["capture"].fillna(DEFAULT_CAPTURE)
+        frame["capture"] = frame["capture"].astype(object).fillna(DEFAULT_CAPTURE)
     return frame
 
 

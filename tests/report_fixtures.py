@@ -101,7 +101,7 @@ def _current(
 
 
 def _metrics(
-    v: np.ndarray, t: np.ndarray, volts: float, clipped: bool, load_ohms: float
+    v: np.ndarray, t: np.ndarray, volts: float, clipped: bool, load_ohms: float, dt: float = DT
 ) -> dict[str, object]:
     """Per-event metrics of one decoded current trace (fixture arithmetic, not rig.analysis)."""
     pre = v[t < 0]
@@ -122,8 +122,8 @@ def _metrics(
     i50a, i50b = first(a >= 0.5 * ap), first(a < 0.5 * ap, k)
     i37 = first(a < 0.368 * ap, k)
     post = t >= 0
-    charge = float(a[post].sum() * DT)
-    energy = float((a[post] ** 2).sum() * DT * load_ohms)
+    charge = float(a[post].sum() * dt)
+    energy = float((a[post] ** 2).sum() * dt * load_ohms)
     return {
         "peak_a": peak,
         "abs_peak_a": ap,
@@ -162,6 +162,8 @@ def _median_ci(x: np.ndarray, conf: float = 0.95) -> tuple[float, float]:
 
 def _groups(metrics: pd.DataFrame) -> pd.DataFrame:
     keys = ["meter", "serial", "mode", "volts", "load", "delay_s"]
+    if "capture" in metrics.columns:  # a run with scope captures: one group per capture
+        keys.insert(3, "capture")
     names = ["abs_peak_a", "peak_a", "charge_c", "energy_j", "rise_s", "decay_s", "tau_s"]
     names += ["pulses"]
     rows = []
@@ -221,6 +223,7 @@ def build_run(
     delays: tuple[float, ...] = (0.5, 1.0, 2.0, 5.0),
     operator_note: str = "Fictitious demo run for the report tests.",
     gain_scale: float = 1.0,
+    captures: tuple[tuple[str, float, int, float], ...] | None = None,
 ) -> Path:
     """Write a synthetic analysed run folder ``root/run_id``; returns its path.
 
@@ -228,46 +231,50 @@ def build_run(
     per delay) at the highest voltage in the first of ``modes`` when ``delays`` is not empty. Two
     events are made faulty on purpose: one clips the scope, one is not captured.
     ``gain_scale`` multiplies every meter's currents (a repaired meter for a baseline test).
+    ``captures``: (name, dt s, samples, t0 s) of each scope capture; every event is then run
+    once per capture (rows gain ``capture``, ``dt_s`` and ``record_s``); None writes a run
+    as recorded before captures existed (no such columns, one 200 us timebase).
     """
     run = Path(root) / run_id
     (run / "waveforms").mkdir(parents=True, exist_ok=True)
-    t = T0 + DT * np.arange(N_SAMPLES)
+    timebase = {name: (dt, n, t0) for name, dt, n, t0 in captures or ()}
     plan: list[dict[str, object]] = []
-    for m in meters:
-        for mode in modes:
-            for load, v, r in itertools.product(loads, volts, range(reps)):
-                plan.append(
-                    {
-                        "meter": m.name,
-                        "serial": m.serial,
-                        "mode": mode,
-                        "volts": v,
-                        "delay_s": 0.0,
-                        "rep": r,
-                        "load": load[0],
-                        "load_ohms": load[1],
-                    }
-                )
-            if delays and mode == modes[0]:
-                for d in delays:
-                    for r in range(2):
-                        plan.append(
-                            {
-                                "meter": m.name,
-                                "serial": m.serial,
-                                "mode": mode,
-                                "volts": max(volts),
-                                "delay_s": d,
-                                "rep": r,
-                                "load": loads[0][0],
-                                "load_ohms": loads[0][1],
-                            }
-                        )
+    for m, mode, cap in itertools.product(meters, modes, list(timebase) or [None]):
+        for load, v, r in itertools.product(loads, volts, range(reps)):
+            plan.append(
+                ({"capture": cap} if cap is not None else {})
+                | {
+                    "meter": m.name,
+                    "serial": m.serial,
+                    "mode": mode,
+                    "volts": v,
+                    "delay_s": 0.0,
+                    "rep": r,
+                    "load": load[0],
+                    "load_ohms": load[1],
+                }
+            )
+        if delays and mode == modes[0]:
+            for d in delays:
+                for r in range(2):
+                    plan.append(
+                        ({"capture": cap} if cap is not None else {})
+                        | {
+                            "meter": m.name,
+                            "serial": m.serial,
+                            "mode": mode,
+                            "volts": max(volts),
+                            "delay_s": d,
+                            "rep": r,
+                            "load": loads[0][0],
+                            "load_ohms": loads[0][1],
+                        }
+                    )
     for i, p in enumerate(plan):
         p["event"] = i
         p["key"] = (
             f"{p['serial']}/{p['mode']}/{p['volts']:g}V/{p['load']}/{p['delay_s']:g}s/{p['rep']}"
-        )
+        ) + (f"/{p['capture']}" if "capture" in p else "")
     by_name = {m.name: m for m in meters}
     clip_event, lost_event = 1, 6
     journal, rows = [], []
@@ -302,6 +309,8 @@ def build_run(
             )
             continue
         ohms = float(p["load_ohms"])
+        dt, n_samples, t0 = timebase.get(str(p.get("capture")), (DT, N_SAMPLES, T0))
+        t = t0 + dt * np.arange(n_samples)
         contact = rng.lognormal(0.0, 0.15)
         i = _current(m, str(p["mode"]), v_eff, t, restrikes, contact, ohms)
         i += rng.normal(0, NOISE_A, t.size)
@@ -316,15 +325,17 @@ def build_run(
             np.array([0.0]),
             np.array([-32768]),
             np.array([32767]),
-            DT,
-            T0,
+            dt,
+            t0,
             ("current",),
             ("A",),
         )
         rec["sha256"] = save_waveform(run / str(rec["file"]), wf)
         journal.append(rec)
         clipped = bool(np.any(np.abs(codes) >= 32767))
-        met = _metrics(wf.values("current"), t, float(p["volts"]), clipped, ohms)
+        met = _metrics(wf.values("current"), t, float(p["volts"]), clipped, ohms, dt)
+        if timebase:
+            met |= {"dt_s": dt, "record_s": n_samples * dt}
         tau_s = (m.r_slow + ohms) * m.c_mode[str(p["mode"])] * (1 + rng.normal(0, 0.02))
         met |= {
             "pulses": 1 + len(restrikes),
@@ -352,6 +363,8 @@ def _selfdischarge(metrics: pd.DataFrame, meters: tuple[FakeMeter, ...]) -> pd.D
     """Fit q(d) = q0 exp(-d/tau) per (meter, mode, volts, load) with a delay sweep (log-linear)."""
     rows = []
     keys = ["meter", "serial", "mode", "volts", "load"]
+    if "capture" in metrics.columns:
+        keys.insert(3, "capture")
     for gk, g in metrics.dropna(subset=["charge_c"]).groupby(keys):
         if g["delay_s"].nunique() < 3:
             continue

@@ -474,3 +474,72 @@ def test_measure_csv_npy_and_errors(tmp_path):
     cols.write_text("when,amps\n0,1\n", encoding="utf-8")
     with pytest.raises(FileFormatError, match=r"cols\.csv \[time\]"):
         measure_file(cols, charge_volts=1.0, load_ohms=1.0)
+
+
+# --------------------------------------------------------------------------- scope captures
+
+
+def _split_captures(run: Path) -> None:
+    """Mark even repetitions as capture "fast", odd ones as "slow" in plan and journal (as a
+    sequence with two [scope.captures] tables would record them)."""
+    for name in ("plan.json",):
+        rows = json.loads((run / name).read_text(encoding="utf-8"))
+        for r in rows:
+            r["capture"] = "fast" if r["rep"] % 2 == 0 else "slow"
+        (run / name).write_text(json.dumps(rows), encoding="utf-8")
+    lines = (run / "journal.jsonl").read_text(encoding="utf-8").splitlines()
+    rows = [json.loads(x) for x in lines]
+    for r in rows:
+        r["capture"] = "fast" if r["rep"] % 2 == 0 else "slow"
+    (run / "journal.jsonl").write_text("".join(json.dumps(r) + "\n" for r in rows), "utf-8")
+
+
+def test_capture_is_a_group_key_and_limits_can_name_captures(tmp_path):
+    from rig.compare import COMPARE_KEYS
+    from rig.report import _GROUP_KEYS as REPORT_KEYS
+    from rig.selfdischarge import SWEEP_KEYS
+    from rig.stats import GROUP_KEYS
+
+    # one definition: "capture" right after "mode" everywhere
+    assert GROUP_KEYS == ("meter", "serial", "mode", "capture", "volts", "load", "delay_s")
+    assert list(GROUPS_COLUMNS[: len(GROUP_KEYS)]) == list(GROUP_KEYS)
+    assert COMPARE_KEYS == tuple(k for k in GROUP_KEYS if k != "serial")
+    assert SWEEP_KEYS == tuple(k for k in GROUP_KEYS if k != "delay_s")
+    assert tuple(REPORT_KEYS) == GROUP_KEYS
+    assert SELFDISCHARGE_COLUMNS[:6] == SWEEP_KEYS
+    assert COMPARE_COLUMNS[:6] == COMPARE_KEYS
+    lim = {
+        "metric": "peak_a",
+        "max": 100.0,
+        "statistic": "max",
+        "modes": None,
+        "volts": None,
+        "loads": None,
+        "captures": ["fast"],
+    }
+    run = make_run(tmp_path, "cap", rng=np.random.default_rng(4), reps=10, limits=[lim])
+    _split_captures(run)
+    res = analyze_run(run)
+    m = res.metrics
+    assert set(m["capture"]) == {"fast", "slow"}
+    # the sample interval and record span of every captured event, from its waveform
+    np.testing.assert_allclose(m["dt_s"], DT)
+    np.testing.assert_allclose(m["record_s"], N * DT)
+    g = res.groups
+    peaks = g[g["metric"] == "peak_a"]
+    assert len(peaks) == 2 * len(MODES)  # one group per mode and capture
+    assert (peaks["n_planned"] == 5).all()  # 10 repetitions split in two captures
+    fast, slow = peaks[peaks["capture"] == "fast"], peaks[peaks["capture"] == "slow"]
+    assert (fast["limit"] == 100.0).all() and (fast["verdict"] == "pass").all()
+    assert slow["limit"].isna().all() and slow["verdict"].isna().all()
+
+
+def test_run_without_captures_analyses_as_main(tmp_path):
+    run = make_run(tmp_path, "old", rng=np.random.default_rng(5))
+    assert '"capture"' not in (run / "journal.jsonl").read_text(encoding="utf-8")
+    res = analyze_run(run)
+    assert set(res.metrics["capture"]) == {"main"}
+    assert set(res.groups["capture"]) == {"main"}
+    # a baseline recorded before captures existed still pairs with a "main" capture
+    c = compare_runs(run, run)
+    assert set(c["capture"]) == {"main"} and (c["verdict"] == "equivalent").all()

@@ -461,3 +461,90 @@ def test_report_on_the_analysis_modules_output(tmp_path):
     body = page.tables["glance"][1:]
     assert len(body) == 3 and all("lower" in r[4] for r in body)
     assert len(page.tables["groups"]) == 1 + len(g)
+
+
+# Two scope captures named so that neither the name nor the file order gives away the role:
+# "a-long" (first in the file, 50 ns x 8000 = 400 us, holds the 33 us tail of the fixture's
+# slow path) and "z-fast" (1 ns x 4000 = 4 us: resolves the ns spike, misses the tail).
+CAPTURES = (("a-long", 50e-9, 8000, -20e-6), ("z-fast", 1e-9, 4000, -1e-6))
+
+
+@pytest.fixture(scope="module")
+def captured_run(tmp_path_factory):
+    from rig.analysis import analyze_run
+
+    root = tmp_path_factory.mktemp("captures")
+    run = build_run(
+        root,
+        np.random.default_rng(21),
+        modes=("AC V", "DC V"),
+        reps=6,
+        delays=(),
+        captures=CAPTURES,
+    )
+    analyze_run(run)  # the report reads rig.analysis output: dt_s, record_s, capture groups
+    page = _parse(write_report(run).read_text(encoding="utf-8"))
+    return run, page
+
+
+def test_at_a_glance_peak_from_the_finest_capture_charge_from_the_longest(captured_run):
+    run, page = captured_run
+    m = pd.read_parquet(run / "metrics.parquet")
+    assert set(m["capture"]) == {"a-long", "z-fast"}
+    # dt_s and record_s come from the stored waveforms (rig.analysis), not from the names
+    spans = m.groupby("capture")[["dt_s", "record_s"]].median()
+    assert spans.loc["z-fast", "dt_s"] == pytest.approx(1e-9)
+    assert spans.loc["a-long", "record_s"] == pytest.approx(400e-6)
+    header, body = page.tables["glance"][0], page.tables["glance"][1:]
+    peak_col = next(h for h in header if h.startswith("Median |peak current|"))
+    charge_col = next(h for h in header if h.startswith("Median charge"))
+    assert peak_col.endswith("capture z-fast") and charge_col.endswith("capture a-long")
+    assert {r[0] for r in body} == {"AC V", "DC V"}
+    for r in body:
+        d = m[(m["mode"] == r[0]) & (m["volts"] == m["volts"].max()) & m["file"].notna()]
+        for col, metric, fine, other in (
+            (peak_col, "abs_peak_a", "z-fast", "a-long"),
+            (charge_col, "charge_c", "a-long", "z-fast"),
+        ):
+            want = d[d["capture"] == fine].groupby("meter")[metric].median().abs()
+            wrong = d[d["capture"] == other].groupby("meter")[metric].median().abs()
+            cell = r[header.index(col)]
+            unit = "A" if metric == "abs_peak_a" else "C"
+            for meter, v in want.items():
+                assert f"{meter}: {eng(v, unit)}" in cell, (r[0], col, cell)
+                if abs(wrong[meter] / v - 1) > 0.01:  # picking the other capture fails here
+                    assert f"{meter}: {eng(wrong[meter], unit)}" not in cell
+            if metric == "abs_peak_a" or r[0] == "AC V":
+                # finer sampling sees more of the ns peak; in AC V the 33 us tail runs past
+                # the 4 us record (in DC V its 1 us tail fits both records)
+                assert (want > 1.05 * wrong).all(), (r[0], metric, want, wrong)
+    text = " ".join("".join(page.text).split())
+    assert "|Peak current| from capture “z-fast”: 1 ns × 4000 samples = 4 µs" in text
+
+
+def test_captures_get_a_waveform_figure_each_and_a_group_column(captured_run):
+    run, page = captured_run
+    figs = {p.name for p in (run / "figures").glob("waveforms-*.png")}
+    assert figs == {f"waveforms-{m}-{c}.png" for m in ("ac-v", "dc-v") for c in CAPTURES_SLUGS}
+    g = pd.read_csv(run / "groups.csv")
+    table = page.tables["groups"]
+    col = table[0].index("Capture")
+    assert table[0][col - 1] == "Mode"  # right after the mode, as in groups.csv
+    assert {r[col] for r in table[1:]} == {"a-long", "z-fast"} == set(g["capture"])
+    assert len(table) == 1 + len(g)
+    text = " ".join("".join(page.text).split())
+    # the 45 uC figure uses the long record; the peak strip the fine one
+    assert "From capture “a-long”: 50 ns × 8000 samples = 400 µs (the longest record" in text
+    assert "From capture “z-fast”: 1 ns × 4000 samples = 4 µs (the finest" in text
+
+
+CAPTURES_SLUGS = ("a-long", "z-fast")
+
+
+def test_old_run_without_capture_reads_as_main(report):
+    run, _path, _html, page = report
+    assert "capture" not in pd.read_parquet(run / "metrics.parquet").columns
+    table = page.tables["groups"]
+    col = table[0].index("Capture")
+    assert {r[col] for r in table[1:]} == {"main"}
+    assert all("capture" not in h for h in page.tables["glance"][0])
