@@ -16,7 +16,14 @@ turned positive by the event's polarity, ``Ip`` its peak):
   odd spike). For integer codes, where the MAD of rounded samples is too coarse below a code
   or so of noise, the noise is the standard deviation of the samples within median +-
   (4 robust sigma + 3 codes), robust sigma from the MAD (or, for 8-bit codes, the
-  interquartile range), and at least the quantisation noise 1/sqrt(12) code.
+  interquartile range), and at least the quantisation noise 1/sqrt(12) code. The median of
+  whole codes is itself a whole (or half) code, up to half a code off the true level, and
+  the charge integral multiplies a baseline error by the record length (half a 1 mA code
+  over a 50 ms record is 25 uC); so where the mean of those same samples differs from the
+  median by more than twice its standard error, the baseline is that mean (the median is
+  kept otherwise: it is exact when the level sits on a code). Up to the last
+  ``_BASELINE_MAX`` pre-trigger samples are used, so a long record with a long pre-trigger
+  gets a baseline to match.
 - polarity: sign of the larger excursion from the baseline.
 - peak: largest ``y`` sample; ``peak_a`` carries the polarity, ``abs_peak_a`` does not.
 - rise time: 10 % to 90 % of ``Ip`` on the leading edge of the highest pulse (last crossings
@@ -106,7 +113,10 @@ HBM_FARADS = 100e-12  # JS-001 network capacitance [T]
 IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure [T], REFERENCES.md section 3
 DECAY_LEVEL = float(np.exp(-1.0))  # 36.8 % of peak
 MAD_TO_SIGMA = 1.4826  # MAD of a normal distribution x 1.4826 = sigma (common practice)
-_BASELINE_MAX = 512  # samples used for the baseline: plenty for a median, bounded cost
+# Samples used for the baseline, at most: a long record (a slow capture of the tail) needs a
+# long pre-trigger, since its baseline error times the record length lands in the charge;
+# bounded so that the cost stays linear in a few tens of thousands of samples per event.
+_BASELINE_MAX = 1 << 15
 _FIT_POINTS = 256
 _BLOCK = 64  # samples per block of the crossing search's envelope
 
@@ -315,7 +325,7 @@ def _chunk(
         base = np.median(pre, axis=1)
         noise = MAD_TO_SIGMA * np.median(np.abs(pre - base[:, None]), axis=1)
         if integer:
-            noise = _code_noise(pre, base, noise)
+            base, noise = _code_baseline(pre, base, noise)
     vmax, vmin = raw.max(axis=1), raw.min(axis=1)
     if integer:
         out["flag_clipped"][sl] = (vmax >= code_hi) | (vmin <= code_lo)
@@ -382,24 +392,38 @@ def _chunk(
     out["pulses"][sl] = np.where(ok, np.maximum(_count_pulses(above, under), 1), 0)
 
 
-def _code_noise(pre: np.ndarray, base: np.ndarray, mad_sigma: np.ndarray) -> np.ndarray:
-    """Noise of integer codes, in codes. Below about one code of noise the MAD of rounded
-    samples collapses to 0 or 1 code, so use the standard deviation of the samples within
-    median +- (4 x MAD sigma + 3 codes) instead (spikes beyond stay out), at least the
-    quantisation noise 1/sqrt(12) code."""
-    dev = pre - base[:, None]
+def _code_baseline(
+    pre: np.ndarray, med: np.ndarray, mad_sigma: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Baseline and noise of integer codes, in codes, from the samples within median +-
+    (4 x MAD sigma + 3 codes) (spikes beyond stay out). Noise: their standard deviation
+    (below about one code of noise the MAD of rounded samples collapses to 0 or 1 code), at
+    least the quantisation noise 1/sqrt(12) code. Baseline: see :func:`_settle_baseline`."""
+    dev = pre - med[:, None]
     keep = np.abs(dev) <= (4.0 * mad_sigma + 3.0)[:, None]
     cnt = np.maximum(keep.sum(axis=1), 1)
     mean = np.where(keep, dev, 0.0).sum(axis=1) / cnt
     var = np.where(keep, (dev - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(cnt - 1, 1)
-    return np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))
+    return _settle_baseline(med, mean, var, cnt), np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))
+
+
+def _settle_baseline(
+    med: np.ndarray, mean_dev: np.ndarray, var: np.ndarray, cnt: np.ndarray
+) -> np.ndarray:
+    """The median of whole codes, or the mean of the kept samples (median + mean_dev) where
+    the two differ by more than twice the mean's standard error sqrt(var / cnt): the median
+    is then off the true level by part of a code (it is a whole or half code), which the
+    charge integral would multiply by the record length. Where they agree the median stays,
+    since it is exact when the level sits on a code."""
+    se = np.sqrt(np.maximum(var, 1.0 / 12.0) / np.maximum(cnt, 1))
+    return np.where(np.abs(mean_dev) > 2.0 * se, med + mean_dev, med)
 
 
 def _baseline_int8(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Row medians and noise (codes) of int8 codes from per-row histograms: the median, and
-    the standard deviation of the samples within median +- (4 sigma + 3 codes), where sigma
-    = IQR / 1.349 (normal distribution); the same rule as :func:`_code_noise` with the
-    interquartile range in place of the MAD, at a fraction of the cost."""
+    """Baselines and noise (codes) of int8 codes from per-row histograms, from the samples
+    within median +- (4 sigma + 3 codes), where sigma = IQR / 1.349 (normal distribution);
+    the same rule as :func:`_code_baseline` with the interquartile range in place of the
+    MAD, at a fraction of the cost."""
     r, k = pre.shape
     flat = (pre.astype(np.int64) + 128) + 256 * np.arange(r)[:, None]
     counts = np.bincount(flat.ravel(), minlength=256 * r).reshape(r, 256)
@@ -416,7 +440,7 @@ def _baseline_int8(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     cnt = np.maximum(w.sum(axis=1), 1)
     mean = (w * dev).sum(axis=1) / cnt
     var = (w * (dev - mean[:, None]) ** 2).sum(axis=1) / np.maximum(cnt - 1, 1)
-    return med, np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))
+    return _settle_baseline(med, mean, var, cnt), np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))
 
 
 def _pulse_masks(

@@ -146,25 +146,53 @@ def make_run(
 
 
 def test_histogram_baseline_equals_numpy():
-    # Reference: numpy.median, and numpy.std (ddof 1) of the samples inside the window
-    # median +- (4 IQR / 1.349 + 3 codes) found by numpy.sort, on the same codes.
+    # Reference: numpy.mean and numpy.std (ddof 1) of the samples inside the window
+    # numpy.median +- (4 IQR / 1.349 + 3 codes) found by numpy.sort, on the same codes.
     rng = np.random.default_rng(11)
     for k in (101, 256):
         for sigma in (0.6, 2.0, 8.0):
             pre = np.clip(np.round(rng.normal(3, sigma, (30, k))), -128, 127).astype(np.int8)
-            med, noise = baseline_int8(pre)
-            np.testing.assert_array_equal(med, np.median(pre, axis=1))
+            base, noise = baseline_int8(pre)
+            med = np.median(pre, axis=1)
             srt = np.sort(pre, axis=1).astype(float)
             s = (srt[:, (3 * k) // 4] - srt[:, k // 4]) / 1.349
             for row in range(30):
                 x = pre[row][np.abs(pre[row] - med[row]) <= 4 * s[row] + 3]
                 assert noise[row] == pytest.approx(max(x.std(ddof=1), 12**-0.5), rel=1e-9)
+                # the median, unless the mean of the kept samples is off it by more than
+                # twice its standard error
+                se = max(x.std(ddof=1), 12**-0.5) / np.sqrt(x.size)
+                moved = abs(x.mean() - med[row]) > 2 * se
+                want = x.mean() if moved else med[row]
+                assert base[row] == pytest.approx(want, rel=1e-9, abs=1e-12)
             # normal noise: the estimate is close to sigma (Sheppard: + 1/12 code^2)
             assert np.median(noise) == pytest.approx(np.hypot(sigma, 12**-0.5), rel=0.1)
     # a spike far outside the window does not count as noise
     pre = np.clip(np.round(rng.normal(0, 1.0, (1, 500))), -128, 127).astype(np.int8)
     pre[0, 7] = 120
     assert baseline_int8(pre)[1][0] == pytest.approx(np.delete(pre[0], 7).std(ddof=1))
+
+
+def test_code_baseline_is_not_rounded_to_a_whole_code():
+    """The charge integral multiplies a baseline error by the record length; the median of
+    whole codes is a whole code. A true offset of 0.37 code under 3 codes of normal noise:
+    the mean of the kept samples finds it (standard error 3 / sqrt(18000) code), the median
+    would say 0. Long pre-triggers are used in full (here 18000 of 20000 samples); a level
+    on a code keeps the median, exactly."""
+    rng = np.random.default_rng(17)
+    n_pre, n = 20_000, 40_000
+    t0 = -n_pre * 1e-7
+    codes = np.round(rng.normal(0.37, 3.0, (4, n))).astype(np.int16)
+    for dtype in (np.int16, np.int8):
+        m = event_metrics(codes.astype(dtype), dt=1e-7, t0=t0, gain=1e-3)
+        base_codes = m["baseline_a"] / 1e-3
+        assert np.median(np.median(codes[:, : n_pre - n_pre // 10], axis=1)) == 0.0
+        np.testing.assert_allclose(base_codes, 0.37, atol=5 * 3.0 / np.sqrt(18_000))
+        # so the integral of a record of pure noise is near zero, not 0.37 code x 4 ms
+        assert np.all(np.abs(m["charge_c"]) < 0.1 * 0.37e-3 * n * 1e-7)
+    on_code = np.round(rng.normal(2.0, 0.7, (4, n))).astype(np.int16)
+    m = event_metrics(on_code, dt=1e-7, t0=t0, gain=1e-3)
+    np.testing.assert_array_equal(m["baseline_a"], 2e-3)
 
 
 def test_block_pulse_count_equals_sample_by_sample():
