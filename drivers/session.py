@@ -160,6 +160,7 @@ class ScpiSession:
         self._extra = {"instrument": name}
         self._lock = threading.RLock()
         self._recovering = False
+        self._interrupted = False
         self._generation = 0  # counts successful reconnects
         self._res: Any = None
         self._own_rm = resource_manager is None
@@ -372,6 +373,11 @@ class ScpiSession:
                 raise InstrumentError(self._name, command, "session is closed")
             retried_timeout = False
             reconnects = 0
+            if self._interrupted:
+                # the last exchange was cut short (Ctrl-C, SIGTERM) between write and read:
+                # its reply may still be on its way and must not answer this command
+                self._interrupted = False
+                self._drain_quietly(command)
             while True:
                 try:
                     with self._translate(command):
@@ -397,6 +403,10 @@ class ScpiSession:
                         raise
                 except ConnectionLost as lost:
                     failure = lost
+                except BaseException as exc:
+                    if not isinstance(exc, Exception):
+                        self._interrupted = True  # KeyboardInterrupt and the like
+                    raise
                 # the link is gone: reopen, unless we are already inside a reopen's set-up
                 if self._recovering or reconnects >= self._reconnect_attempts:
                     raise failure
