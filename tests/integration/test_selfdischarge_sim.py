@@ -24,7 +24,7 @@ from .test_runner import BENCH, run_once
 SWEEP = """
 [sequence]
 name = "self-discharge"
-repetitions = 2
+repetitions = 3
 
 [[meters]]
 model = "Sweep meter"
@@ -38,15 +38,15 @@ dwell_s = 1.0
 
 [discharge]
 loads = ["short"]
-delays_s = [0.1, 0.3, 0.6, 1.0, 1.5]
+delays_s = [0.1, 0.5, 1.0, 1.5, 2.0]
 
 [bleed]
 hold_s = 0.5
 
 [scope]
 sample_interval_s = 2e-7
-points = 180000
-trigger_offset_s = -3e-3  # a long pre-trigger: the baseline error is integrated over the record
+points = 205000
+trigger_offset_s = -8e-3  # a long pre-trigger: the baseline error is integrated over the record
 current_range_amps = 60
 current_offset_amps = 25
 trigger_level_amps = 0.05
