@@ -89,7 +89,14 @@ class LiveDisplay(Observer):
             )
 
     def committed(self, row: dict[str, Any], waveform: Waveform | None) -> None:
-        key = (row["meter"], row["mode"], row["volts"], row["load"], row["delay_s"])
+        key = (
+            row["meter"],
+            row["mode"],
+            row.get("capture", "main"),
+            row["volts"],
+            row["load"],
+            row["delay_s"],
+        )
         g = self.groups.setdefault(key, _GroupRow())
         g.done += 1
         if waveform is None:
@@ -117,10 +124,10 @@ class LiveDisplay(Observer):
     # -- rendering -------------------------------------------------------------------------------
     @staticmethod
     def _describe(key: tuple, g: _GroupRow) -> str:
-        meter, mode, volts, load, delay = key
+        meter, mode, capture, volts, load, delay = key
         med = statistics.median(g.peaks) if g.peaks else None
         return (
-            f"{meter} {mode} {volts:g} V {load}: {g.done} done, last "
+            f"{meter} {mode} [{capture}] {volts:g} V {load}: {g.done} done, last "
             f"{eng(g.last, 'A')}, median {eng(med, 'A')}, flagged {g.flags}"
         )
 
