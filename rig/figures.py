@@ -581,7 +581,7 @@ def fig_iec_charge(
                 med, mx = float(np.median(y[ok])), float(np.max(y[ok]))
                 ax.plot([med, med], [i - 0.3, i + 0.3], color=_REF, linewidth=2.2, zorder=4)
                 ax.annotate(
-                    f"max {eng(mx, 'C')} = {100 * mx / limit_c:.2g} % of {eng(limit_c, 'C')}",
+                    f"max {eng(mx, 'C')} = {100 * mx / limit_c:.0f} % of {eng(limit_c, 'C')}",
                     (1.01, i),
                     xycoords=("axes fraction", "data"),
                     ha="left",
