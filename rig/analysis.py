@@ -63,6 +63,7 @@ import numpy as np
 import pandas as pd
 
 from drivers.errors import RunFolderError
+from rig.schema import METRIC_COLUMNS
 from rig.stats import GROUP_KEYS, with_capture
 from rig.store import read_journal, read_manifest, read_plan
 from rig.waveform import Waveform, load_waveform
@@ -81,32 +82,6 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-#: Output columns of :func:`event_metrics`, in the order of DEVELOPERS.md.
-METRIC_COLUMNS: tuple[str, ...] = (
-    "peak_a",
-    "abs_peak_a",
-    "polarity",
-    "t_peak_s",
-    "rise_s",
-    "decay_s",
-    "tau_s",
-    "fwhm_s",
-    "charge_c",
-    "energy_j",
-    "pulses",
-    "c_equiv_f",
-    "r_equiv_ohm",
-    "baseline_a",
-    "noise_a",
-    "flag_clipped",
-    "flag_not_captured",
-    "flag_truncated",
-    "flag_below_noise",
-    "ind_hbm_volts",
-    "ind_hbm_charge_c",
-    "ind_hbm_energy_j",
-    "ind_iec61010_charge_ratio",
-)
 
 HBM_OHMS = 1500.0  # JS-001 network resistance [T], REFERENCES.md section 1
 HBM_FARADS = 100e-12  # JS-001 network capacitance [T]

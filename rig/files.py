@@ -32,6 +32,7 @@ from drivers.sim.interfaces import (
     SenseSpec,
     WorldConfig,
 )
+from rig.schema import DEFAULT_CAPTURE, LIMIT_METRICS
 from rig.tomlcheck import (
     _REQUIRED,
     _Context,
@@ -72,30 +73,8 @@ PROFILES_DIR = Path(drivers.__file__).resolve().parent / "profiles"
 SIM_METERS_DIR = Path(drivers.__file__).resolve().parent / "sim" / "meters"
 
 ROLES = ("supply", "switch", "scope", "meter")
-# Name of the single capture of a sequence without [scope.captures] tables (and of the
-# captures of runs recorded before captures existed).
-DEFAULT_CAPTURE = "main"
-# Per-event metric names written by the analysis (DEVELOPERS.md, "Analysis outputs").
-METRICS = (
-    "peak_a",
-    "abs_peak_a",
-    "t_peak_s",
-    "rise_s",
-    "decay_s",
-    "tau_s",
-    "fwhm_s",
-    "charge_c",
-    "energy_j",
-    "pulses",
-    "c_equiv_f",
-    "r_equiv_ohm",
-    "baseline_a",
-    "noise_a",
-    "ind_hbm_volts",
-    "ind_hbm_charge_c",
-    "ind_hbm_energy_j",
-    "ind_iec61010_charge_ratio",
-)
+# Metric names a limit may name (rig.schema, shared with the analysis).
+METRICS = LIMIT_METRICS
 STATISTICS = ("utl", "max", "p99", "p95", "median", "mean")
 
 

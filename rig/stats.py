@@ -37,6 +37,7 @@ import pandas as pd
 from scipy import stats as sps
 
 from drivers.errors import FileFormatError
+from rig.schema import DEFAULT_CAPTURE, GROUP_KEYS  # re-exported: other modules import them here
 
 __all__ = [
     "DEFAULT_CAPTURE",
@@ -55,11 +56,6 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-#: The keys of a group, defined once: analysis, report, compare (without the serial) and
-#: self-discharge (without the delay) take theirs from here.
-GROUP_KEYS: tuple[str, ...] = ("meter", "serial", "mode", "capture", "volts", "load", "delay_s")
-#: The capture of rows that name none (runs recorded before captures existed).
-DEFAULT_CAPTURE = "main"
 GROUPS_COLUMNS: tuple[str, ...] = (
     "meter",
     "serial",
