@@ -30,16 +30,16 @@ class LoadSpec:
     name: str
     ohms: float
     henry: float = 0.0
-    channel: int | None = None      # relay that selects this load, None if always in circuit
+    channel: int | None = None  # relay that selects this load, None if always in circuit
 
 
 @dataclass(frozen=True)
 class SenseSpec:
     """Current sense on scope input 1: a series shunt, or a probe with its own bandwidth."""
 
-    kind: str = "shunt"             # "shunt" | "probe"
-    ohms: float = 0.1               # shunt resistance (kind = "shunt")
-    amps_per_volt: float = 1.0      # probe transfer (kind = "probe"): volts at scope = amps / this
+    kind: str = "shunt"  # "shunt" | "probe"
+    ohms: float = 0.1  # shunt resistance (kind = "shunt")
+    amps_per_volt: float = 1.0  # probe transfer (kind = "probe"): volts at scope = amps / this
     bandwidth_hz: float | None = None  # probe bandwidth (first order); None = ideal
 
 
@@ -47,10 +47,10 @@ class SenseSpec:
 class BounceSpec:
     """Relay contact bounce on closing: a few make/break intervals, drawn per closing."""
 
-    max_bounces: int = 3            # 0..max_bounces extra breaks after the first make
-    min_s: float = 20e-9            # each make or break interval lies in [min_s, max_s]
+    max_bounces: int = 3  # 0..max_bounces extra breaks after the first make
+    min_s: float = 20e-9  # each make or break interval lies in [min_s, max_s]
     max_s: float = 2e-6
-    contact_ohms: float = 0.05      # closed-contact resistance
+    contact_ohms: float = 0.05  # closed-contact resistance
 
 
 @dataclass(frozen=True)
@@ -60,38 +60,38 @@ class BenchWiring:
     charge_channel: int = 1
     discharge_channel: int = 2
     bleed_channel: int = 3
-    supply_output_ohms: float = 1.0e3     # supply's own output resistance
-    charge_ohms: float = 100.0e3          # series charge resistor (R_charge)
-    bleed_ohms: float = 10.0e3            # bleed resistor (R_bleed)
+    supply_output_ohms: float = 1.0e3  # supply's own output resistance
+    charge_ohms: float = 100.0e3  # series charge resistor (R_charge)
+    bleed_ohms: float = 10.0e3  # bleed resistor (R_bleed)
     loads: tuple[LoadSpec, ...] = (LoadSpec("short", 0.05, 200e-9),)
     sense: SenseSpec = field(default_factory=SenseSpec)
     divider_ratio: float | None = 1000.0  # HV divider probe on scope input 2 (None: not fitted)
-    divider_ohms: float = 100.0e6         # divider input resistance (loads the meter input)
+    divider_ohms: float = 100.0e6  # divider input resistance (loads the meter input)
 
 
 @dataclass(frozen=True)
 class Faults:
     """Faults injected by configuration (all off by default)."""
 
-    relay_stuck_closed: tuple[int, ...] = ()   # channels whose contacts never open
-    supply_stuck_on: bool = False              # output keeps delivering after OUTP OFF
+    relay_stuck_closed: tuple[int, ...] = ()  # channels whose contacts never open
+    supply_stuck_on: bool = False  # output keeps delivering after OUTP OFF
     scope_never_triggers: bool = False
-    drop_connection_after: int | None = None   # server closes the link after N commands
-    slow_answer_s: float = 0.0                 # extra delay before every answer (real time)
-    scpi_error_every: int | None = None        # every Nth command is refused with -200
-    corrupt_block_every: int | None = None     # every Nth block has a wrong length header
+    drop_connection_after: int | None = None  # server closes the link after N commands
+    slow_answer_s: float = 0.0  # extra delay before every answer (real time)
+    scpi_error_every: int | None = None  # every Nth command is refused with -200
+    corrupt_block_every: int | None = None  # every Nth block has a wrong length header
 
 
 @dataclass(frozen=True)
 class WorldConfig:
     """Everything the physics needs: the meter model, the bench wiring, randomness, faults."""
 
-    meter_model: str                    # path of a netlist TOML (drivers/sim/meters/*.toml)
+    meter_model: str  # path of a netlist TOML (drivers/sim/meters/*.toml)
     wiring: BenchWiring = field(default_factory=BenchWiring)
     bounce: BounceSpec = field(default_factory=BounceSpec)
     supply_max_volts: float = 1500.0
     supply_max_amps: float = 0.1
-    noise_volts: float = 0.5e-3         # rms noise at each scope input
+    noise_volts: float = 0.5e-3  # rms noise at each scope input
     seed: int = 0
     faults: Faults = field(default_factory=Faults)
 
