@@ -161,6 +161,7 @@ class ScpiSession:
         self._lock = threading.RLock()
         self._recovering = False
         self._interrupted = False
+        self._busy_s = 0.0  # wall time spent in exchanges (benchmarks split I/O from the rest)
         self._generation = 0  # counts successful reconnects
         self._res: Any = None
         self._own_rm = resource_manager is None
@@ -199,6 +200,11 @@ class ScpiSession:
     def timeout_s(self) -> float:
         """Time allowed for each low-level read, seconds."""
         return self._timeout_s
+
+    @property
+    def busy_s(self) -> float:
+        """Wall time spent inside exchanges with the instrument so far, seconds."""
+        return self._busy_s
 
     @property
     def closed(self) -> bool:
@@ -369,54 +375,61 @@ class ScpiSession:
     def _exchange(self, command: str, repeatable: bool, op: Callable[[], _T]) -> _T:
         """Run ``op`` with timeout and lost-link recovery (see the module docstring)."""
         with self._lock:
-            if self._state is _State.CLOSED:
-                raise InstrumentError(self._name, command, "session is closed")
-            retried_timeout = False
-            reconnects = 0
-            if self._interrupted:
-                # the last exchange was cut short (Ctrl-C, SIGTERM) between write and read:
-                # its reply may still be on its way and must not answer this command
-                self._interrupted = False
-                self._drain_quietly(command)
-            while True:
+            started = time.perf_counter()
+            try:
+                return self._exchange_locked(command, repeatable, op)
+            finally:
+                self._busy_s += time.perf_counter() - started
+
+    def _exchange_locked(self, command: str, repeatable: bool, op: Callable[[], _T]) -> _T:
+        if self._state is _State.CLOSED:
+            raise InstrumentError(self._name, command, "session is closed")
+        retried_timeout = False
+        reconnects = 0
+        if self._interrupted:
+            # the last exchange was cut short (Ctrl-C, SIGTERM) between write and read:
+            # its reply may still be on its way and must not answer this command
+            self._interrupted = False
+            self._drain_quietly(command)
+        while True:
+            try:
+                with self._translate(command):
+                    self._check_link()
+                    return op()
+            except InstrumentTimeout as exc:
                 try:
-                    with self._translate(command):
-                        self._check_link()
-                        return op()
-                except InstrumentTimeout as exc:
-                    try:
-                        self._drain(command)
-                    except ConnectionLost as lost:
-                        lost.__cause__ = exc
-                        failure: ConnectionLost = lost
-                    else:
-                        self._raise_if_refused(command, exc)
-                        if repeatable and not retried_timeout:
-                            retried_timeout = True
-                            log.info(
-                                "%s: %r timed out; late reply drained, asking again",
-                                self._name,
-                                command,
-                                extra=self._extra,
-                            )
-                            continue
-                        raise
+                    self._drain(command)
                 except ConnectionLost as lost:
-                    failure = lost
-                except BaseException as exc:
-                    if not isinstance(exc, Exception):
-                        self._interrupted = True  # KeyboardInterrupt and the like
+                    lost.__cause__ = exc
+                    failure: ConnectionLost = lost
+                else:
+                    self._raise_if_refused(command, exc)
+                    if repeatable and not retried_timeout:
+                        retried_timeout = True
+                        log.info(
+                            "%s: %r timed out; late reply drained, asking again",
+                            self._name,
+                            command,
+                            extra=self._extra,
+                        )
+                        continue
                     raise
-                # the link is gone: reopen, unless we are already inside a reopen's set-up
-                if self._recovering or reconnects >= self._reconnect_attempts:
-                    raise failure
-                reconnects = self._reconnect(command, reconnects, failure)
-                if not repeatable:
-                    raise ConnectionLost(
-                        self._name,
-                        command,
-                        "link was lost and has been re-opened; the command was not repeated",
-                    ) from failure
+            except ConnectionLost as lost:
+                failure = lost
+            except BaseException as exc:
+                if not isinstance(exc, Exception):
+                    self._interrupted = True  # KeyboardInterrupt and the like
+                raise
+            # the link is gone: reopen, unless we are already inside a reopen's set-up
+            if self._recovering or reconnects >= self._reconnect_attempts:
+                raise failure
+            reconnects = self._reconnect(command, reconnects, failure)
+            if not repeatable:
+                raise ConnectionLost(
+                    self._name,
+                    command,
+                    "link was lost and has been re-opened; the command was not repeated",
+                ) from failure
 
     def _raise_if_refused(self, command: str, timeout: InstrumentTimeout) -> None:
         """After a timeout: an instrument that refused a query queues an error and sends no

@@ -56,6 +56,10 @@ class OpenBench:
                 f"Connect meter {model} (serial {serial}) to the bench terminals, then confirm."
             )
 
+    def io_seconds(self) -> float:
+        """Wall time spent talking to the instruments so far (all sessions), seconds."""
+        return sum(s.busy_s for s in self._sessions)
+
     def close(self) -> None:
         """Close every session, then stop the simulated bench (safe to call twice)."""
         for s in self._sessions:

@@ -245,7 +245,7 @@ class Runner:
         t_start = time.perf_counter()
         b, lock, ch = self.bench, self.interlocks, self.cfg.channels
         clock = b.clock
-        io0 = time.perf_counter()
+        io_start = self._io_s()
         self._enter(e, Phase.SETUP)
         lock.check_voltage(e.volts)  # before any command is sent for this event
         self._setup_for(e)
@@ -280,13 +280,12 @@ class Runner:
         captured = b.scope.wait_complete(
             clock, timeout_s=s.acquisition_timeout_s, poll_s=max(record_s, 1e-3)
         )
-        t_io = time.perf_counter() - io0
 
         self._enter(e, Phase.FETCH)
-        t0 = time.perf_counter()
+        t0, io_f0 = time.perf_counter(), self._io_s()
         wf = self._fetch(s) if captured else None
         t_transfer = time.perf_counter() - t0
-        io1 = time.perf_counter()
+        io_fetch = self._io_s() - io_f0
         if not captured:
             b.scope.abort()
         b.switch.open([ch.discharge])
@@ -297,7 +296,7 @@ class Runner:
             bleed_s=max(self.seq.hold_s, 1e-3), max_wait_s=max(30.0, 10 * self.seq.hold_s)
         )
         clock.sleep(self.seq.hold_s)
-        t_io += time.perf_counter() - io1
+        t_io = self._io_s() - io_start - io_fetch  # SCPI exchanges other than the transfer
 
         self._enter(e, Phase.COMMIT)
         t0 = time.perf_counter()
@@ -321,6 +320,11 @@ class Runner:
         tm["storage"] += t_store
         tm["total"] += time.perf_counter() - t_start
         tm["events"] += 1
+
+    def _io_s(self) -> float:
+        """Time spent in instrument exchanges so far (0 for a bench that does not count)."""
+        counter = getattr(self.bench, "io_seconds", None)
+        return counter() if counter is not None else 0.0
 
     def _dwell(self) -> None:
         """Charge dwell: the planned time, or less once the supply current falls below the
