@@ -155,3 +155,43 @@ def test_help_shows_the_caution(capsys):
         main(["--help"])
     out = capsys.readouterr().out
     assert "HIGH VOLTAGE" in out and "licensed practice" in out
+
+
+def test_verify_names_a_damaged_waveform(tmp_path):
+    seq = write_sequence(tmp_path, modes=("AC V",), volts=(1000,), reps=3, points=2000)
+    results = tmp_path / "results"
+    r = rig(
+        "run", str(seq), "--bench", str(BENCH), "--results", str(results), "--quiet", "--no-report"
+    )
+    assert r.returncode == 0, r.stdout + r.stderr
+    run = only_run(results)
+    victim = sorted((run / "waveforms").iterdir())[1]
+    data = bytearray(victim.read_bytes())
+    data[-10] ^= 0xFF  # one flipped byte
+    victim.write_bytes(bytes(data))
+    v = rig("verify", str(run))
+    assert v.returncode == 1
+    assert f"waveforms/{victim.name}: checksum differs" in v.stdout
+
+
+def test_compare_gates_a_repair_workflow(tmp_path):
+    """Same meter, same bench seed: equivalent (exit 0). Another meter model: not (exit 1)."""
+    results = tmp_path / "results"
+    runs = []
+    for name, model in (("base", "demo-a"), ("after", "demo-a"), ("other", "demo-b")):
+        d = tmp_path / name
+        d.mkdir()
+        seq = write_sequence(d, modes=("AC V",), volts=(1000,), reps=20, points=3000)
+        seq.write_text(seq.read_text().replace('sim_model = "demo-a"', f'sim_model = "{model}"'))
+        out = results / name
+        r = rig("run", str(seq), "--bench", str(BENCH), "--results", str(out), "--quiet")
+        assert r.returncode == 0, r.stdout + r.stderr
+        runs.append(only_run(out))
+    base, after, other = runs
+    same = rig("compare", str(after), "--baseline", str(base))
+    assert same.returncode == 0, same.stdout
+    assert "all groups equivalent" in same.stdout
+    diff = rig("compare", str(other), "--baseline", str(base))
+    assert diff.returncode == 1, diff.stdout
+    assert "different" in diff.stdout
+    assert list(other.glob("compare-*.csv"))

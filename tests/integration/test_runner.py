@@ -276,7 +276,7 @@ def test_resume_after_interrupt_completes_without_duplicates(tmp_path):
 
 def test_peak_current_matches_circuit_engine(tmp_path):
     """Stored peaks agree with the engine's own answer for the same charge state."""
-    from rig.analysis import quick_metrics
+    from rig.metrics import quick_metrics
 
     seq_path = write_sequence(tmp_path, modes=("AC V", "DC V"), volts=(1000,), reps=3, points=5000)
     cfg = load_bench(BENCH)
@@ -298,3 +298,18 @@ def test_peak_current_matches_circuit_engine(tmp_path):
         lsb = float(wf.gain[0])
         assert measured == pytest.approx(expected, rel=0.03, abs=2 * lsb), r
     assert np.isfinite(measured)
+
+
+def test_manual_meter_dial_is_turned_by_the_simulation(tmp_path):
+    """A handheld meter (control = "manual"): on the simulated bench the simulation turns
+    the dial at each mode change; the world's ground truth shows the modes in plan order."""
+    cfg = load_bench(BENCH)
+    meter = replace(cfg.instruments["meter"], control="manual")
+    cfg = replace(cfg, instruments={**cfg.instruments, "meter": meter})
+    seq = write_sequence(tmp_path, modes=("DC V", "AC V"), volts=(500,), reps=2, points=2000)
+    outcome, run, plan, truth, cfg = run_once(tmp_path, seq, cfg)
+    assert outcome.status == "complete", outcome.error
+    modes = [s["mode"] for _, s in truth["history"]]
+    changes = [m for i, m in enumerate(modes) if i == 0 or m != modes[i - 1]]
+    assert changes[-2:] == ["DC V", "AC V"]
+    assert [r["mode"] for r in read_journal(run)] == ["DC V", "DC V", "AC V", "AC V"]
