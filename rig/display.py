@@ -34,8 +34,8 @@ class _GroupRow:
 
 
 def _event_peak(wf: Waveform) -> tuple[float | None, bool]:
-    """|Peak current| of one event and whether analysis flagged it (via rig.analysis)."""
-    from rig.analysis import quick_metrics
+    """|Peak current| of one event and whether analysis flagged it (via rig.metrics)."""
+    from rig.metrics import quick_metrics
 
     m = quick_metrics(wf)
     return m["abs_peak_a"], bool(m["flagged"])

@@ -17,12 +17,13 @@ import pandas as pd
 import pytest
 
 from drivers.errors import FileFormatError, RunFolderError
-from rig.analysis import METRIC_COLUMNS, analyze_run, compute_metrics, event_metrics
-from rig.analysis import _baseline_int8 as baseline_int8
-from rig.analysis import _count_pulses_blocks as count_pulses_blocks
-from rig.analysis import _count_pulses_sparse as count_pulses_sparse
+from rig.analysis import METRIC_COLUMNS, analyze_run, compute_metrics
 from rig.compare import COMPARE_COLUMNS, all_equivalent, compare_runs, write_comparison
 from rig.measure import measure_file
+from rig.metrics import _baseline_int8 as baseline_int8
+from rig.metrics import _count_pulses_blocks as count_pulses_blocks
+from rig.metrics import _count_pulses_sparse as count_pulses_sparse
+from rig.metrics import event_metrics
 from rig.selfdischarge import SELFDISCHARGE_COLUMNS, fit_self_discharge, self_discharge
 from rig.stats import GROUPS_COLUMNS
 from rig.waveform import Waveform, save_waveform
