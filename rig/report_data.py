@@ -1,0 +1,136 @@
+"""The run folder's tables as the report reads them, and the selections its sections share.
+
+metrics.parquet and groups.csv are checked for the columns the report needs (RunFolderError
+naming the file and the columns otherwise); charges become magnitudes and a ``flagged``
+column marks events carrying any flag of :data:`FLAG_TEXT`. The capture roles (finest sample
+interval for the |peak|, longest record for the charge) are decided here from dt_s and
+record_s, never from the capture names.
+"""
+
+from __future__ import annotations
+
+import logging
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from drivers.errors import RunFolderError
+from rig.api import group_waveforms, load_run
+from rig.stats import GROUP_KEYS, with_capture
+from rig.units import eng
+
+log = logging.getLogger(__name__)
+
+
+FLAG_TEXT = {
+    "flag_not_captured": "not captured",
+    "flag_clipped": "clipped (beyond the scope range)",
+    "flag_truncated": "truncated (record ended before the tail)",
+    "flag_below_noise": "below noise",
+}
+
+
+_GROUP_KEYS = list(GROUP_KEYS)  # defined once in rig.stats
+
+
+_NEEDED = ["meter", "mode", "volts", "load", "delay_s", "abs_peak_a", "charge_c", "file"]
+
+
+def _load_metrics(run: Path) -> pd.DataFrame:
+    path = run / "metrics.parquet"
+    if not path.exists():
+        raise RunFolderError(f"{path}: no metrics; analyse the run before the report")
+    df = load_run(run)
+    missing = [c for c in _NEEDED if c not in df.columns]
+    if missing:
+        raise RunFolderError(f"{path} [{', '.join(missing)}]: column missing")
+    flags = [c for c in FLAG_TEXT if c in df.columns]
+    df = df.copy()
+    # charges are shown as magnitudes, as groups.csv summarises them (polarity is in its column)
+    df["charge_c"] = pd.to_numeric(df["charge_c"], errors="coerce").abs()
+    df["flagged"] = df[flags].fillna(False).astype(bool).any(axis=1) if flags else False
+    return df
+
+
+def _load_groups(run: Path) -> pd.DataFrame:
+    path = run / "groups.csv"
+    if not path.exists():
+        raise RunFolderError(f"{path}: no group statistics; analyse the run before the report")
+    g = pd.read_csv(path, keep_default_na=True)
+    need = ["meter", "mode", "volts", "metric", "median", "verdict"]
+    missing = [c for c in need if c not in g.columns]
+    if missing:
+        raise RunFolderError(f"{path} [{', '.join(missing)}]: column missing")
+    optional = ["median_ci_low", "median_ci_high", "utl", "limit", "share_over_limit", "max"]
+    for c in _GROUP_KEYS + optional:  # older or partial tables: show what is there
+        if c not in g.columns:
+            g[c] = np.nan
+    g["verdict"] = g["verdict"].fillna("").astype(str).str.strip()
+    return with_capture(g)
+
+
+def _group_waveforms(run: Path, **filters: Any):
+    """(t, values events x samples, rows) of the captured events matching ``filters``, or None
+    when there are none or their records differ in shape (logged; the panel goes without)."""
+    try:
+        t, values, rows = group_waveforms(run, channel="current", **filters)
+    except RunFolderError as exc:
+        log.warning("report: group %s of %s left out of the waveform figure: %s", filters, run, exc)
+        return None
+    if len(rows) == 0:
+        return None
+    return np.asarray(t, float), np.atleast_2d(np.asarray(values, float)), rows
+
+
+def _peak_metric(g: pd.DataFrame) -> str:
+    """The groups.csv metric of the peak's size: ``abs_peak_a`` if summarised, else ``peak_a``
+    (which rig.stats summarises by magnitude)."""
+    names = set(g["metric"].astype(str))
+    return "abs_peak_a" if "abs_peak_a" in names or "peak_a" not in names else "peak_a"
+
+
+def _capture_roles(m: pd.DataFrame) -> tuple[str, str]:
+    """(capture with the finest sample interval, capture with the longest record span).
+
+    The |peak| is read from the first (only a fine timebase resolves a nanosecond peak), the
+    charge from the second (only a long record holds the millisecond tail that carries most
+    of it). Decided from the ``dt_s`` and ``record_s`` columns of metrics.parquet (medians
+    per capture), never from the names; without them (older runs) the first capture serves
+    both."""
+    caps = [str(c) for c in dict.fromkeys(m["capture"])] if "capture" in m else []
+    if not caps:
+        return "main", "main"
+    if len(caps) == 1 or not {"dt_s", "record_s"} <= set(m.columns):
+        return caps[0], caps[0]
+    per = m.groupby("capture", sort=False)[["dt_s", "record_s"]].median().dropna()
+    if per.empty:
+        return caps[0], caps[0]
+    return str(per["dt_s"].idxmin()), str(per["record_s"].idxmax())
+
+
+def _capture_text(m: pd.DataFrame, capture: str) -> str:
+    """``capture “peak”: 1 ns × 20000 samples = 20 µs`` from the events' dt_s and record_s."""
+    sel = m[m["capture"] == capture] if "capture" in m else m
+    if {"dt_s", "record_s"} <= set(sel.columns) and sel["dt_s"].notna().any():
+        dt = float(sel["dt_s"].median())
+        span = float(sel["record_s"].median())
+        return (
+            f"capture “{capture}”: {eng(dt, 's')} × {round(span / dt)} samples = {eng(span, 's')}"
+        )
+    return f"capture “{capture}”"
+
+
+def _several_captures(df: pd.DataFrame) -> bool:
+    return "capture" in df.columns and df["capture"].nunique() > 1
+
+
+def _at_zero_delay(df: pd.DataFrame) -> pd.DataFrame:
+    """Rows at the smallest delay of their (meter, mode, capture, volts, load) group."""
+    if df.empty:
+        return df
+    d = df["delay_s"].fillna(0.0)
+    keys = [k for k in ("meter", "mode", "capture", "volts", "load") if k in df.columns]
+    dmin = d.groupby([df[k] for k in keys]).transform("min")
+    return df[d == dmin]

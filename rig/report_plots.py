@@ -1,0 +1,283 @@
+"""The report's figure sections, each drawn by rig.figures and embedded as PNG.
+
+Waveforms, |peak| per event, trends against voltage, charge against the IEC 61010-1 figure,
+contact bounce, self-discharge and the baseline overlays. Each builder writes its figure as
+PNG and SVG under ``figures/`` and returns the HTML with the PNG embedded. Peaks and pulses
+come from the capture with the finest sample interval, charges from the one with the longest
+record (rig.report picks the frames).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+
+from rig import figures as F
+from rig.report_data import (
+    _at_zero_delay,
+    _capture_roles,
+    _capture_text,
+    _group_waveforms,
+    _load_metrics,
+    _peak_metric,
+)
+from rig.report_html import _img, _slug, _table, esc
+from rig.report_tables import _compare_table
+from rig.stats import with_capture
+from rig.store import read_manifest
+from rig.units import eng
+
+IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure up to 15 kV (REFERENCES.md 3)
+
+
+MAX_WAVE_ROWS = 4  # (voltage, load) rows per waveform figure
+
+
+def _wave_rows(
+    run: Path,
+    m: pd.DataFrame,
+    mode: str,
+    colours: dict[str, str],
+    other: tuple[Path, pd.DataFrame] | None = None,
+    capture: str | None = None,
+    other_capture: str | None = None,
+):
+    """Panels for one mode and capture (records of one capture share their timebase): one
+    row per (voltage, load), highest voltages first. ``other_capture``: the baseline's
+    capture to overlay (default: the same name)."""
+    d = m[(m["mode"] == mode) & m["file"].notna()]
+    if capture is not None:
+        d = d[d["capture"] == capture]
+    d = _at_zero_delay(d)
+    other_capture = other_capture if other_capture is not None else capture
+    combos = sorted(d.groupby(["volts", "load"]).groups, key=lambda k: (-k[0], str(k[1])))
+    if other is not None:
+        od = other[1][(other[1]["mode"] == mode) & other[1]["file"].notna()]
+        if other_capture is not None:
+            od = od[od["capture"] == other_capture]
+        od = _at_zero_delay(od)
+        have = set(od.groupby(["volts", "load"]).groups)
+        combos = [c for c in combos if c in have][:1]
+    rows = []
+    for volts, load in sorted(combos[:MAX_WAVE_ROWS], key=lambda k: (str(k[1]), k[0])):
+        loaded = []
+        for meter in colours:
+            sel = d[(d["meter"] == meter) & (d["volts"] == volts) & (d["load"] == load)]
+            if sel.empty:
+                continue
+            filt = {
+                "meter": meter,
+                "mode": mode,
+                "volts": volts,
+                "load": load,
+                "delay_s": sel["delay_s"].iloc[0],
+            }
+            got = _group_waveforms(run, **filt, **({"capture": capture} if capture else {}))
+            if got is not None:
+                loaded.append((meter, "", got))
+            if other is not None:
+                cap_b = {"capture": other_capture} if other_capture else {}
+                got_b = _group_waveforms(other[0], **filt, **cap_b)
+                if got_b is not None:
+                    loaded.append((meter, " (baseline)", got_b))
+        if not loaded:
+            continue
+        windows = [F.linear_window(t, v) for _, _, (t, v, _r) in loaded]
+        window = (min(w[0] for w in windows), max(w[1] for w in windows))
+        series = [
+            F.Series(
+                F.summarise_traces(t, v, window),
+                f"{meter}{tag}",
+                colours[meter],
+                "--" if tag else "-",
+            )
+            for meter, tag, (t, v, _r) in loaded
+        ]
+        rows.append((f"{eng(volts, 'V')}, load {load}", series, window))
+    return rows
+
+
+def _section_waveforms(run: Path, m: pd.DataFrame, modes: list[str], colours, out: Path):
+    parts = [
+        "<p>Median current of each meter with the band holding 5 % to 95 % of the "
+        "events at each instant. Left: linear time around the nanosecond peak. Right: "
+        "logarithmic time and current, so the millisecond tail shows as well.</p>"
+    ]
+    captures = [str(c) for c in dict.fromkeys(m["capture"])]
+    several = len(captures) > 1
+    if several:
+        parts.append(
+            "<p>One figure per scope capture: a capture with a fine sample interval resolves "
+            "the peak but ends before the tail; a long capture records the tail (and so the "
+            "charge) but smooths the peak.</p>"
+        )
+    for mode in modes:
+        head = f"<h3>{esc(mode)}</h3>"
+        for capture in captures:
+            rows = _wave_rows(run, m, mode, colours, capture=capture)
+            what = f"{mode} · capture {capture}" if several else mode
+            if not rows:
+                parts.append(f"{head}<p>{esc(what)}: no captured waveform.</p>")
+                head = ""
+                continue
+            fig = F.fig_waveforms(rows, f"Discharge current · {what}")
+            sfx = f"-{_slug(capture)}" if several else ""
+            r = F.render(fig, f"waveforms-{_slug(mode)}{sfx}", out)
+            caption = f"Discharge current in mode {esc(mode)}" + (
+                f", {esc(_capture_text(m, capture))}." if several else "."
+            )
+            parts.append(head + _img(r, f"Discharge waveforms, {what}", caption))
+            head = ""
+    return "".join(parts)
+
+
+def _load_title(load: object, several: bool) -> tuple[str, str]:
+    """(heading HTML, figure-name suffix) of one load when the run has several."""
+    return (f"<h3>Load {esc(load)}</h3>", f"-{_slug(str(load))}") if several else ("", "")
+
+
+def _section_peaks(m, g, load, several, modes, colours, rng, out) -> str:
+    head, sfx = _load_title(load, several)
+    ml = _at_zero_delay(m)
+    ml = ml[ml["load"] == load]
+    fig = F.fig_strip(
+        ml,
+        "abs_peak_a",
+        "A",
+        "|Peak current|",
+        modes,
+        colours,
+        rng,
+        f"|Peak current| per event · load {load}",
+    )
+    note = (
+        "<p>Every event is a point (hollow: flagged). Boxes: quartiles; whiskers: 5 % to "
+        "95 %; black bar: median.</p>"
+    )
+    return (
+        head
+        + note
+        + _img(
+            F.render(fig, f"peak-current{sfx}", out),
+            "Peak current per event",
+            "|Peak current| per event by mode, voltage and meter.",
+        )
+    )
+
+
+def _section_trends(m, g, load, several, modes, colours, rng, out) -> str:
+    head, sfx = _load_title(load, several)
+    gl = _at_zero_delay(g[g["load"].astype(str) == str(load)])
+    metrics = [(_peak_metric(g), "|Peak current|", "A"), ("charge_c", "Charge", "C")]
+    fig = F.fig_vs_voltage(gl, metrics, modes, colours, f"Against charge voltage · load {load}")
+    return head + _img(
+        F.render(fig, f"vs-voltage{sfx}", out),
+        "Peak current and charge against voltage",
+        "Median with its 95 % confidence interval, upper tolerance bound (dashed) "
+        "and limit (dash-dot) where groups.csv sets one.",
+    )
+
+
+def _section_iec(m, g, load, several, modes, colours, rng, out) -> str:
+    head, sfx = _load_title(load, several)
+    ml = _at_zero_delay(m)
+    ml = ml[ml["load"] == load]
+    vmax = ml.groupby(["meter", "mode"])["volts"].transform("max")
+    fig = F.fig_iec_charge(ml[ml["volts"] == vmax], colours, rng, IEC61010_CHARGE_C)
+    return head + (
+        _img(
+            F.render(fig, f"iec-charge{sfx}", out),
+            "Charge against 45 µC",
+            "Charge per event, logarithmic axis.",
+        )
+    )
+
+
+_IEC_NOTE = (
+    "<p>IEC 61010-1 treats a stored charge up to 45 µC (for voltages up to 15 kV) as not "
+    "hazardous; the points are the charge each event delivered at the highest voltage of each "
+    "group. Defer to the standard's current text.</p>"
+)
+
+
+def _section_bounce(m, modes, colours, out) -> str:
+    if "pulses" not in m.columns or not m["pulses"].notna().any():
+        return "<p>metrics.parquet holds no pulse counts.</p>"
+    fig = F.fig_pulses(_at_zero_delay(m), modes, colours)
+    return _img(
+        F.render(fig, "bounce", out),
+        "Pulses per event",
+        "Separate current pulses per discharge (contact bounce), all loads and "
+        "voltages at the shortest delay.",
+    )
+
+
+def _section_selfdischarge(
+    run: Path, m: pd.DataFrame, colours, out, capture: str | None = None
+) -> str:
+    """The delay sweep's fits; ``m`` holds the events of ``capture`` (the longest record,
+    whose charge the fit needs), and only that capture's fits are shown."""
+    path = run / "selfdischarge.csv"
+    sd = pd.read_csv(path) if path.exists() else pd.DataFrame()
+    if not sd.empty and capture is not None:
+        sd = with_capture(sd)
+        sd = sd[sd["capture"].astype(str) == capture]
+    if sd.empty:
+        return "<p>No delay sweep in this run (no selfdischarge.csv).</p>"
+    fig = F.fig_selfdischarge(m, sd, colours)
+    rows = [
+        [
+            esc(r.meter),
+            esc(r.mode),
+            esc(eng(r.volts, "V")),
+            esc(r.load),
+            esc(f"{eng(r.tau_s, 's')} ({eng(r.tau_ci_low, 's')} – {eng(r.tau_ci_high, 's')})"),
+            esc(eng(r.safe_charge_c, "C")),
+            esc(eng(r.delay_to_safe_s, "s")),
+            esc(r.n_delays),
+        ]
+        for r in sd.itertuples()
+    ]
+    header = ["Meter", "Mode", "Voltage", "Load", "τ (95 % CI)", "Safe charge", "Delay to safe"]
+    return _img(
+        F.render(fig, "selfdischarge", out),
+        "Self-discharge",
+        "Charge delivered after each delay, with the fitted exponential (τ from "
+        "selfdischarge.csv).",
+    ) + _table(header + ["Delays"], rows)
+
+
+def _section_baseline(
+    run: Path, m: pd.DataFrame, base: Path, modes: list[str], colours, out
+) -> str:
+    base_man = read_manifest(base)
+    bm = _load_metrics(base)
+    parts = [
+        f"<p>Baseline run: <b>{esc(base_man.get('run_id') or base.name)}</b>"
+        f" ({esc(base_man.get('started') or '')}). Solid: this run; dashed: the "
+        "baseline.</p>"
+    ]
+    # captures are paired by role (finest sample interval, longest record), not by name
+    pairs = dict(zip(_capture_roles(m), _capture_roles(bm), strict=True))
+    for mode in modes:
+        for capture, base_capture in pairs.items():
+            rows = _wave_rows(
+                run, m, mode, colours, other=(base, bm), capture=capture, other_capture=base_capture
+            )
+            if not rows:
+                continue
+            what = f"{mode} · capture {capture}" if len(pairs) > 1 else mode
+            fig = F.fig_waveforms(rows, f"This run against the baseline · {what}")
+            sfx = f"-{_slug(capture)}" if len(pairs) > 1 else ""
+            r = F.render(fig, f"baseline-{_slug(mode)}{sfx}", out)
+            parts.append(
+                _img(
+                    r,
+                    f"Baseline overlay, {what}",
+                    f"Mode {esc(mode)}, capture {esc(capture)}: this run (solid) and the "
+                    f"baseline's capture {esc(base_capture)} (dashed).",
+                )
+            )
+    parts.append("<h3>Equivalence</h3>" + _compare_table(run, base, base_man))
+    return "".join(parts)
