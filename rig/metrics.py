@@ -327,7 +327,7 @@ def _chunk(
     floor = np.maximum(0.1 * ip, 3.0 * noise)
     after_lv = np.stack([0.9 * ip, 0.5 * ip, DECAY_LEVEL * ip, floor], axis=1)
     before_lv = np.stack([0.9 * ip, 0.5 * ip, 0.1 * ip], axis=1)
-    env = _block_min(y, _BLOCK)
+    env = _envelope(raw, y, base, neg, integer, work)
     k_after = _search(y, env, _BLOCK, p + 1, after_lv, forward=True)
     k_before = _search(y, env, _BLOCK, p - 1, before_lv, forward=False)
     t_after = _interp(y, k_after, after_lv, forward=True)
@@ -389,7 +389,10 @@ def _baseline_int8(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     the same rule as :func:`_code_baseline` with the interquartile range in place of the
     MAD, at a fraction of the cost."""
     r, k = pre.shape
-    flat = (pre.astype(np.int64) + 128) + 256 * np.arange(r)[:, None]
+    # bin index code + 128 of each row's own 256 bins: the uint8 view XOR 0x80 is code + 128
+    # (two's complement), 3.5x cheaper than widening and adding 128
+    flat = (pre.view(np.uint8) ^ np.uint8(0x80)).astype(np.intp)
+    flat += (256 * np.arange(r, dtype=np.intp))[:, None]
     counts = np.bincount(flat.ravel(), minlength=256 * r).reshape(r, 256)
     cum = np.cumsum(counts, axis=1)
     codes = np.arange(-128, 128, dtype=np.float64)
@@ -442,6 +445,29 @@ def _pulse_masks(
             return a, u
         above[sel], under[sel] = a, u
     return above, under
+
+
+def _envelope(
+    raw: np.ndarray, y: np.ndarray, base: np.ndarray, neg: np.ndarray, integer: bool, work: Any
+) -> np.ndarray:
+    """Block minima of y = (raw - base) x polarity. For integer codes they are taken on the
+    raw codes (1 or 2 bytes a sample instead of 4) and shifted afterwards: y is a monotonic
+    function of raw within a row, computed by the same float subtraction, so the result is
+    identical to ``_block_min(y, _BLOCK)``."""
+    if not integer:
+        return _block_min(y, _BLOCK)
+    r = raw.shape[0]
+    env = np.empty((r, raw.shape[1] // _BLOCK), dtype=work)
+    b = base[:, None].astype(work)
+    if neg.size == 0:
+        np.subtract(_block_min(raw, _BLOCK), b, out=env, casting="unsafe")
+        return env
+    pos = np.ones(r, dtype=bool)
+    pos[neg] = False
+    if pos.any():
+        env[pos] = _block_min(raw[pos], _BLOCK).astype(work) - b[pos]
+    env[neg] = -(-_block_min(-raw[neg].astype(np.int32), _BLOCK).astype(work) - b[neg])
+    return env
 
 
 def _block_min(y: np.ndarray, block: int) -> np.ndarray:

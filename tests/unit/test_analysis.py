@@ -572,3 +572,21 @@ def test_run_without_captures_analyses_as_main(tmp_path):
     # a baseline recorded before captures existed still pairs with a "main" capture
     c = compare_runs(run, run)
     assert set(c["capture"]) == {"main"} and (c["verdict"] == "equivalent").all()
+
+
+def test_integer_envelope_equals_the_float_one():
+    """The crossing search's block minima taken on raw codes equal those of the float trace
+    (both polarities, int8 and int16): a speed-up must not change a number."""
+    from rig.metrics import _block_min, _envelope
+
+    rng = np.random.default_rng(3)
+    for dtype in (np.int8, np.int16):
+        info = np.iinfo(dtype)
+        raw = rng.integers(info.min, info.max, size=(40, 4096)).astype(dtype)
+        base = rng.normal(0.0, 3.0, 40)
+        for neg in (np.array([], dtype=int), np.array([1, 5, 7, 20]), np.arange(40)):
+            y = np.empty(raw.shape, np.float32)
+            np.subtract(raw, base[:, None].astype(np.float32), out=y, casting="unsafe")
+            for i in neg:
+                np.negative(y[i], out=y[i])
+            assert np.array_equal(_block_min(y, 64), _envelope(raw, y, base, neg, True, np.float32))
