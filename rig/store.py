@@ -46,26 +46,24 @@ WAVEFORMS = "waveforms"
 EVENTS = "events.parquet"
 
 
-def read_manifest(run_dir: str | Path) -> dict[str, Any]:
-    """The run's manifest as a dict (RunFolderError if missing or not JSON)."""
-    path = Path(run_dir) / MANIFEST
+def _read_json(path: Path, missing: str) -> Any:
+    """A run-folder JSON file; RunFolderError naming the file when absent or not JSON."""
     try:
         return json.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
-        raise RunFolderError(f"{path}: no manifest; is {run_dir} a run folder?") from None
+        raise RunFolderError(f"{path}: {missing}") from None
     except json.JSONDecodeError as exc:
         raise RunFolderError(f"{path}: not valid JSON ({exc.msg}, line {exc.lineno})") from None
+
+
+def read_manifest(run_dir: str | Path) -> dict[str, Any]:
+    """The run's manifest as a dict (RunFolderError if missing or not JSON)."""
+    return _read_json(Path(run_dir) / MANIFEST, f"no manifest; is {run_dir} a run folder?")
 
 
 def read_plan(run_dir: str | Path) -> list[dict[str, Any]]:
     """The planned events, in order."""
-    path = Path(run_dir) / PLAN
-    try:
-        return json.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise RunFolderError(f"{path}: no plan file") from None
-    except json.JSONDecodeError as exc:
-        raise RunFolderError(f"{path}: not valid JSON ({exc.msg}, line {exc.lineno})") from None
+    return _read_json(Path(run_dir) / PLAN, "no plan file")
 
 
 def read_journal(run_dir: str | Path) -> list[dict[str, Any]]:
