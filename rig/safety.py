@@ -105,10 +105,23 @@ class Interlocks:
         if stuck:
             raise SafetyError(f"relay channel(s) {stuck} read back closed {why}")
 
+    def supply_live(self) -> float | None:
+        """The supply's measured output voltage when it is above the hazardous-live limit with
+        the output commanded off (a supply that does not turn off), else None."""
+        v = float(self.bench.supply.measure_voltage())
+        return v if abs(v) > self.limits.hazardous_live_volts else None
+
     def precheck(self) -> float | None:
-        """Before an event: supply off, charge and discharge open, residual below the limit."""
+        """Before an event: supply off (commanded and measured), charge and discharge open,
+        residual below the limit."""
         if self.bench.supply.output_is_on():
             raise SafetyError("pre-check: supply output reads back ON before charging")
+        live = self.supply_live()
+        if live is not None:
+            raise SafetyError(
+                f"pre-check: supply measures {live:.4g} V with its output off (above "
+                f"{self.limits.hazardous_live_volts:g} V): it does not turn off"
+            )
         self.require_open((self.charge, self.discharge), "before charging")
         r = self.residual()
         if r is not None and abs(r) >= self.limits.safe_residual_volts:
@@ -188,6 +201,13 @@ class Interlocks:
             rep.supply_off = not b.supply.output_is_on()
             if not rep.supply_off:
                 rep.problems.append("supply output still reads back ON")
+            live = self.supply_live()
+            if live is not None:
+                rep.supply_off = False
+                rep.problems.append(
+                    f"supply still measures {live:.4g} V with its output off: switch it off at "
+                    "the mains; the charge relay is the only barrier"
+                )
         except Exception as exc:
             rep.problems.append(f"supply readback failed ({exc})")
         try:

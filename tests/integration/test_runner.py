@@ -313,3 +313,19 @@ def test_manual_meter_dial_is_turned_by_the_simulation(tmp_path):
     changes = [m for i, m in enumerate(modes) if i == 0 or m != modes[i - 1]]
     assert changes[-2:] == ["DC V", "AC V"]
     assert [r["mode"] for r in read_journal(run)] == ["DC V", "DC V", "AC V", "AC V"]
+
+
+def test_supply_that_does_not_turn_off_is_caught_and_reported(tmp_path):
+    """OUTP OFF is ignored (fault): the commanded state reads back off, but the measured
+    output voltage does not fall. The next pre-check stops the run; the safe-state report
+    says the supply is still live; the meter itself is isolated by the open charge relay."""
+    outcome, run, plan, truth, cfg = _exit_case(tmp_path, None, faults=Faults(supply_stuck_on=True))
+    assert outcome.exit_path is ExitPath.INTERLOCK
+    assert "does not turn off" in outcome.error
+    assert len(read_journal(run)) == 1
+    assert not outcome.safe.reached
+    assert any("still measures" in p for p in outcome.safe.problems)
+    last = truth["history"][-1][1]
+    assert last["supply_on"] is True  # ground truth: the fault is real
+    assert not last["relays"].get(cfg.channels.charge, False)
+    assert abs(truth["input_volts"]) < cfg.limits.safe_residual_volts
