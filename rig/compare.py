@@ -238,5 +238,10 @@ def write_comparison(df: pd.DataFrame, run_dir: str | Path, baseline_dir: str | 
 
 
 def all_equivalent(df: pd.DataFrame) -> bool:
-    """True when the comparison has rows and every verdict is "equivalent"."""
-    return bool(len(df)) and bool((df["verdict"] == "equivalent").all())
+    """The repair gate: True when every group of the run was compared and found equivalent.
+
+    Groups only in the baseline do not count against the run (a repair check may re-test a
+    subset of a qualification; they are still listed); a group only in the run does, since
+    nothing vouches for it. False when nothing was compared."""
+    judged = df[df["verdict"] != "only in baseline"] if len(df) else df
+    return bool(len(judged)) and bool((judged["verdict"] == "equivalent").all())

@@ -590,3 +590,17 @@ def test_integer_envelope_equals_the_float_one():
             for i in neg:
                 np.negative(y[i], out=y[i])
             assert np.array_equal(_block_min(y, 64), _envelope(raw, y, base, neg, True, np.float32))
+
+
+def test_repair_gate_judges_the_groups_the_run_retested():
+    """A repair check re-tests part of a qualification: baseline-only groups are listed but
+    do not fail the gate; a group only in the run, or any non-equivalent group, does."""
+    rows = [
+        {"verdict": "equivalent"},
+        {"verdict": "equivalent"},
+        {"verdict": "only in baseline"},
+    ]
+    assert all_equivalent(pd.DataFrame(rows))
+    assert not all_equivalent(pd.DataFrame([*rows, {"verdict": "only in run"}]))
+    assert not all_equivalent(pd.DataFrame([*rows, {"verdict": "inconclusive"}]))
+    assert not all_equivalent(pd.DataFrame([{"verdict": "only in baseline"}]))
