@@ -51,8 +51,9 @@ def _out(text: str = "") -> None:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    from rig.files import load_bench, load_sequence
+    from rig.files import load_bench
     from rig.plan import build_plan, describe, safety_review
+    from rig.sequence import load_sequence
 
     bench = load_bench(args.bench)
     seq = load_sequence(args.sequence, bench)
@@ -144,9 +145,10 @@ def _analyse_and_report(run_dir: Path, baseline: Path | None) -> None:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from rig.files import load_bench, load_sequence
+    from rig.files import load_bench
     from rig.plan import build_plan, describe, safety_review
     from rig.runner import host_info
+    from rig.sequence import load_sequence
     from rig.store import RunWriter, new_run_id
 
     bench = load_bench(args.bench)
@@ -184,8 +186,9 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def cmd_resume(args: argparse.Namespace) -> int:
-    from rig.files import load_bench, load_sequence
+    from rig.files import load_bench
     from rig.plan import build_plan
+    from rig.sequence import load_sequence
     from rig.store import RunWriter, read_plan
 
     run = Path(args.run)

@@ -24,7 +24,8 @@ from typing import Any
 
 import numpy as np
 
-from rig.files import Bench, MeterSpec, Sequence
+from rig.files import Bench
+from rig.sequence import MeterSpec, Sequence
 
 __all__ = [
     "EVENT_OVERHEAD_S",

@@ -16,9 +16,10 @@ import pytest
 
 from drivers.sim.interfaces import Faults
 from rig.benchopen import open_bench
-from rig.files import load_bench, load_sequence
+from rig.files import load_bench
 from rig.plan import build_plan
 from rig.runner import ExitPath, Observer, Phase, Runner
+from rig.sequence import load_sequence
 from rig.store import RunWriter, read_journal, verify_run
 from rig.waveform import load_waveform
 

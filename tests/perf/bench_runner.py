@@ -19,9 +19,10 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
 from rig.benchopen import open_bench  # noqa: E402
-from rig.files import load_bench, load_sequence  # noqa: E402
+from rig.files import load_bench  # noqa: E402
 from rig.plan import build_plan  # noqa: E402
 from rig.runner import Runner  # noqa: E402
+from rig.sequence import load_sequence  # noqa: E402
 from rig.store import RunWriter  # noqa: E402
 
 SEQ = """

@@ -24,11 +24,11 @@ from rig.files import (
     SIM_METERS_DIR,
     Limits,
     load_bench,
-    load_sequence,
     netlist_modes,
     parse_si,
     resolve_meter_model,
 )
+from rig.sequence import load_sequence
 
 ROOT = Path(__file__).resolve().parents[2]
 SEQUENCES = ROOT / "sequences"
