@@ -264,6 +264,9 @@ def cmd_compare(args: argparse.Namespace) -> int:
         _out(df.to_string(index=False))
     _out(f"wrote {path}")
     ok = all_equivalent(df)
+    untested = int((df["verdict"] == "only in baseline").sum()) if len(df) else 0
+    if untested:
+        _out(f"{untested} baseline group x metric rows were not re-tested (listed above)")
     _out("all groups equivalent" if ok else "not every group is equivalent")
     return EXIT_OK if ok else EXIT_NO
 
