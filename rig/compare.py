@@ -27,12 +27,13 @@ import pandas as pd
 from scipy import stats as sps
 
 from drivers.errors import RunFolderError
-from rig.stats import GROUP_KEYS, bootstrap_ci, with_capture
+from rig.stats import GROUP_KEYS, bootstrap_ci, capture_roles, with_capture
 from rig.store import read_manifest
 
 __all__ = [
     "COMPARE_COLUMNS",
     "COMPARE_KEYS",
+    "METRIC_CAPTURE_ROLE",
     "all_equivalent",
     "compare_runs",
     "compare_samples",
@@ -42,6 +43,13 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
+#: Which capture each metric is compared on when a run has several (see compare_runs).
+METRIC_CAPTURE_ROLE: dict[str, str] = {
+    "peak_a": "peak",
+    "abs_peak_a": "peak",
+    "energy_j": "peak",
+    "charge_c": "charge",
+}
 COMPARE_KEYS: tuple[str, ...] = tuple(k for k in GROUP_KEYS if k != "serial")
 COMPARE_COLUMNS: tuple[str, ...] = (
     *COMPARE_KEYS,
@@ -161,6 +169,12 @@ def compare_runs(
 ) -> pd.DataFrame:
     """Compare a run with a baseline run, group by group (columns COMPARE_COLUMNS).
 
+    With several scope captures, each metric is compared on the capture meant for it
+    (:data:`METRIC_CAPTURE_ROLE`, roles from :func:`rig.stats.capture_roles`): |peak| and
+    energy on the capture with the finest sample interval, charge on the one with the
+    longest record; the other pairings measure the wrong thing (a 5 MHz record's peak of a
+    nanosecond pulse) and are left out.
+
     tolerance: equivalence margin on the ratio (0.10: within -10 % .. +10 %).
     metrics: metric columns to compare (by magnitude). seed: bootstrap generator seed.
     """
@@ -179,12 +193,24 @@ def compare_runs(
         for k in keys:
             if k not in frame:
                 frame[k] = None
+    # with several captures, each metric is compared on the capture meant for it
+    peak_cap, charge_cap = capture_roles(run)
+    several = run["capture"].nunique(dropna=False) > 1 if "capture" in run else False
+
+    def meant_for(capture: object, metric: str) -> bool:
+        role = METRIC_CAPTURE_ROLE.get(metric)
+        if not several or role is None:
+            return True
+        return str(capture) == (peak_cap if role == "peak" else charge_cap)
+
     groups_run = {k: g for k, g in run.groupby(keys, dropna=False, sort=True)}
     groups_base = {k: g for k, g in base.groupby(keys, dropna=False, sort=True)}
     rows = []
     for key in sorted(set(groups_run) | set(groups_base), key=lambda k: tuple(map(str, k))):
         gr, gb = groups_run.get(key), groups_base.get(key)
         for name in metrics:
+            if not meant_for(key[keys.index("capture")], name):
+                continue
             row = dict(zip(keys, key, strict=True))
             row["metric"] = name
             row["serials_run"] = _serials(gr) if gr is not None else ""

@@ -39,7 +39,6 @@ from rig import figures as F
 from rig.report_data import (
     _GROUP_KEYS,  # noqa: F401
     FLAG_TEXT,
-    _capture_roles,
     _capture_text,
     _load_groups,
     _load_metrics,
@@ -58,6 +57,7 @@ from rig.report_plots import (
     _section_waveforms,
 )
 from rig.report_tables import _section_flagged, _section_groups, _section_tested
+from rig.stats import capture_roles
 from rig.store import read_manifest
 
 __all__ = ["FLAG_TEXT", "SECTIONS", "write_report"]
@@ -124,8 +124,8 @@ def write_report(
     log.info("report %s: waveforms done after %.1f s", run.name, time.perf_counter() - t_start)
 
     # Peaks (and pulses) from the capture with the finest sample interval, charges from the
-    # one with the longest record (decided from dt_s and record_s, see _capture_roles).
-    peak_cap, charge_cap = _capture_roles(m)
+    # one with the longest record (decided from dt_s and record_s, see capture_roles).
+    peak_cap, charge_cap = capture_roles(m)
     mp, mq = m[m["capture"] == peak_cap], m[m["capture"] == charge_cap]
     g_trend = pd.concat(
         [

@@ -91,25 +91,6 @@ def _peak_metric(g: pd.DataFrame) -> str:
     return "abs_peak_a" if "abs_peak_a" in names or "peak_a" not in names else "peak_a"
 
 
-def _capture_roles(m: pd.DataFrame) -> tuple[str, str]:
-    """(capture with the finest sample interval, capture with the longest record span).
-
-    The |peak| is read from the first (only a fine timebase resolves a nanosecond peak), the
-    charge from the second (only a long record holds the millisecond tail that carries most
-    of it). Decided from the ``dt_s`` and ``record_s`` columns of metrics.parquet (medians
-    per capture), never from the names; without them (older runs) the first capture serves
-    both."""
-    caps = [str(c) for c in dict.fromkeys(m["capture"])] if "capture" in m else []
-    if not caps:
-        return "main", "main"
-    if len(caps) == 1 or not {"dt_s", "record_s"} <= set(m.columns):
-        return caps[0], caps[0]
-    per = m.groupby("capture", sort=False)[["dt_s", "record_s"]].median().dropna()
-    if per.empty:
-        return caps[0], caps[0]
-    return str(per["dt_s"].idxmin()), str(per["record_s"].idxmax())
-
-
 def _capture_text(m: pd.DataFrame, capture: str) -> str:
     """``capture “peak”: 1 ns × 20000 samples = 20 µs`` from the events' dt_s and record_s."""
     sel = m[m["capture"] == capture] if "capture" in m else m

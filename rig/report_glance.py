@@ -17,12 +17,12 @@ import pandas as pd
 
 from rig.report_data import (
     _at_zero_delay,
-    _capture_roles,
     _capture_text,
     _peak_metric,
     _several_captures,
 )
 from rig.report_html import _dict, _plain, _table, _verdict_cell, esc
+from rig.stats import capture_roles
 from rig.units import eng, metric_label, metric_unit
 
 
@@ -32,8 +32,8 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
     gz = _at_zero_delay(g)
     meters = list(dict.fromkeys(mz["meter"]))
     peak_metric = _peak_metric(g)
-    # |peak| from the finest capture, charge from the longest (see _capture_roles)
-    peak_cap, charge_cap = _capture_roles(mz)
+    # |peak| from the finest capture, charge from the longest (see capture_roles)
+    peak_cap, charge_cap = capture_roles(mz)
     source = {"abs_peak_a": peak_cap, "charge_c": charge_cap}
     rows = []
     summary: dict[tuple[str, bool], list[str]] = {}

@@ -16,7 +16,6 @@ import pandas as pd
 from rig import figures as F
 from rig.report_data import (
     _at_zero_delay,
-    _capture_roles,
     _capture_text,
     _group_waveforms,
     _load_metrics,
@@ -24,7 +23,7 @@ from rig.report_data import (
 )
 from rig.report_html import _img, _slug, _table, esc
 from rig.report_tables import _compare_table
-from rig.stats import with_capture
+from rig.stats import capture_roles, with_capture
 from rig.store import read_manifest
 from rig.units import eng
 
@@ -259,7 +258,7 @@ def _section_baseline(
         "baseline.</p>"
     ]
     # captures are paired by role (finest sample interval, longest record), not by name
-    pairs = dict(zip(_capture_roles(m), _capture_roles(bm), strict=True))
+    pairs = dict(zip(capture_roles(m), capture_roles(bm), strict=True))
     for mode in modes:
         for capture, base_capture in pairs.items():
             rows = _wave_rows(

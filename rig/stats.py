@@ -46,6 +46,7 @@ __all__ = [
     "GROUPS_COLUMNS",
     "STATISTICS",
     "bootstrap_ci",
+    "capture_roles",
     "group_stats",
     "limits_from_manifest",
     "tolerance_factor",
@@ -346,3 +347,22 @@ def group_stats(
 
 def _isnan(v: Any) -> bool:
     return isinstance(v, float) and math.isnan(v)
+
+
+def capture_roles(m: pd.DataFrame) -> tuple[str, str]:
+    """(capture with the finest sample interval, capture with the longest record span).
+
+    The |peak| is read from the first (only a fine timebase resolves a nanosecond peak), the
+    charge from the second (only a long record holds the millisecond tail that carries most
+    of it). Decided from the ``dt_s`` and ``record_s`` columns of metrics.parquet (medians
+    per capture), never from the names; without them (older runs) the first capture serves
+    both."""
+    caps = [str(c) for c in dict.fromkeys(m["capture"])] if "capture" in m else []
+    if not caps:
+        return "main", "main"
+    if len(caps) == 1 or not {"dt_s", "record_s"} <= set(m.columns):
+        return caps[0], caps[0]
+    per = m.groupby("capture", sort=False)[["dt_s", "record_s"]].median().dropna()
+    if per.empty:
+        return caps[0], caps[0]
+    return str(per["dt_s"].idxmin()), str(per["record_s"].idxmax())

@@ -604,3 +604,17 @@ def test_repair_gate_judges_the_groups_the_run_retested():
     assert not all_equivalent(pd.DataFrame([*rows, {"verdict": "only in run"}]))
     assert not all_equivalent(pd.DataFrame([*rows, {"verdict": "inconclusive"}]))
     assert not all_equivalent(pd.DataFrame([{"verdict": "only in baseline"}]))
+
+
+def test_compare_uses_each_metric_on_the_capture_meant_for_it(tmp_path):
+    """Two captures: |peak| and energy are compared on the finest timebase only, charge on
+    the longest record only (names chosen so they do not give the answer away)."""
+    from tests.report_fixtures import build_run
+
+    caps = (("zeta", 2e-7, 4000, -1e-4), ("alpha", 1e-9, 2000, -2e-7))
+    kw = dict(captures=caps, delays=(), reps=5)
+    base = build_run(tmp_path / "b", np.random.default_rng(1), run_id="base", **kw)
+    run = build_run(tmp_path / "r", np.random.default_rng(2), run_id="run", **kw)
+    df = compare_runs(run, base)
+    assert set(df.loc[df["metric"].isin(["peak_a", "energy_j"]), "capture"]) == {"alpha"}
+    assert set(df.loc[df["metric"] == "charge_c", "capture"]) == {"zeta"}
