@@ -258,7 +258,8 @@ def cmd_analyze(args: argparse.Namespace) -> int:
 def cmd_compare(args: argparse.Namespace) -> int:
     from rig.compare import all_equivalent, compare_runs, write_comparison
 
-    df = compare_runs(args.run, args.baseline, tolerance=args.tolerance)
+    kw = {"metrics": tuple(args.metric)} if args.metric else {}
+    df = compare_runs(args.run, args.baseline, tolerance=args.tolerance, **kw)
     path = write_comparison(df, args.run, args.baseline)
     with _pd_display():
         _out(df.to_string(index=False))
@@ -465,6 +466,13 @@ def build_parser() -> argparse.ArgumentParser:
         type=float,
         default=0.10,
         help="equivalence margin on the ratio of medians (default 0.10 = +-10 %%)",
+    )
+    sp.add_argument(
+        "--metric",
+        action="append",
+        metavar="NAME",
+        help="metric to compare, repeat for several (default: peak_a and charge_c; "
+        "energy_j, rise_s, tau_s... on request)",
     )
 
     sp = add("measure", cmd_measure, "metrics of one waveform saved elsewhere (CSV or .npy)")

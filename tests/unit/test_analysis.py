@@ -438,14 +438,15 @@ def test_compare_equivalent_different_and_missing(tmp_path):
         tmp_path, "worse", rng=np.random.default_rng(12), reps=12, scale=1.3, volts=(100.0, 200.0)
     )
     analyze_run(base)  # one analysed, the others computed in memory
+    three = ("peak_a", "charge_c", "energy_j")  # energy on request, beside the defaults
 
-    df = compare_runs(same, base)
+    df = compare_runs(same, base, metrics=three)
     assert list(df.columns) == list(COMPARE_COLUMNS)
     assert set(df["verdict"]) == {"equivalent"} and all_equivalent(df)
     assert set(df["serials_run"]) == {"SN-0002"} and set(df["serials_baseline"]) == {"SN-0001"}
     assert ((df["ratio_ci_low"] < 1.05) & (df["ratio_ci_high"] > 0.95)).all()
 
-    dw = compare_runs(worse, base)
+    dw = compare_runs(worse, base, metrics=three)
     at100 = dw[dw["volts"] == 100.0]
     assert set(at100["verdict"]) == {"different"}
     np.testing.assert_allclose(at100.loc[at100.metric == "peak_a", "ratio"], 1.3, rtol=0.03)
@@ -454,7 +455,7 @@ def test_compare_equivalent_different_and_missing(tmp_path):
     assert not all_equivalent(dw)
     path = write_comparison(dw, worse, base)
     assert path.name == "compare-base.csv" and len(pd.read_csv(path)) == len(dw)
-    rev = compare_runs(base, worse)
+    rev = compare_runs(base, worse, metrics=three)
     assert set(rev.loc[rev["volts"] == 200.0, "verdict"]) == {"only in baseline"}
 
 
