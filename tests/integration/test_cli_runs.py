@@ -119,22 +119,80 @@ def test_run_analyze_report_from_the_cli(tmp_path):
     assert rig("verify", str(run)).returncode == 0
 
 
+GOOD_SEQUENCE = """
+[sequence]
+name = "bad-input check"
+repetitions = 2
+[[meters]]
+model = "Test meter"
+serial = "T-1"
+modes = ["AC V"]
+sim_model = "demo-a"
+[charge]
+volts = [500]
+dwell_s = 0.5
+[discharge]
+loads = ["short"]
+"""
+
+# (file kind, text edit on the good file, text the one-line message must contain)
 BAD_INPUTS = {
-    "unknown-key": ("[sequence]\nname='x'\nnmae='y'\n", "nmae"),
-    "toml-syntax": ("[sequence\nname='x'\n", "line"),
+    "seq-unknown-key": (
+        "seq",
+        ("repetitions = 2", "repetitions = 2\nrepetitons = 3"),
+        "repetitions",
+    ),
+    "seq-toml-syntax": ("seq", ("[charge]", "[charge"), "line"),
+    "seq-wrong-type": ("seq", ("repetitions = 2", 'repetitions = "many"'), "repetitions"),
+    "seq-volts-over-max": ("seq", ("volts = [500]", "volts = [500, 5000]"), "volts"),
+    "seq-unknown-load": ("seq", ('loads = ["short"]', 'loads = ["open"]'), "open"),
+    "seq-unknown-mode": ("seq", ('modes = ["AC V"]', 'modes = ["AC kV"]'), "AC kV"),
+    "seq-bad-si-string": ("seq", ("dwell_s = 0.5", 'dwell_s = "half a second"'), "dwell_s"),
+    "seq-no-meters": ("seq", ("[[meters]]", "[[meterz]]"), "meter"),
+    "bench-negative-ohms": ("bench", ('charge_ohms = "100k"', "charge_ohms = -5"), "charge_ohms"),
+    "bench-duplicate-channels": ("bench", ("bleed = 3", "bleed = 2"), "bleed"),
+    "bench-mixed-sim-and-real": (
+        "bench",
+        (
+            'resource = "sim"\nprofile = "scpi1999"\ntimeout_s = 5',
+            'resource = "TCPIP0::127.0.0.1::5025::SOCKET"\nprofile = "scpi1999"\ntimeout_s = 5',
+        ),
+        "sim",
+    ),
+    "bench-unknown-profile": (
+        "bench",
+        ('profile = "scpi1999"', 'profile = "scpi1998"'),
+        "scpi1998",
+    ),
 }
 
 
 @pytest.mark.parametrize("case", sorted(BAD_INPUTS))
-def test_bad_sequence_is_one_line_and_exit_2(tmp_path, capsys, case):
-    text, must = BAD_INPUTS[case]
-    p = tmp_path / f"{case}.toml"
-    p.write_text(text)
-    code = main(["check", str(p), "--bench", str(BENCH)])
+def test_bad_input_is_one_line_and_exit_2(tmp_path, capsys, case):
+    kind, (old, new), must = BAD_INPUTS[case]
+    seq = tmp_path / "seq.toml"
+    bench = tmp_path / "bench.toml"
+    seq_text, bench_text = GOOD_SEQUENCE, BENCH.read_text()
+    if kind == "seq":
+        assert old in seq_text
+        seq_text = seq_text.replace(old, new, 1)
+    else:
+        assert old in bench_text
+        bench_text = bench_text.replace(old, new, 1)
+    seq.write_text(seq_text)
+    bench.write_text(bench_text)
+    code = main(["check", str(seq), "--bench", str(bench)])
     err = capsys.readouterr().err.strip()
-    assert code == 2
+    assert code == 2, err
     assert len(err.splitlines()) == 1, err
-    assert str(p) in err and must in err
+    bad = seq if kind == "seq" else bench
+    assert str(bad) in err and must in err, err
+
+
+def test_good_input_of_the_bad_input_checks_is_good(tmp_path, capsys):
+    seq = tmp_path / "seq.toml"
+    seq.write_text(GOOD_SEQUENCE)
+    assert main(["check", str(seq), "--bench", str(BENCH)]) == 0
 
 
 def test_missing_file_is_one_line_and_exit_2(tmp_path, capsys):
