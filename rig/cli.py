@@ -202,6 +202,10 @@ def cmd_resume(args: argparse.Namespace) -> int:
         )
     writer = RunWriter.reopen(run)
     remaining = len(plan.events) - len(writer.done)
+    if remaining == 0:
+        writer.close()
+        _out(f"{run}: all {len(plan.events)} planned events are done; nothing to resume")
+        return EXIT_OK
     _out(f"resuming {run}: {len(writer.done)} done, {remaining} to go")
     with writer:
         outcome = _execute(writer, bench, seq, plan, args.quiet)
