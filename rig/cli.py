@@ -189,7 +189,7 @@ def cmd_resume(args: argparse.Namespace) -> int:
     from rig.files import load_bench
     from rig.plan import build_plan
     from rig.sequence import load_sequence
-    from rig.store import RunWriter, read_plan
+    from rig.store import RunWriter, read_manifest, read_plan
 
     run = Path(args.run)
     bench = load_bench(run / "bench.toml")
@@ -202,10 +202,12 @@ def cmd_resume(args: argparse.Namespace) -> int:
         )
     writer = RunWriter.reopen(run)
     remaining = len(plan.events) - len(writer.done)
-    if remaining == 0:
+    if remaining == 0 and read_manifest(run).get("status") == "complete":
         writer.close()
         _out(f"{run}: all {len(plan.events)} planned events are done; nothing to resume")
         return EXIT_OK
+    # otherwise open the bench even with nothing left to run: a run that was killed has not
+    # been through the safe-state procedure, and its event table is still to be written
     _out(f"resuming {run}: {len(writer.done)} done, {remaining} to go")
     with writer:
         outcome = _execute(writer, bench, seq, plan, args.quiet)

@@ -185,33 +185,38 @@ class Runner:
             if not isinstance(exc, KeyboardInterrupt | Terminated | Exception):
                 raise  # SystemExit and the like: the finally clause still makes the bench safe
         finally:
-            # from here to the end, a second Ctrl-C must not cut the safe-state procedure or
-            # the bookkeeping short (the run folder would say "running" forever)
+            # from here to the end, neither a second Ctrl-C nor a SIGTERM may cut the safe-state
+            # procedure or the bookkeeping short (the run folder would say "running" forever)
             in_main = threading.current_thread() is threading.main_thread()
-            old_int = signal.signal(signal.SIGINT, signal.SIG_IGN) if in_main else None
-            failed_phase = self.phase
-            safe = self._make_safe()
-            restore()
-            done = len(self.writer.done)
-            if exit_path is ExitPath.NORMAL and done == planned:
-                status = "complete"
-            elif exit_path in (ExitPath.CTRL_C, ExitPath.SIGTERM):
-                status = "interrupted"
-            else:
-                status = "failed"
-            self.writer.write_event_table()
-            self.writer.update_manifest(
-                status=status,
-                exit_path=exit_path.value,
-                error=error,
-                failed_phase=None if exit_path is ExitPath.NORMAL else failed_phase.value,
-                ended=self._iso(),
-                safe_state=safe.to_dict(),
-                timing=dict(self.timing),
-            )
-            self.obs.message(f"run ended by {exit_path.value}; {safe.summary()}")
+            shielded = {}
             if in_main:
-                signal.signal(signal.SIGINT, old_int)
+                restore()
+                for sig in (signal.SIGINT, signal.SIGTERM):
+                    shielded[sig] = signal.signal(sig, signal.SIG_IGN)
+            try:
+                failed_phase = self.phase
+                safe = self._make_safe()
+                done = len(self.writer.done)
+                if exit_path is ExitPath.NORMAL and done == planned:
+                    status = "complete"
+                elif exit_path in (ExitPath.CTRL_C, ExitPath.SIGTERM):
+                    status = "interrupted"
+                else:
+                    status = "failed"
+                self.writer.write_event_table()
+                self.writer.update_manifest(
+                    status=status,
+                    exit_path=exit_path.value,
+                    error=error,
+                    failed_phase=None if exit_path is ExitPath.NORMAL else failed_phase.value,
+                    ended=self._iso(),
+                    safe_state=safe.to_dict(),
+                    timing=dict(self.timing),
+                )
+                self.obs.message(f"run ended by {exit_path.value}; {safe.summary()}")
+            finally:
+                for sig, old in shielded.items():
+                    signal.signal(sig, old)
         return RunOutcome(
             exit_path, status, error, failed_phase, safe, done, planned, dict(self.timing)
         )
