@@ -110,10 +110,20 @@ def _execute(
     opener = open_bench_fn or open_bench
     with opener(bench_cfg, first_sim_model=sim_model, operator=_operator_prompt) as ob:
         writer.update_manifest(instruments=ob.identities)
-        display = LiveDisplay(plan, quiet=quiet)
+        display = LiveDisplay(plan, quiet=quiet, charge_captures=_charge_captures(seq))
         with display:
             outcome = Runner(ob, bench_cfg, seq, plan, writer, observer=display).run()
     return outcome
+
+
+def _charge_captures(seq: Any) -> frozenset[str]:
+    """With several captures, the one with the longest record shows charge in the live table
+    (the others show |peak|), the same rule as the report's (rig.stats.capture_roles)."""
+    if len(seq.captures) < 2:
+        return frozenset()
+    mode = seq.meters[0].modes[0]
+    spans = {c: seq.scope_for(mode, c).record_s for c in seq.captures}
+    return frozenset({max(spans, key=spans.__getitem__)})
 
 
 def _finish(outcome: Any, run_dir: Path, report: bool) -> int:

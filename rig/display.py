@@ -28,24 +28,32 @@ __all__ = ["LiveDisplay"]
 @dataclass
 class _GroupRow:
     done: int = 0
-    peaks: list[float] = field(default_factory=list)
+    values: list[float] = field(default_factory=list)
     flags: int = 0
     last: float | None = None
 
 
-def _event_peak(wf: Waveform) -> tuple[float | None, bool]:
-    """|Peak current| of one event and whether analysis flagged it (via rig.metrics)."""
+def _event_figures(wf: Waveform) -> dict[str, Any]:
+    """|Peak current|, charge and the analysis flag of one event (via rig.metrics)."""
     from rig.metrics import quick_metrics
 
-    m = quick_metrics(wf)
-    return m["abs_peak_a"], bool(m["flagged"])
+    return quick_metrics(wf)
 
 
 class LiveDisplay(Observer):
     """Observer that renders progress; a context manager around the run."""
 
-    def __init__(self, plan: Any, *, quiet: bool = False, console: Console | None = None) -> None:
+    def __init__(
+        self,
+        plan: Any,
+        *,
+        quiet: bool = False,
+        console: Console | None = None,
+        charge_captures: frozenset[str] = frozenset(),
+    ) -> None:
         self.plan = plan
+        # captures whose live figure is the charge (the long records); the others show |peak|
+        self.charge_captures = charge_captures
         self.console = console or Console(stderr=True)
         self.quiet = quiet or not self.console.is_terminal
         self.groups: OrderedDict[tuple, _GroupRow] = OrderedDict()
@@ -103,11 +111,12 @@ class LiveDisplay(Observer):
             g.flags += 1
             g.last = None
         else:
-            peak, flagged = _event_peak(waveform)
-            g.flags += int(flagged)
-            g.last = peak
-            if peak is not None and peak == peak:  # NaN-safe
-                g.peaks.append(peak)
+            m = _event_figures(waveform)
+            g.flags += int(m["flagged"])
+            value = m["charge_c"] if key[2] in self.charge_captures else m["abs_peak_a"]
+            g.last = value
+            if value is not None and value == value:  # NaN-safe
+                g.values.append(abs(value))
         self._done += 1
         self.progress.update(self.task, completed=self._done)
         if self._live is not None:
@@ -122,42 +131,51 @@ class LiveDisplay(Observer):
             print(text, file=sys.stderr, flush=True)
 
     # -- rendering -------------------------------------------------------------------------------
-    @staticmethod
-    def _describe(key: tuple, g: _GroupRow) -> str:
+    def _figure(self, capture: str) -> tuple[str, str]:
+        """(label, unit) of the live figure of a capture."""
+        return ("charge", "C") if capture in self.charge_captures else ("|peak|", "A")
+
+    def _describe(self, key: tuple, g: _GroupRow) -> str:
         meter, mode, capture, volts, load, delay = key
-        med = statistics.median(g.peaks) if g.peaks else None
+        label, unit = self._figure(capture)
+        med = statistics.median(g.values) if g.values else None
         return (
-            f"{meter} {mode} [{capture}] {volts:g} V {load}: {g.done} done, last "
-            f"{eng(g.last, 'A')}, median {eng(med, 'A')}, flagged {g.flags}"
+            f"{meter} {mode} [{capture}] {volts:g} V {load}: {g.done} done, last {label} "
+            f"{eng(g.last, unit)}, median {eng(med, unit)}, flagged {g.flags}"
         )
 
     def _render(self) -> Group:
         table = Table(title=None, expand=False, pad_edge=False)
-        for col in (
+        left = ("meter", "mode", "capture", "load", "figure")
+        columns = (
             "meter",
             "mode",
+            "capture",
             "volts",
             "load",
             "delay",
             "done",
-            "last |peak|",
+            "figure",
+            "last",
             "median",
             "flagged",
-        ):
-            table.add_column(
-                col, justify="right" if col not in ("meter", "mode", "load") else "left"
-            )
-        for (meter, mode, volts, load, delay), g in list(self.groups.items())[-12:]:
-            med = statistics.median(g.peaks) if g.peaks else None
+        )
+        for col in columns:
+            table.add_column(col, justify="left" if col in left else "right")
+        for (meter, mode, capture, volts, load, delay), g in list(self.groups.items())[-12:]:
+            label, unit = self._figure(capture)
+            med = statistics.median(g.values) if g.values else None
             table.add_row(
                 str(meter),
                 str(mode),
+                str(capture),
                 f"{volts:g} V",
                 str(load),
                 eng(delay, "s"),
                 str(g.done),
-                eng(g.last, "A"),
-                eng(med, "A"),
+                label,
+                eng(g.last, unit),
+                eng(med, unit),
                 str(g.flags),
             )
         return Group(self.progress, table)

@@ -1,0 +1,50 @@
+"""The live display renders on a terminal: per group and capture, the figure meant for it."""
+
+from __future__ import annotations
+
+import io
+from types import SimpleNamespace
+
+import numpy as np
+from rich.console import Console
+
+from rig.display import LiveDisplay
+from rig.waveform import Waveform
+
+
+def rc_waveform(dt: float, n: int, amps: float, tau: float) -> Waveform:
+    """An RC discharge i = I0 exp(-t/tau) as int16 codes (REFERENCES.md section 6)."""
+    t = np.arange(n) * dt - 0.1 * n * dt
+    i = np.where(t >= 0, amps * np.exp(-np.clip(t, 0, None) / tau), 0.0)
+    gain = 2.5 * amps / 65536  # full scale above the peak: no clipping
+    codes = np.round(i / gain).astype(np.int16)[None, :]
+    return Waveform(
+        codes,
+        np.array([gain]),
+        np.array([0.0]),
+        np.array([-32768]),
+        np.array([32767]),
+        dt,
+        float(t[0]),
+        ("current",),
+        ("A",),
+    )
+
+
+def test_terminal_table_shows_peak_for_fast_and_charge_for_long_captures():
+    out = io.StringIO()
+    console = Console(file=out, force_terminal=True, width=160)
+    plan = SimpleNamespace(events=[None] * 4)
+    display = LiveDisplay(plan, console=console, charge_captures=frozenset({"charge"}))
+    assert not display.quiet
+    base = {"meter": "M", "mode": "AC V", "volts": 1000.0, "load": "short", "delay_s": 0.0}
+    with display:
+        display.committed({**base, "capture": "peak"}, rc_waveform(1e-9, 4000, 20.0, 30e-9))
+        display.committed({**base, "capture": "charge"}, rc_waveform(2e-7, 5000, 0.01, 2e-4))
+        display.committed({**base, "capture": "charge"}, None)  # not captured
+    text = out.getvalue()
+    assert "|peak|" in text and "charge" in text
+    assert "20 A" in text  # the fast capture's peak
+    # the long capture's charge: I0 tau (1 - exp(-T/tau)) = 10 mA x 200 us x (1 - e^-4.5)
+    # = 1.978 uC over the 0.9 ms after the trigger (RC relation, REFERENCES.md section 6)
+    assert "1.98 µC" in text
