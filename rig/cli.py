@@ -147,11 +147,26 @@ def _analyse_and_report(run_dir: Path, baseline: Path | None) -> None:
     from rig.analysis import analyze_run
 
     result = analyze_run(run_dir)
-    for p in getattr(result, "paths", {}).values() if hasattr(result, "paths") else []:
+    for p in result.paths.values():
         _out(f"wrote {p}")
+    _print_verdicts(result.groups)
     from rig.report import write_report
 
     _out(f"report: {write_report(run_dir, baseline)}")
+
+
+def _print_verdicts(groups: Any) -> dict[str, int]:
+    """One line: how many group x limit checks passed, failed, or had too few events."""
+    if not len(groups) or "verdict" not in groups:
+        return {}
+    counts = groups["verdict"].dropna().value_counts().to_dict()
+    counts = {k: int(v) for k, v in counts.items() if str(k).strip()}
+    if counts:
+        _out(
+            "verdicts against the sequence's limits: "
+            + ", ".join(f"{k} {v}" for k, v in sorted(counts.items()))
+        )
+    return counts
 
 
 def cmd_run(args: argparse.Namespace) -> int:
@@ -263,12 +278,8 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     result = analyze_run(args.run, confidence=args.confidence, coverage=args.coverage)
     for name, p in result.paths.items():
         _out(f"{name}: {p}")
-    groups = result.groups
-    if len(groups) and "verdict" in groups:
-        counts = groups["verdict"].value_counts().to_dict()
-        _out("verdicts: " + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())))
-        return EXIT_NO if counts.get("fail", 0) else EXIT_OK
-    return EXIT_OK
+    counts = _print_verdicts(result.groups)
+    return EXIT_NO if counts.get("fail", 0) else EXIT_OK
 
 
 def cmd_compare(args: argparse.Namespace) -> int:
