@@ -25,7 +25,7 @@ from collections.abc import Sequence
 import numpy as np
 import pyvisa
 
-from drivers.clock import Clock
+from drivers.clock import Clock, VirtualClock
 from drivers.sim.interfaces import WorldConfig
 
 __all__ = [
@@ -278,3 +278,11 @@ def drain_errors(inst) -> list[tuple[int, str]]:
 def error_codes(inst) -> list[int]:
     """Just the numbers of :func:`drain_errors`."""
     return [code for code, _ in drain_errors(inst)]
+
+
+def start_double_bench(config: WorldConfig):
+    """The simulated instruments around a :class:`SimpleRcWorld` on a virtual clock."""
+    from drivers.sim.bench import start_sim_bench
+
+    clock = VirtualClock()
+    return start_sim_bench(config, clock, world=SimpleRcWorld(config, clock))

@@ -20,11 +20,15 @@ import pyvisa
 from pyvisa.util import from_ieee_block
 from scipy.signal import lsim
 
-from drivers.clock import VirtualClock
-from drivers.sim.bench import SimBench, start_sim_bench
+from drivers.sim.bench import SimBench
 from drivers.sim.instruments import DEFAULT_PROFILE
 from drivers.sim.interfaces import BenchWiring, Faults, LoadSpec, SenseSpec, WorldConfig
-from tests.sim_support import SimpleRcWorld, error_codes, open_instrument, query_raw_block
+from tests.sim_support import (
+    error_codes,
+    open_instrument,
+    query_raw_block,
+    start_double_bench,
+)
 
 # 1 kohm load with a 10 ohm shunt: tau = 1010 ohm * 100 nF = 101 us in the "AC V" mode
 WIRING = BenchWiring(loads=(LoadSpec("r1k", 1000.0),), sense=SenseSpec(ohms=10.0))
@@ -33,21 +37,9 @@ PROFILE = tomllib.loads(DEFAULT_PROFILE.read_text(encoding="utf-8"))
 CHARGE_VOLTS = 50.0
 
 
-def _start(config: WorldConfig = CONFIG) -> SimBench:
-    clock = VirtualClock()
-    return start_sim_bench(config, clock, world=SimpleRcWorld(config, clock))
-
-
-@pytest.fixture(scope="module")
-def rm() -> Iterator[pyvisa.ResourceManager]:
-    manager = pyvisa.ResourceManager("@py")
-    yield manager
-    manager.close()
-
-
 @pytest.fixture(scope="module")
 def bench() -> Iterator[SimBench]:
-    with _start() as sim:
+    with start_double_bench(CONFIG) as sim:
         yield sim
 
 
@@ -445,7 +437,7 @@ def test_disabled_input_and_continuous_mode(inst: dict, bench: SimBench) -> None
 
 
 def test_never_triggers_fault(rm: pyvisa.ResourceManager) -> None:
-    with _start(replace(CONFIG, faults=Faults(scope_never_triggers=True))) as sim:
+    with start_double_bench(replace(CONFIG, faults=Faults(scope_never_triggers=True))) as sim:
         opened = {role: open_instrument(rm, res) for role, res in sim.resources.items()}
         try:
             _charge(opened, sim)
@@ -465,7 +457,7 @@ def test_sixteen_bit_codes_with_a_large_offset(rm: pyvisa.ResourceManager) -> No
     # around a 49.5 V offset must still resolve 10 mV / 65536 = 0.15 uV steps
     wiring = replace(WIRING, divider_ratio=1.0)
     config = replace(CONFIG, wiring=wiring, noise_volts=0.0)
-    with _start(config) as sim:
+    with start_double_bench(config) as sim:
         opened = {role: open_instrument(rm, res) for role, res in sim.resources.items()}
         try:
             assert opened["meter"].query('FUNC "VOLT:AC";*OPC?') == "1"

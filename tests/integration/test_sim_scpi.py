@@ -16,29 +16,21 @@ import pytest
 import pyvisa
 from pyvisa.errors import VisaIOError
 
-from drivers.clock import VirtualClock
-from drivers.sim.bench import SimBench, start_sim_bench
+from drivers.sim.bench import SimBench
 from drivers.sim.interfaces import Faults, WorldConfig
-from tests.sim_support import SimpleRcWorld, error_codes, open_instrument, query_raw_block
+from tests.sim_support import (
+    error_codes,
+    open_instrument,
+    query_raw_block,
+    start_double_bench,
+)
 
 CONFIG = WorldConfig(meter_model="test-double", noise_volts=1e-4, seed=7)
 
 
-def _bench(config: WorldConfig = CONFIG) -> SimBench:
-    clock = VirtualClock()
-    return start_sim_bench(config, clock, world=SimpleRcWorld(config, clock))
-
-
-@pytest.fixture(scope="module")
-def rm() -> Iterator[pyvisa.ResourceManager]:
-    manager = pyvisa.ResourceManager("@py")
-    yield manager
-    manager.close()
-
-
 @pytest.fixture(scope="module")
 def bench() -> Iterator[SimBench]:
-    with _bench() as sim:
+    with start_double_bench(CONFIG) as sim:
         yield sim
 
 
@@ -255,7 +247,7 @@ def _charge_and_discharge(rm: pyvisa.ResourceManager, bench: SimBench) -> None:
 
 
 def _faulty(**faults: object) -> SimBench:
-    return _bench(replace(CONFIG, faults=Faults(**faults)))
+    return start_double_bench(replace(CONFIG, faults=Faults(**faults)))
 
 
 def test_dropped_connection(rm: pyvisa.ResourceManager) -> None:

@@ -24,36 +24,7 @@ from rig.plan import build_plan  # noqa: E402
 from rig.runner import Runner  # noqa: E402
 from rig.sequence import load_sequence  # noqa: E402
 from rig.store import RunWriter  # noqa: E402
-
-SEQ = """
-[sequence]
-name = "bench-runner"
-repetitions = {reps}
-[[meters]]
-model = "Benchmark meter"
-serial = "B-1"
-rating = "CAT III 1000 V"
-modes = ["AC V", "DC V"]
-sim_model = "demo-a"
-[charge]
-volts = [1000]
-dwell_s = 1.0
-[discharge]
-loads = ["short"]
-delays_s = [0.0]
-[bleed]
-hold_s = 0.05
-[scope]
-sample_interval_s = 1e-9
-points = {points}
-trigger_offset_s = -1e-6
-current_range_amps = 50.0
-current_offset_amps = 20.0
-trigger_level_amps = 0.2
-trigger_slope = "POSitive"
-bits = 8
-bandwidth_hz = 500e6
-"""
+from tests.integration.test_runner import write_sequence  # noqa: E402
 
 
 def main() -> None:
@@ -61,8 +32,9 @@ def main() -> None:
     points = int(sys.argv[2]) if len(sys.argv) > 2 else 20000
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
-        seq_path = tmp / "seq.toml"
-        seq_path.write_text(SEQ.format(reps=events // 2, points=points))
+        seq_path = write_sequence(
+            tmp, modes=("AC V", "DC V"), volts=(1000,), reps=events // 2, points=points
+        )
         bench = load_bench(ROOT / "sequences" / "benches" / "sim-demo.toml")
         seq = load_sequence(seq_path, bench)
         plan = build_plan(seq, bench)
