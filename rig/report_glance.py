@@ -21,7 +21,7 @@ from rig.report_data import (
     _peak_metric,
     _several_captures,
 )
-from rig.report_html import _dict, _plain, _table, _verdict_cell, esc
+from rig.report_html import _dict, _plain, _table, _verdict_cell, esc, group_cells
 from rig.stats import capture_roles
 from rig.units import eng, metric_label, metric_unit
 
@@ -255,12 +255,7 @@ def _section_verdicts(g: pd.DataFrame) -> str:
             u = metric_unit(r.metric)
             brow.append(
                 [
-                    esc(r.meter),
-                    esc(r.mode),
-                    esc(r.capture) if _several_captures(v) else "",
-                    esc(eng(r.volts, "V")),
-                    esc(r.load),
-                    esc(eng(r.delay_s, "s")),
+                    *group_cells(r, _several_captures(v)),
                     esc(metric_label(r.metric)),
                     esc(eng(getattr(r, "utl", np.nan), u)),
                     esc(eng(getattr(r, "max", np.nan), u)),

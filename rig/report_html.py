@@ -13,6 +13,7 @@ from collections.abc import Iterable, Sequence
 from typing import Any
 
 from rig import figures as F
+from rig.units import eng
 
 
 def esc(value: object) -> str:
@@ -115,3 +116,16 @@ figcaption{font-size:.88em;color:var(--mute)}.lead{font-size:1.05em}
 nav{font-size:.9em;color:var(--mute)}nav a{color:inherit}
 svg.spark{display:block;background:var(--bg)}
 """
+
+
+def group_cells(r: Any, capture: bool = True) -> list[str]:
+    """Escaped cells of a group's keys: meter, mode, capture (blank when the run has only
+    one), voltage, load and delay - the same columns in every table of the report."""
+    return [
+        esc(r.meter),
+        esc(r.mode),
+        esc(r.capture) if capture else "",
+        esc(eng(r.volts, "V")),
+        esc(r.load),
+        esc(eng(r.delay_s, "s")),
+    ]

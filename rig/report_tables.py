@@ -18,7 +18,7 @@ import pandas as pd
 from rig import figures as F
 from rig.compare import compare_runs
 from rig.report_data import FLAG_TEXT, _capture_text, _several_captures
-from rig.report_html import _dict, _kv, _plain, _short, _table, _verdict_cell, esc
+from rig.report_html import _dict, _kv, _plain, _short, _table, _verdict_cell, esc, group_cells
 from rig.units import eng, metric_label, metric_unit
 from rig.waveform import load_waveform
 
@@ -171,12 +171,7 @@ def _section_flagged(run: Path, m: pd.DataFrame, colours: dict[str, str]) -> str
         rows.append(
             [
                 esc(getattr(r, "event", "")),
-                esc(r.meter),
-                esc(r.mode),
-                esc(r.capture) if _several_captures(m) else "",
-                esc(eng(r.volts, "V")),
-                esc(r.load),
-                esc(eng(r.delay_s, "s")),
+                *group_cells(r, _several_captures(m)),
                 esc(eng(r.abs_peak_a, "A")),
                 esc(eng(r.charge_c, "C")),
                 esc("; ".join(why)),
