@@ -1,7 +1,13 @@
 """Instrument I/O for the discharge bench: SCPI session over PyVISA, role drivers, profiles."""
 
 from drivers.clock import Clock, RealClock, VirtualClock
-from drivers.errors import (
+from drivers.metermode import ManualMeterMode, MeterMode, ScpiMeterMode
+from drivers.profile import Profile
+from drivers.scope import Scope, Trace
+from drivers.session import ScpiSession
+from drivers.supply import Supply
+from drivers.switch import SwitchBoard
+from rigbase.errors import (
     BlockFormatError,
     ConnectionLost,
     FileFormatError,
@@ -14,12 +20,6 @@ from drivers.errors import (
     SafetyError,
     ScpiError,
 )
-from drivers.metermode import ManualMeterMode, MeterMode, ScpiMeterMode
-from drivers.profile import Profile
-from drivers.scope import Scope, Trace
-from drivers.session import ScpiSession
-from drivers.supply import Supply
-from drivers.switch import SwitchBoard
 
 __all__ = [
     "BlockFormatError",

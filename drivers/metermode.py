@@ -10,9 +10,9 @@ import logging
 from abc import ABC, abstractmethod
 from collections.abc import Callable, Iterable
 
-from drivers.errors import InstrumentError, LimitError
 from drivers.profile import Profile
 from drivers.session import ScpiSession
+from rigbase.errors import InstrumentError, LimitError
 
 __all__ = ["ManualMeterMode", "MeterMode", "ScpiMeterMode"]
 

@@ -6,7 +6,7 @@ template, a Python format string whose named fields are the values the driver su
 that operation (:data:`OPERATIONS`). Role tables are optional, but a role that is present
 must define every one of its operations and ranges. ``[profile]`` and ``[common]`` are always
 required. Everything is checked when the file is loaded, so a typo surfaces as one
-:class:`~drivers.errors.ProfileError` naming the file and the key, not as a strange
+:class:`~rigbase.errors.ProfileError` naming the file and the key, not as a strange
 instrument error halfway through a run.
 """
 
@@ -22,7 +22,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
-from drivers.errors import ProfileError
+from rigbase.errors import ProfileError
 
 __all__ = [
     "FORMAT_VERSION",

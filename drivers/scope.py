@@ -16,9 +16,9 @@ from typing import Literal
 import numpy as np
 
 from drivers.clock import Clock
-from drivers.errors import BlockFormatError, InstrumentError, LimitError
 from drivers.profile import Profile
 from drivers.session import ByteOrder, ScpiSession
+from rigbase.errors import BlockFormatError, InstrumentError, LimitError
 
 __all__ = ["Scope", "Trace"]
 

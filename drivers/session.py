@@ -1,7 +1,7 @@
 """One SCPI session to one instrument over PyVISA (pyvisa-py, ``@py``, by default).
 
 Everything the rest of the project knows about PyVISA lives here. Lower-layer errors are
-translated once, at this boundary, into the project's tree (``drivers/errors.py``):
+translated once, at this boundary, into the project's tree (``rigbase/errors.py``):
 
 - ``VisaIOError`` timeout -> :class:`InstrumentTimeout`
 - ``OSError`` (broken pipe, refused, reset), ``InvalidSession``, a peer that closed the
@@ -50,7 +50,8 @@ import pyvisa
 from pyvisa import constants
 from pyvisa import errors as visa_errors
 
-from drivers.errors import (
+from drivers.profile import Profile
+from rigbase.errors import (
     BlockFormatError,
     ConnectionLost,
     InstrumentError,
@@ -58,7 +59,6 @@ from drivers.errors import (
     LimitError,
     ScpiError,
 )
-from drivers.profile import Profile
 
 __all__ = ["BlockDType", "ByteOrder", "ScpiSession", "parse_error_reply", "parse_block_header"]
 

@@ -2,7 +2,7 @@
 
 Every setpoint is checked against the profile's ``[supply.ranges]`` and the bench's own
 limits (passed at construction) before anything is sent: a value over a limit raises
-:class:`~drivers.errors.LimitError` and the instrument never sees it.
+:class:`~rigbase.errors.LimitError` and the instrument never sees it.
 """
 
 from __future__ import annotations
@@ -10,9 +10,9 @@ from __future__ import annotations
 import logging
 import math
 
-from drivers.errors import InstrumentError, LimitError
 from drivers.profile import Profile
 from drivers.session import ScpiSession
+from rigbase.errors import InstrumentError, LimitError
 
 __all__ = ["Supply", "parse_bool"]
 

@@ -11,9 +11,9 @@ import logging
 from collections.abc import Iterable, Sequence
 
 from drivers.clock import Clock
-from drivers.errors import InstrumentError, LimitError, SafetyError
 from drivers.profile import Profile
 from drivers.session import ScpiSession
+from rigbase.errors import InstrumentError, LimitError, SafetyError
 
 __all__ = ["SwitchBoard", "channel_list"]
 

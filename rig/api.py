@@ -19,10 +19,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from drivers.errors import RunFolderError
-from rig.analysis import journal_frame
-from rig.stats import with_capture
-from rig.waveform import Waveform, load_waveform
+from rig.analysis.analyze import journal_frame
+from rig.analysis.stats import with_capture
+from rig.store.waveform import Waveform, load_waveform
+from rigbase.errors import RunFolderError
 
 __all__ = ["group_waveforms", "load_event_waveform", "load_run"]
 

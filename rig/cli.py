@@ -14,7 +14,7 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
-from drivers.errors import (
+from rigbase.errors import (
     FileFormatError,
     InstrumentError,
     LimitError,
@@ -51,9 +51,9 @@ def _out(text: str = "") -> None:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    from rig.files import load_bench
-    from rig.plan import build_plan, describe, safety_review
-    from rig.sequence import load_sequence
+    from rig.planning.benchfile import load_bench
+    from rig.planning.plan import build_plan, describe, safety_review
+    from rig.planning.sequence import load_sequence
 
     bench = load_bench(args.bench)
     seq = load_sequence(args.sequence, bench)
@@ -101,9 +101,9 @@ def _execute(
     open_bench_fn: Callable[..., Any] | None = None,
 ) -> Any:
     """Open the bench, run the remaining events, close the bench; returns the RunOutcome."""
-    from rig.benchopen import open_bench
-    from rig.display import LiveDisplay
-    from rig.runner import Runner
+    from rig.runner.cycle import Runner
+    from rig.runner.display import LiveDisplay
+    from rig.runner.opener import open_bench
 
     first = next((e for e in plan.events if e.index not in writer.done), None)
     sim_model = seq.meters[first.meter_index].sim_model if first else None
@@ -118,7 +118,7 @@ def _execute(
 
 def _charge_captures(seq: Any) -> frozenset[str]:
     """With several captures, the one with the longest record shows charge in the live table
-    (the others show |peak|), the same rule as the report's (rig.stats.capture_roles)."""
+    (the others show |peak|), the same rule as the report's (rig.analysis.stats.capture_roles)."""
     if len(seq.captures) < 2:
         return frozenset()
     mode = seq.meters[0].modes[0]
@@ -144,13 +144,13 @@ def _finish(outcome: Any, run_dir: Path, report: bool) -> int:
 
 
 def _analyse_and_report(run_dir: Path, baseline: Path | None) -> None:
-    from rig.analysis import analyze_run
+    from rig.analysis.analyze import analyze_run
 
     result = analyze_run(run_dir)
     for p in result.paths.values():
         _out(f"wrote {p}")
     _print_verdicts(result.groups)
-    from rig.report import write_report
+    from rig.report.page import write_report
 
     _out(f"report: {write_report(run_dir, baseline)}")
 
@@ -170,11 +170,11 @@ def _print_verdicts(groups: Any) -> dict[str, int]:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from rig.files import load_bench
-    from rig.plan import build_plan, describe, safety_review
-    from rig.runner import host_info
-    from rig.sequence import load_sequence
-    from rig.store import RunWriter, new_run_id
+    from rig.planning.benchfile import load_bench
+    from rig.planning.plan import build_plan, describe, safety_review
+    from rig.planning.sequence import load_sequence
+    from rig.runner.cycle import host_info
+    from rig.store.runfolder import RunWriter, new_run_id
 
     bench = load_bench(args.bench)
     seq = load_sequence(args.sequence, bench)
@@ -211,10 +211,10 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def cmd_resume(args: argparse.Namespace) -> int:
-    from rig.files import load_bench
-    from rig.plan import build_plan
-    from rig.sequence import load_sequence
-    from rig.store import RunWriter, read_manifest, read_plan
+    from rig.planning.benchfile import load_bench
+    from rig.planning.plan import build_plan
+    from rig.planning.sequence import load_sequence
+    from rig.store.runfolder import RunWriter, read_manifest, read_plan
 
     run = Path(args.run)
     bench = load_bench(run / "bench.toml")
@@ -240,7 +240,7 @@ def cmd_resume(args: argparse.Namespace) -> int:
 
 
 def cmd_verify(args: argparse.Namespace) -> int:
-    from rig.store import verify_run
+    from rig.store.runfolder import verify_run
 
     v = verify_run(args.run)
     _out(
@@ -258,8 +258,8 @@ def cmd_verify(args: argparse.Namespace) -> int:
 
 
 def cmd_instruments(args: argparse.Namespace) -> int:
-    from rig.benchopen import open_bench
-    from rig.files import load_bench
+    from rig.planning.benchfile import load_bench
+    from rig.runner.opener import open_bench
 
     bench = load_bench(args.bench)
     with open_bench(bench, operator=_operator_prompt) as ob:
@@ -273,7 +273,7 @@ def cmd_instruments(args: argparse.Namespace) -> int:
 
 
 def cmd_analyze(args: argparse.Namespace) -> int:
-    from rig.analysis import analyze_run
+    from rig.analysis.analyze import analyze_run
 
     result = analyze_run(args.run, confidence=args.confidence, coverage=args.coverage)
     for name, p in result.paths.items():
@@ -283,7 +283,7 @@ def cmd_analyze(args: argparse.Namespace) -> int:
 
 
 def cmd_compare(args: argparse.Namespace) -> int:
-    from rig.compare import all_equivalent, compare_runs, write_comparison
+    from rig.analysis.compare import all_equivalent, compare_runs, write_comparison
 
     kw = {"metrics": tuple(args.metric)} if args.metric else {}
     df = compare_runs(args.run, args.baseline, tolerance=args.tolerance, **kw)
@@ -302,7 +302,7 @@ def cmd_compare(args: argparse.Namespace) -> int:
 def cmd_measure(args: argparse.Namespace) -> int:
     import json
 
-    from rig.measure import measure_file
+    from rig.analysis.measure import measure_file
 
     m = measure_file(
         args.file,
@@ -314,7 +314,7 @@ def cmd_measure(args: argparse.Namespace) -> int:
     if args.json:
         _out(json.dumps(m, indent=2, default=float))
     else:
-        from rig.units import eng, metric_unit
+        from rigbase.units import eng, metric_unit
 
         width = max(len(k) for k in m)
         for k, v in m.items():
@@ -323,11 +323,11 @@ def cmd_measure(args: argparse.Namespace) -> int:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
-    from rig.report import write_report
+    from rig.report.page import write_report
 
     run = Path(args.run)
     if not (run / "metrics.parquet").exists():
-        from rig.analysis import analyze_run
+        from rig.analysis.analyze import analyze_run
 
         analyze_run(run)
     _out(f"report: {write_report(run, Path(args.baseline) if args.baseline else None)}")
@@ -352,7 +352,7 @@ def cmd_sim_serve(args: argparse.Namespace) -> int:
 
     from drivers.clock import RealClock
     from drivers.sim.bench import start_sim_bench
-    from rig.files import load_bench, resolve_meter_model
+    from rig.planning.benchfile import load_bench, resolve_meter_model
 
     bench = load_bench(args.bench)
     if bench.simulation is None:

@@ -14,7 +14,7 @@ import numpy as np
 
 from drivers.clock import VirtualClock
 from drivers.sim.world import BenchWorld
-from rig.files import resolve_meter_model
+from rig.planning.benchfile import resolve_meter_model
 
 
 def reference_peak(

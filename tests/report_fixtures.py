@@ -2,12 +2,12 @@
 
 :func:`build_run` writes everything the report reads, with the columns of DEVELOPERS.md
 ("Run folder" and "Analysis outputs"): ``manifest.json``, ``plan.json``, ``journal.jsonl``,
-``waveforms/<event>.npz`` (through :func:`rig.waveform.save_waveform`), ``metrics.parquet``,
+``waveforms/<event>.npz`` (through :func:`rig.store.waveform.save_waveform`), ``metrics.parquet``,
 ``groups.csv`` and ``selfdischarge.csv``. The waveforms follow a two-path discharge model
 (a fast spike through the meter's protection capacitance plus a slow RC tail through its
 input network, with contact-bounce re-strikes); the metrics are computed from the stored
 waveforms with plain numpy, so the figures and the tables agree with each other. This is
-fixture data for tests and benchmarks only; the real metrics come from rig.analysis.
+fixture data for tests and benchmarks only; the real metrics come from rig.analysis.analyze.
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from rig.waveform import Waveform, save_waveform
+from rig.store.waveform import Waveform, save_waveform
 
 __all__ = ["DEFAULT_METERS", "FakeMeter", "build_run"]
 
@@ -103,7 +103,7 @@ def _current(
 def _metrics(
     v: np.ndarray, t: np.ndarray, volts: float, clipped: bool, load_ohms: float, dt: float = DT
 ) -> dict[str, object]:
-    """Per-event metrics of one decoded current trace (fixture arithmetic, not rig.analysis)."""
+    """Per-event metrics of one decoded current trace (fixture arithmetic, not rig.analysis.analyze)."""
     pre = v[t < 0]
     base = float(pre.mean())
     noise = float(pre.std())

@@ -19,7 +19,6 @@ from pathlib import Path
 import numpy as np
 from scipy.signal import lfilter
 
-from drivers.errors import ProfileError
 from drivers.sim.interfaces import World
 from drivers.sim.scpi import (
     Block,
@@ -30,6 +29,7 @@ from drivers.sim.scpi import (
     match_nodes,
     parse_header_pattern,
 )
+from rigbase.errors import ProfileError
 
 __all__ = [
     "DEFAULT_PROFILE",

@@ -21,7 +21,7 @@ File layout (format 1)::
     ohms = 1.2e3                           # R: ohms; C: farads (+ optional rated_volts);
                                            # L: henry; S: closed_in (+ optional ohms)
 
-Every error is a :class:`drivers.errors.FileFormatError` naming the file, the key
+Every error is a :class:`rigbase.errors.FileFormatError` naming the file, the key
 (``element.<name>.<field>`` or ``meter.<field>``) and the problem, on one line.
 """
 
@@ -34,7 +34,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from drivers.errors import FileFormatError
+from rigbase.errors import FileFormatError
 
 __all__ = ["Element", "MeterNetlist", "load_netlist", "meter_models_dir", "parse_netlist"]
 

@@ -32,7 +32,7 @@ from collections import deque
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
-from drivers.errors import ScpiError
+from rigbase.errors import ScpiError
 
 __all__ = [
     "Block",

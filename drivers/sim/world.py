@@ -45,10 +45,10 @@ import numpy as np
 from scipy.optimize import brentq
 
 from drivers.clock import Clock
-from drivers.errors import LimitError
 from drivers.sim.circuit import Circuit, Probe, StateSpace
 from drivers.sim.interfaces import WorldConfig
 from drivers.sim.netlist import Element, MeterNetlist, load_netlist
+from rigbase.errors import LimitError
 
 __all__ = ["BenchWorld"]
 

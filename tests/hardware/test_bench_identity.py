@@ -10,8 +10,8 @@ import os
 
 import pytest
 
-from rig.benchopen import open_bench
-from rig.files import load_bench
+from rig.planning.benchfile import load_bench
+from rig.runner.opener import open_bench
 
 pytestmark = pytest.mark.hardware
 

@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 
 from rig.cli import main
-from rig.store import read_journal, read_plan
+from rig.store.runfolder import read_journal, read_plan
 
 from .test_runner import BENCH, write_sequence
 

@@ -17,7 +17,6 @@ import numpy as np
 import pytest
 
 from drivers.clock import VirtualClock
-from drivers.errors import BlockFormatError, LimitError, ProfileError, SafetyError, ScpiError
 from drivers.metermode import ManualMeterMode, ScpiMeterMode
 from drivers.profile import Profile
 from drivers.scope import Scope, Trace
@@ -26,6 +25,7 @@ from drivers.sim.bench import SimBench, start_sim_bench
 from drivers.sim.interfaces import BenchWiring, Faults, LoadSpec, WorldConfig
 from drivers.supply import Supply
 from drivers.switch import SwitchBoard
+from rigbase.errors import BlockFormatError, LimitError, ProfileError, SafetyError, ScpiError
 from tests.sim_support import LEAK_OHMS, MODE_FARADS, SimpleRcWorld
 
 PROFILE = Profile.load("scpi1999")

@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from rig.report import write_report
+from rig.report.page import write_report
 from tests.report_fixtures import build_run
 
 HEADINGS = [

@@ -15,13 +15,13 @@ import numpy as np
 import pytest
 
 from drivers.sim.interfaces import Faults
-from rig.benchopen import open_bench
-from rig.files import load_bench
-from rig.plan import build_plan
-from rig.runner import ExitPath, Observer, Phase, Runner
-from rig.sequence import load_sequence
-from rig.store import RunWriter, read_journal, verify_run
-from rig.waveform import load_waveform
+from rig.planning.benchfile import load_bench
+from rig.planning.plan import build_plan
+from rig.planning.sequence import load_sequence
+from rig.runner.cycle import ExitPath, Observer, Phase, Runner
+from rig.runner.opener import open_bench
+from rig.store.runfolder import RunWriter, read_journal, verify_run
+from rig.store.waveform import load_waveform
 
 ROOT = Path(__file__).resolve().parents[2]
 BENCH = ROOT / "sequences" / "benches" / "sim-demo.toml"
@@ -277,7 +277,7 @@ def test_resume_after_interrupt_completes_without_duplicates(tmp_path):
 
 def test_peak_current_matches_circuit_engine(tmp_path):
     """Stored peaks agree with the engine's own answer for the same charge state."""
-    from rig.metrics import quick_metrics
+    from rig.analysis.metrics import quick_metrics
 
     seq_path = write_sequence(tmp_path, modes=("AC V", "DC V"), volts=(1000,), reps=3, points=5000)
     cfg = load_bench(BENCH)

@@ -15,8 +15,8 @@ from pathlib import Path
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from drivers.errors import ConnectionLost, InstrumentTimeout
-from rig.runner import Phase
+from rig.runner.cycle import Phase
+from rigbase.errors import ConnectionLost, InstrumentTimeout
 
 from .test_runner import Recorder, assert_never_both, assert_safe, run_once, write_sequence
 

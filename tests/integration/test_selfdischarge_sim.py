@@ -16,8 +16,8 @@ import pytest
 
 from drivers.sim.circuit import Circuit
 from drivers.sim.netlist import load_netlist
-from rig.analysis import analyze_run
-from rig.files import load_bench, resolve_meter_model
+from rig.analysis.analyze import analyze_run
+from rig.planning.benchfile import load_bench, resolve_meter_model
 
 from .test_runner import BENCH, run_once
 

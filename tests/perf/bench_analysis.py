@@ -1,7 +1,7 @@
 """Benchmark of the vectorised per-event metrics (run by hand: python tests/perf/bench_analysis.py).
 
 Prints, for 10,000 events x 20,000 int8 samples:
-- the time of the full metrics (rig.metrics.event_metrics) and of one numpy pass over the same
+- the time of the full metrics (rig.analysis.metrics.event_metrics) and of one numpy pass over the same
   array (convert to float32 and take the absolute maximum per row, chunk by chunk like the
   metrics), and their ratio (target: 5 or less);
 - the speed-up over a naive per-event loop with scipy (find_peaks and curve_fit) on 200 events
@@ -21,7 +21,7 @@ import numpy as np
 from scipy.optimize import curve_fit
 from scipy.signal import find_peaks
 
-from rig.metrics import event_metrics
+from rig.analysis.metrics import event_metrics
 
 DT = 1e-9  # s per sample (1 GS/s)
 PRE = 0.1  # pre-trigger share of the record

@@ -2,7 +2,7 @@
 
 Builds a synthetic analysed run (tests/report_fixtures.py: 2 meters x 3 modes x 2 voltages x
 25 events, plus a delay sweep; 40,000 samples per event) in a temporary folder, then times
-rig.report.write_report on it, a second time with a baseline run. Prints the figures; asserts
+rig.report.page.write_report on it, a second time with a baseline run. Prints the figures; asserts
 nothing. Run by hand: ``python tests/perf/bench_report.py``.
 """
 
@@ -17,8 +17,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from rig.compare import compare_runs, write_comparison  # noqa: E402
-from rig.report import write_report  # noqa: E402
+from rig.analysis.compare import compare_runs, write_comparison  # noqa: E402
+from rig.report.page import write_report  # noqa: E402
 from tests.report_fixtures import build_run  # noqa: E402
 
 

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy.optimize import curve_fit
 
-from rig.metrics import current_after_onset, event_metrics
+from rig.analysis.metrics import current_after_onset, event_metrics
 
 # --------------------------------------------------------------------------- JS-001 HBM
 

@@ -9,8 +9,8 @@ import pandas as pd
 import pytest
 from scipy import stats as sps
 
-from rig.compare import compare_samples, tost_log
-from rig.stats import (
+from rig.analysis.compare import compare_samples, tost_log
+from rig.analysis.stats import (
     bootstrap_ci,
     group_stats,
     tolerance_factor,

@@ -1,8 +1,8 @@
 """Analysis on synthetic data and synthetic run folders: metrics, run analysis, groups,
 self-discharge, comparison and saved-file measurement.
 
-The run folders are built the way rig/store.py and DEVELOPERS.md describe them (plan.json,
-journal.jsonl, manifest.json, waveforms/*.npz written by rig.waveform.save_waveform). The
+The run folders are built the way rig/store/runfolder.py and DEVELOPERS.md describe them (plan.json,
+journal.jsonl, manifest.json, waveforms/*.npz written by rig.store.waveform.save_waveform). The
 meters, serials and values are invented.
 """
 
@@ -16,17 +16,17 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from drivers.errors import FileFormatError, RunFolderError
-from rig.analysis import METRIC_COLUMNS, analyze_run, compute_metrics
-from rig.compare import COMPARE_COLUMNS, all_equivalent, compare_runs, write_comparison
-from rig.measure import measure_file
-from rig.metrics import _baseline_int8 as baseline_int8
-from rig.metrics import _count_pulses_blocks as count_pulses_blocks
-from rig.metrics import _count_pulses_sparse as count_pulses_sparse
-from rig.metrics import event_metrics
-from rig.selfdischarge import SELFDISCHARGE_COLUMNS, fit_self_discharge, self_discharge
-from rig.stats import GROUPS_COLUMNS
-from rig.waveform import Waveform, save_waveform
+from rig.analysis.analyze import METRIC_COLUMNS, analyze_run, compute_metrics
+from rig.analysis.compare import COMPARE_COLUMNS, all_equivalent, compare_runs, write_comparison
+from rig.analysis.measure import measure_file
+from rig.analysis.metrics import _baseline_int8 as baseline_int8
+from rig.analysis.metrics import _count_pulses_blocks as count_pulses_blocks
+from rig.analysis.metrics import _count_pulses_sparse as count_pulses_sparse
+from rig.analysis.metrics import event_metrics
+from rig.analysis.selfdischarge import SELFDISCHARGE_COLUMNS, fit_self_discharge, self_discharge
+from rig.analysis.stats import GROUPS_COLUMNS
+from rig.store.waveform import Waveform, save_waveform
+from rigbase.errors import FileFormatError, RunFolderError
 
 DT = 0.5e-9
 N = 3000
@@ -525,10 +525,10 @@ def _split_captures(run: Path) -> None:
 
 
 def test_capture_is_a_group_key_and_limits_can_name_captures(tmp_path):
-    from rig.compare import COMPARE_KEYS
-    from rig.report import _GROUP_KEYS as REPORT_KEYS
-    from rig.selfdischarge import SWEEP_KEYS
-    from rig.stats import GROUP_KEYS
+    from rig.analysis.compare import COMPARE_KEYS
+    from rig.analysis.selfdischarge import SWEEP_KEYS
+    from rig.analysis.stats import GROUP_KEYS
+    from rig.report.page import _GROUP_KEYS as REPORT_KEYS
 
     # one definition: "capture" right after "mode" everywhere
     assert GROUP_KEYS == ("meter", "serial", "mode", "capture", "volts", "load", "delay_s")
@@ -578,7 +578,7 @@ def test_run_without_captures_analyses_as_main(tmp_path):
 def test_integer_envelope_equals_the_float_one():
     """The crossing search's block minima taken on raw codes equal those of the float trace
     (both polarities, int8 and int16): a speed-up must not change a number."""
-    from rig.metrics import _block_min, _envelope
+    from rig.analysis.metrics import _block_min, _envelope
 
     rng = np.random.default_rng(3)
     for dtype in (np.int8, np.int16):

@@ -5,9 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from drivers.errors import RunFolderError
-from rig.analysis import METRIC_COLUMNS, analyze_run
+from rig.analysis.analyze import METRIC_COLUMNS, analyze_run
 from rig.api import group_waveforms, load_event_waveform, load_run
+from rigbase.errors import RunFolderError
 from tests.unit.test_analysis import DT, GAIN, PRE, N, make_run
 
 

@@ -6,8 +6,8 @@ from types import SimpleNamespace
 
 import pytest
 
-from drivers.errors import LimitError, SafetyError
 from rig.cli import _confirm_hv, main
+from rigbase.errors import LimitError, SafetyError
 
 
 def bench(simulated: bool, hazardous: float = 60.0):

@@ -8,8 +8,8 @@ from types import SimpleNamespace
 import numpy as np
 from rich.console import Console
 
-from rig.display import LiveDisplay
-from rig.waveform import Waveform
+from rig.runner.display import LiveDisplay
+from rig.store.waveform import Waveform
 
 
 def rc_waveform(dt: float, n: int, amps: float, tau: float) -> Waveform:

@@ -17,9 +17,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from drivers.errors import FileFormatError
 from drivers.sim.interfaces import BenchWiring, LoadSpec, WorldConfig
-from rig.files import (
+from rig.planning.benchfile import (
     PROFILES_DIR,
     SIM_METERS_DIR,
     Limits,
@@ -28,7 +27,8 @@ from rig.files import (
     parse_si,
     resolve_meter_model,
 )
-from rig.sequence import load_sequence
+from rig.planning.sequence import load_sequence
+from rigbase.errors import FileFormatError
 
 ROOT = Path(__file__).resolve().parents[2]
 SEQUENCES = ROOT / "sequences"
@@ -567,7 +567,7 @@ def test_netlist_modes_and_meter_model_resolution(tmp_path):
 
 
 def test_line_index_handles_arrays_of_tables_dotted_and_quoted_keys():
-    from rig.tomlcheck import _index_lines
+    from rigbase.tomlcheck import _index_lines
 
     text = "\n".join(
         [

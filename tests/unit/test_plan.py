@@ -10,8 +10,8 @@ from pathlib import Path
 
 import pytest
 
-from rig.files import Bench, load_bench
-from rig.plan import (
+from rig.planning.benchfile import Bench, load_bench
+from rig.planning.plan import (
     EVENT_OVERHEAD_S,
     METER_CHANGE_S,
     MODE_CHANGE_SCPI_S,
@@ -22,7 +22,7 @@ from rig.plan import (
     meter_capacitance_f,
     safety_review,
 )
-from rig.sequence import load_sequence
+from rig.planning.sequence import load_sequence
 
 ROOT = Path(__file__).resolve().parents[2]
 SIM_BENCH = ROOT / "sequences" / "benches" / "sim-demo.toml"

@@ -8,8 +8,8 @@ from pathlib import Path
 
 import pytest
 
-from drivers.errors import FileFormatError, ProfileError
 from drivers.profile import OPERATIONS, PREAMBLE_FIELDS, PROFILE_DIR, Profile
+from rigbase.errors import FileFormatError, ProfileError
 
 SHIPPED = PROFILE_DIR / "scpi1999.toml"
 

@@ -13,10 +13,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from drivers.errors import RunFolderError
-from rig import figures as F
-from rig.report import write_report
-from rig.units import eng, eng_scale
+from rig.report import figures as F
+from rig.report.page import write_report
+from rigbase.errors import RunFolderError
+from rigbase.units import eng, eng_scale
 from tests.report_fixtures import DEFAULT_METERS, FakeMeter, build_run
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (W3C/ISO 15948), section 5.2
@@ -294,7 +294,7 @@ def two_runs(tmp_path_factory):
 
 
 def test_baseline_overlays_and_equivalence_from_the_compare_file(two_runs):
-    from rig.compare import compare_runs, write_comparison
+    from rig.analysis.compare import compare_runs, write_comparison
 
     run, base = two_runs
     c = compare_runs(run, base)
@@ -445,9 +445,9 @@ def test_dollar_in_names_does_not_break_matplotlib(tmp_path):
 
 
 def test_report_on_the_analysis_modules_output(tmp_path):
-    """The report reads what rig.analysis writes (peak summarised as ``peak_a`` by rig.stats,
+    """The report reads what rig.analysis.analyze writes (peak summarised as ``peak_a`` by rig.analysis.stats,
     verdicts including "insufficient"), not only the fixture's own tables."""
-    from rig.analysis import analyze_run
+    from rig.analysis.analyze import analyze_run
 
     run = build_run(tmp_path, np.random.default_rng(5), reps=6)
     analyze_run(run)
@@ -471,7 +471,7 @@ CAPTURES = (("a-long", 50e-9, 8000, -20e-6), ("z-fast", 1e-9, 4000, -1e-6))
 
 @pytest.fixture(scope="module")
 def captured_run(tmp_path_factory):
-    from rig.analysis import analyze_run
+    from rig.analysis.analyze import analyze_run
 
     root = tmp_path_factory.mktemp("captures")
     run = build_run(
@@ -482,7 +482,7 @@ def captured_run(tmp_path_factory):
         delays=(),
         captures=CAPTURES,
     )
-    analyze_run(run)  # the report reads rig.analysis output: dt_s, record_s, capture groups
+    analyze_run(run)  # the report reads rig.analysis.analyze output: dt_s, record_s, capture groups
     page = _parse(write_report(run).read_text(encoding="utf-8"))
     return run, page
 
@@ -491,7 +491,7 @@ def test_at_a_glance_peak_from_the_finest_capture_charge_from_the_longest(captur
     run, page = captured_run
     m = pd.read_parquet(run / "metrics.parquet")
     assert set(m["capture"]) == {"a-long", "z-fast"}
-    # dt_s and record_s come from the stored waveforms (rig.analysis), not from the names
+    # dt_s and record_s come from the stored waveforms (rig.analysis.analyze), not from the names
     spans = m.groupby("capture")[["dt_s", "record_s"]].median()
     assert spans.loc["z-fast", "dt_s"] == pytest.approx(1e-9)
     assert spans.loc["a-long", "record_s"] == pytest.approx(400e-6)

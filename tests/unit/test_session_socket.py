@@ -19,15 +19,15 @@ import pytest
 from pyvisa import util as visa_util
 from pyvisa.errors import VisaIOError
 
-from drivers.errors import (
+from drivers.profile import Profile
+from drivers.session import ScpiSession, parse_block_header, parse_error_reply
+from rigbase.errors import (
     BlockFormatError,
     ConnectionLost,
     InstrumentError,
     InstrumentTimeout,
     ScpiError,
 )
-from drivers.profile import Profile
-from drivers.session import ScpiSession, parse_block_header, parse_error_reply
 
 PROFILE = Profile.load("scpi1999")
 NEXT_ERROR = PROFILE.command("common", "next_error")

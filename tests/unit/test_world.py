@@ -8,11 +8,11 @@ import numpy as np
 import pytest
 
 from drivers.clock import VirtualClock
-from drivers.errors import FileFormatError
 from drivers.sim.circuit import Circuit, Step
 from drivers.sim.interfaces import BenchWiring, BounceSpec, Faults, LoadSpec, SenseSpec, WorldConfig
 from drivers.sim.netlist import load_netlist, meter_models_dir, parse_netlist
 from drivers.sim.world import BenchWorld
+from rigbase.errors import FileFormatError
 
 DEMO_A = str(meter_models_dir() / "demo-a.toml")
 DEMO_B = str(meter_models_dir() / "demo-b.toml")

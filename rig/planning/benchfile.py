@@ -2,8 +2,8 @@
 
 A *bench file* says what hardware is where (instruments, relay channels, parts, loads,
 senses, limits, or a simulated bench); what to test on it is a sequence file
-(:mod:`rig.sequence`). The file is checked completely before any instrument is touched. Every
-problem becomes one :class:`drivers.errors.FileFormatError` naming the file, the dotted key
+(:mod:`rig.planning.sequence`). The file is checked completely before any instrument is touched. Every
+problem becomes one :class:`rigbase.errors.FileFormatError` naming the file, the dotted key
 (``loads[1].ohms``), the line where that key stands, and the problem; unknown keys are refused
 with the nearest valid name.
 
@@ -29,7 +29,7 @@ from drivers.sim.interfaces import (
     SenseSpec,
     WorldConfig,
 )
-from rig.tomlcheck import (
+from rigbase.tomlcheck import (
     _REQUIRED,
     _Context,
     _jsonable,

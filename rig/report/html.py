@@ -1,7 +1,7 @@
 """HTML pieces of the report: escaping, plain text of manifest values, tables, figures, CSS.
 
 Every string that comes from a file goes through :func:`esc`; table cells are HTML already
-(callers escape). Shared by the section builders of rig.report_* and the page in rig.report.
+(callers escape). Shared by the section builders of rig.report_* and the page in rig.report.page.
 """
 
 from __future__ import annotations
@@ -12,8 +12,8 @@ import re
 from collections.abc import Iterable, Sequence
 from typing import Any
 
-from rig import figures as F
-from rig.units import eng
+from rig.report import figures as F
+from rigbase.units import eng
 
 
 def esc(value: object) -> str:

@@ -24,8 +24,8 @@ from typing import Any
 
 import numpy as np
 
-from rig.files import Bench
-from rig.sequence import MeterSpec, Sequence
+from rig.planning.benchfile import Bench
+from rig.planning.sequence import MeterSpec, Sequence
 
 __all__ = [
     "EVENT_OVERHEAD_S",
@@ -268,7 +268,7 @@ def safety_review(plan: Plan, bench: Bench, sequence: Sequence) -> list[Finding]
                 f"supply's {sim.world.supply_max_volts:g} V",
             )
         )
-    # 2. hazardous-live threshold (IEC 61010-1, see rig.files.Limits)
+    # 2. hazardous-live threshold (IEC 61010-1, see rig.planning.benchfile.Limits)
     if vmax > lim.hazardous_live_volts:
         if simulated:
             out.append(

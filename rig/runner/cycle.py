@@ -33,16 +33,16 @@ from typing import Any
 
 import numpy as np
 
-from drivers.errors import (
+from rig.runner.interlocks import Interlocks, SafeReport
+from rig.store.runfolder import RunWriter
+from rig.store.waveform import Waveform
+from rigbase.errors import (
     ConnectionLost,
     InstrumentError,
     InstrumentTimeout,
     LimitError,
     SafetyError,
 )
-from rig.safety import Interlocks, SafeReport
-from rig.store import RunWriter
-from rig.waveform import Waveform
 
 __all__ = ["ExitPath", "Phase", "RunOutcome", "Runner", "Terminated"]
 

@@ -36,8 +36,11 @@ import numpy as np
 import pandas as pd
 from scipy import stats as sps
 
-from drivers.errors import FileFormatError
-from rig.schema import DEFAULT_CAPTURE, GROUP_KEYS  # re-exported: other modules import them here
+from rig.store.schema import (  # re-exported: other modules import them here
+    DEFAULT_CAPTURE,
+    GROUP_KEYS,
+)
+from rigbase.errors import FileFormatError
 
 __all__ = [
     "DEFAULT_CAPTURE",
@@ -274,7 +277,7 @@ def group_stats(
 ) -> pd.DataFrame:
     """The long-format group table (columns GROUPS_COLUMNS) of an analysed run.
 
-    metrics: journal plus metric columns (rig.analysis.compute_metrics).
+    metrics: journal plus metric columns (rig.analysis.analyze.compute_metrics).
     plan: planned events (dicts with the group keys); None counts the journal's rows.
     limits: as returned by limits_from_manifest. A metric named only by a limit is added.
     rng: generator for the bootstrap (pass a seeded one for reproducible intervals).

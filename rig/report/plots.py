@@ -1,10 +1,10 @@
-"""The report's figure sections, each drawn by rig.figures and embedded as PNG.
+"""The report's figure sections, each drawn by rig.report.figures and embedded as PNG.
 
 Waveforms, |peak| per event, trends against voltage, charge against the IEC 61010-1 figure,
 contact bounce, self-discharge and the baseline overlays. Each builder writes its figure as
 PNG and SVG under ``figures/`` and returns the HTML with the PNG embedded. Peaks and pulses
 come from the capture with the finest sample interval, charges from the one with the longest
-record (rig.report picks the frames).
+record (rig.report.page picks the frames).
 """
 
 from __future__ import annotations
@@ -13,19 +13,19 @@ from pathlib import Path
 
 import pandas as pd
 
-from rig import figures as F
-from rig.report_data import (
+from rig.analysis.stats import capture_roles, with_capture
+from rig.report import figures as F
+from rig.report.data import (
     _at_zero_delay,
     _capture_text,
     _group_waveforms,
     _load_metrics,
     _peak_metric,
 )
-from rig.report_html import _img, _slug, _table, esc
-from rig.report_tables import _compare_table
-from rig.stats import capture_roles, with_capture
-from rig.store import read_manifest
-from rig.units import eng
+from rig.report.html import _img, _slug, _table, esc
+from rig.report.tables import _compare_table
+from rig.store.runfolder import read_manifest
+from rigbase.units import eng
 
 IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure up to 15 kV (REFERENCES.md 3)
 

@@ -15,10 +15,10 @@ voltage with tolerance bounds and limits; charge against the IEC 61010-1 45 µC 
 bounce; self-discharge; flagged events with thumbnails; the group table; and, with a baseline,
 overlays of both runs and the equivalence verdicts.
 
-Module layout: rig.report_data loads and shapes the run folder's tables; rig.report_html holds
-escaping, tables and the CSS; rig.report_glance builds "At a glance" and the verdicts;
-rig.report_tables the tabular sections; rig.report_plots the figure sections (drawn by
-rig.figures). This module orders the sections and writes the page.
+Module layout: rig.report.data loads and shapes the run folder's tables; rig.report.html holds
+escaping, tables and the CSS; rig.report.glance builds "At a glance" and the verdicts;
+rig.report.tables the tabular sections; rig.report.plots the figure sections (drawn by
+rig.report.figures). This module orders the sections and writes the page.
 """
 
 from __future__ import annotations
@@ -32,11 +32,12 @@ import numpy as np
 import pandas as pd
 
 from rig import __version__
-from rig import figures as F
+from rig.analysis.stats import capture_roles
+from rig.report import figures as F
 
 # FLAG_TEXT lives with the loading, which derives the ``flagged`` column from it; both it and
-# _GROUP_KEYS (the group keys of rig.stats) stay importable from here.
-from rig.report_data import (
+# _GROUP_KEYS (the group keys of rig.analysis.stats) stay importable from here.
+from rig.report.data import (
     _GROUP_KEYS,  # noqa: F401
     FLAG_TEXT,
     _capture_text,
@@ -44,9 +45,9 @@ from rig.report_data import (
     _load_metrics,
     _several_captures,
 )
-from rig.report_glance import _limits_table, _section_glance, _section_verdicts
-from rig.report_html import _CSS, esc
-from rig.report_plots import (
+from rig.report.glance import _limits_table, _section_glance, _section_verdicts
+from rig.report.html import _CSS, esc
+from rig.report.plots import (
     _IEC_NOTE,
     _section_baseline,
     _section_bounce,
@@ -56,9 +57,8 @@ from rig.report_plots import (
     _section_trends,
     _section_waveforms,
 )
-from rig.report_tables import _section_flagged, _section_groups, _section_tested
-from rig.stats import capture_roles
-from rig.store import read_manifest
+from rig.report.tables import _section_flagged, _section_groups, _section_tested
+from rig.store.runfolder import read_manifest
 
 __all__ = ["FLAG_TEXT", "SECTIONS", "write_report"]
 

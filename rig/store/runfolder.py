@@ -5,7 +5,7 @@ Layout of ``results/<run-id>/`` (format 1)::
     manifest.json    what was run, on what, by which software; status and times
     plan.json        the planned events in order (the runner's to-do list, for resume)
     journal.jsonl    one JSON object per finished event, appended, flushed and fsynced
-    waveforms/       one ``<event>.npz`` per captured event (see rig.waveform)
+    waveforms/       one ``<event>.npz`` per captured event (see rig.store.waveform)
     events.parquet   the journal as a table, written when the run ends
 
 A killed run loses at most the event in flight: a final journal line without its newline is
@@ -24,8 +24,8 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from drivers.errors import RunFolderError
-from rig.waveform import Waveform, save_waveform, sha256_file
+from rig.store.waveform import Waveform, save_waveform, sha256_file
+from rigbase.errors import RunFolderError
 
 __all__ = [
     "RunWriter",

@@ -18,9 +18,9 @@ from rich.live import Live
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 from rich.table import Table
 
-from rig.runner import Observer, Phase
-from rig.units import eng
-from rig.waveform import Waveform
+from rig.runner.cycle import Observer, Phase
+from rig.store.waveform import Waveform
+from rigbase.units import eng
 
 __all__ = ["LiveDisplay"]
 
@@ -34,8 +34,8 @@ class _GroupRow:
 
 
 def _event_figures(wf: Waveform) -> dict[str, Any]:
-    """|Peak current|, charge and the analysis flag of one event (via rig.metrics)."""
-    from rig.metrics import quick_metrics
+    """|Peak current|, charge and the analysis flag of one event (via rig.analysis.metrics)."""
+    from rig.analysis.metrics import quick_metrics
 
     return quick_metrics(wf)
 

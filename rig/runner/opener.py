@@ -86,7 +86,7 @@ def open_bench(
     operator: Prompt | None = None,
     clock: Clock | None = None,
 ) -> OpenBench:
-    """Open the bench of a loaded bench file (:func:`rig.files.load_bench`).
+    """Open the bench of a loaded bench file (:func:`rig.planning.benchfile.load_bench`).
 
     ``first_sim_model`` is the netlist of the first meter (simulated bench only);
     ``operator`` shows a message to the operator and returns when they confirm (real

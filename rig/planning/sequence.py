@@ -1,12 +1,12 @@
 """Sequence files (TOML): parse, validate against a bench, resolve. No instrument I/O.
 
-A *sequence file* says what to test on a bench (:mod:`rig.files`): meters, modes, voltages,
+A *sequence file* says what to test on a bench (:mod:`rig.planning.benchfile`): meters, modes, voltages,
 loads, repetitions, timing, scope set-up, limits for verdicts. It is checked completely, and
 against the bench it will run on, before any instrument is touched. Every problem becomes one
-:class:`drivers.errors.FileFormatError` naming the file, the dotted key (``charge.volts[2]``),
+:class:`rigbase.errors.FileFormatError` naming the file, the dotted key (``charge.volts[2]``),
 the line where that key stands, and the problem; unknown keys are refused with the nearest
 valid name. Numbers follow the same rules as in bench files (SI units in the key name, SI
-prefixes accepted in strings; see :func:`rig.tomlcheck.parse_si`).
+prefixes accepted in strings; see :func:`rigbase.tomlcheck.parse_si`).
 """
 
 from __future__ import annotations
@@ -17,10 +17,10 @@ from dataclasses import dataclass, fields
 from pathlib import Path
 from typing import Any
 
-from drivers.errors import FileFormatError
-from rig.files import SIM_METERS_DIR, Bench, _optional_bandwidth, netlist_modes
-from rig.schema import DEFAULT_CAPTURE, LIMIT_METRICS
-from rig.tomlcheck import (
+from rig.planning.benchfile import SIM_METERS_DIR, Bench, _optional_bandwidth, netlist_modes
+from rig.store.schema import DEFAULT_CAPTURE, LIMIT_METRICS
+from rigbase.errors import FileFormatError
+from rigbase.tomlcheck import (
     _jsonable,
     _nearest,
     _read_toml,
@@ -39,7 +39,7 @@ __all__ = [
     "load_sequence",
 ]
 
-# Metric names a limit may name (rig.schema, shared with the analysis).
+# Metric names a limit may name (rig.store.schema, shared with the analysis).
 METRICS = LIMIT_METRICS
 STATISTICS = ("utl", "max", "p99", "p95", "median", "mean")
 

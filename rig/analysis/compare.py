@@ -1,7 +1,7 @@
 """A run against a baseline run: per group and metric, is it the same, different, or unclear?
 
 Groups are matched on (meter, mode, capture, volts, load, delay_s), the group keys of
-rig.stats without the serial: the serial is left out, since a
+rig.analysis.stats without the serial: the serial is left out, since a
 repaired meter is compared with the baseline run of its model, often another unit (the
 serials of both sides are listed). Per group and metric (magnitudes; default peak_a, charge_c,
 energy_j):
@@ -26,9 +26,9 @@ import numpy as np
 import pandas as pd
 from scipy import stats as sps
 
-from drivers.errors import RunFolderError
-from rig.stats import GROUP_KEYS, bootstrap_ci, capture_roles, with_capture
-from rig.store import read_manifest
+from rig.analysis.stats import GROUP_KEYS, bootstrap_ci, capture_roles, with_capture
+from rig.store.runfolder import read_manifest
+from rigbase.errors import RunFolderError
 
 __all__ = [
     "COMPARE_COLUMNS",
@@ -148,7 +148,7 @@ def _load_metrics(run_dir: Path) -> pd.DataFrame:
     path = run_dir / "metrics.parquet"
     if path.exists():
         return with_capture(pd.read_parquet(path))
-    from rig.analysis import compute_metrics
+    from rig.analysis.analyze import compute_metrics
 
     log.info("%s is not analysed; computing its metrics in memory", run_dir)
     return compute_metrics(run_dir)
@@ -173,7 +173,7 @@ def compare_runs(
     """Compare a run with a baseline run, group by group (columns COMPARE_COLUMNS).
 
     With several scope captures, each metric is compared on the capture meant for it
-    (:data:`METRIC_CAPTURE_ROLE`, roles from :func:`rig.stats.capture_roles`): |peak| and
+    (:data:`METRIC_CAPTURE_ROLE`, roles from :func:`rig.analysis.stats.capture_roles`): |peak| and
     energy on the capture with the finest sample interval, charge on the one with the
     longest record; the other pairings measure the wrong thing (a 5 MHz record's peak of a
     nanosecond pulse) and are left out.

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats as sps
 
-from rig.stats import GROUP_KEYS, with_capture
+from rig.analysis.stats import GROUP_KEYS, with_capture
 
 __all__ = [
     "DEFAULT_SAFE_VOLTS",
@@ -39,7 +39,7 @@ log = logging.getLogger(__name__)
 #: Default safe residual, V d.c.: the hazardous-live d.c. level of IEC 61010-1 (earlier
 #: editions; edition 3 uses 70 V), REFERENCES.md section 3 [T].
 DEFAULT_SAFE_VOLTS = 60.0
-#: The group keys of rig.stats without the delay (the sweep's variable).
+#: The group keys of rig.analysis.stats without the delay (the sweep's variable).
 SWEEP_KEYS: tuple[str, ...] = tuple(k for k in GROUP_KEYS if k != "delay_s")
 SELFDISCHARGE_COLUMNS: tuple[str, ...] = (
     *SWEEP_KEYS,

@@ -1,8 +1,8 @@
 """Checked reading of TOML input files: SI numbers, key paths with line numbers, typed tables.
 
-The generic half of the bench and sequence loaders (``rig/files.py``): it knows nothing of
+The generic half of the bench and sequence loaders (``rig/planning/benchfile.py``): it knows nothing of
 benches or sequences, only how to read a table so that every problem becomes one
-:class:`drivers.errors.FileFormatError` naming the file, the dotted key, its line and the
+:class:`rigbase.errors.FileFormatError` naming the file, the dotted key, its line and the
 problem, with the nearest valid name for an unknown key.
 """
 
@@ -18,7 +18,7 @@ from dataclasses import fields, is_dataclass
 from pathlib import Path
 from typing import Any
 
-from drivers.errors import FileFormatError
+from rigbase.errors import FileFormatError
 
 __all__ = ["parse_si"]
 

@@ -48,7 +48,7 @@ turned positive by the event's polarity, ``Ip`` its peak):
   JS-001), ``ind_iec61010_charge_ratio`` = abs(charge) / 45 uC (IEC 61010-1 stored charge).
 
 :func:`quick_metrics` applies this to one captured waveform (live display); the run-folder
-side (journal, batches of waveform files, output files) is :mod:`rig.analysis`.
+side (journal, batches of waveform files, output files) is :mod:`rig.analysis.analyze`.
 """
 
 from __future__ import annotations
@@ -57,8 +57,8 @@ from typing import Any
 
 import numpy as np
 
-from rig.schema import METRIC_COLUMNS
-from rig.waveform import Waveform
+from rig.store.schema import METRIC_COLUMNS
+from rig.store.waveform import Waveform
 
 __all__ = [
     "DECAY_LEVEL",

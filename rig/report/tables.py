@@ -3,7 +3,7 @@
 "What was tested" reads the manifest (run, sequence, bench, instruments' ``*IDN?`` answers)
 and the events; flagged events carry a thumbnail of their current as inline SVG; the group
 table shows every row of groups.csv; the equivalence table shows compare-<baseline-id>.csv,
-or computes it with rig.compare when the run has none (without writing it).
+or computes it with rig.analysis.compare when the run has none (without writing it).
 """
 
 from __future__ import annotations
@@ -15,12 +15,12 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from rig import figures as F
-from rig.compare import compare_runs
-from rig.report_data import FLAG_TEXT, _capture_text, _several_captures
-from rig.report_html import _dict, _kv, _plain, _short, _table, _verdict_cell, esc, group_cells
-from rig.units import eng, metric_label, metric_unit
-from rig.waveform import load_waveform
+from rig.analysis.compare import compare_runs
+from rig.report import figures as F
+from rig.report.data import FLAG_TEXT, _capture_text, _several_captures
+from rig.report.html import _dict, _kv, _plain, _short, _table, _verdict_cell, esc, group_cells
+from rig.store.waveform import load_waveform
+from rigbase.units import eng, metric_label, metric_unit
 
 
 def _meter_rows(seq: dict[str, Any], m: pd.DataFrame) -> list[list[str]]:
@@ -274,7 +274,7 @@ def _section_groups(g: pd.DataFrame) -> str:
     )
 
 
-# Known columns of compare-<id>.csv (rig.compare.COMPARE_COLUMNS) in the order shown, with
+# Known columns of compare-<id>.csv (rig.analysis.compare.COMPARE_COLUMNS) in the order shown, with
 # their headings; any other column follows under its own name.
 _COMPARE_SHOWN = {
     "meter": "Meter",
@@ -329,7 +329,7 @@ def _compare_cell(col: str, r: pd.Series, unit: str) -> str:
 
 def _compare_table(run: Path, base: Path, base_man: dict[str, Any]) -> str:
     """The equivalence verdicts: compare-<baseline-id>.csv if the run has it, else computed now
-    with rig.compare.compare_runs (not written: the report only writes its own files)."""
+    with rig.analysis.compare.compare_runs (not written: the report only writes its own files)."""
     ids = [str(base_man.get("run_id") or base_man.get("id") or ""), base.name]
     path = next(
         (run / f"compare-{i}.csv" for i in ids if i and (run / f"compare-{i}.csv").exists()), None
@@ -344,7 +344,9 @@ def _compare_table(run: Path, base: Path, base_man: dict[str, Any]) -> str:
         for _, r in c.iterrows()
     ]
     source = (
-        path.name if path is not None else "rig.compare.compare_runs (computed for this report)"
+        path.name
+        if path is not None
+        else "rig.analysis.compare.compare_runs (computed for this report)"
     )
     counts = (
         ", ".join(f"{n} {esc(k)}" for k, n in c["verdict"].fillna("–").value_counts().items())

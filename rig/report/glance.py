@@ -15,15 +15,15 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from rig.report_data import (
+from rig.analysis.stats import capture_roles
+from rig.report.data import (
     _at_zero_delay,
     _capture_text,
     _peak_metric,
     _several_captures,
 )
-from rig.report_html import _dict, _plain, _table, _verdict_cell, esc, group_cells
-from rig.stats import capture_roles
-from rig.units import eng, metric_label, metric_unit
+from rig.report.html import _dict, _plain, _table, _verdict_cell, esc, group_cells
+from rigbase.units import eng, metric_label, metric_unit
 
 
 def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:

@@ -1,5 +1,5 @@
 """Analysis of a run folder: the journal, the per-event metrics of its waveform files
-(computed by :mod:`rig.metrics`) and the files written back into the folder.
+(computed by :mod:`rig.analysis.metrics`) and the files written back into the folder.
 
 :func:`analyze_run` applies this to a run folder and writes ``metrics.parquet``,
 ``groups.csv`` and, for delay sweeps, ``selfdischarge.csv`` (see DEVELOPERS.md).
@@ -16,12 +16,12 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from drivers.errors import RunFolderError
-from rig.metrics import event_metrics
-from rig.schema import METRIC_COLUMNS
-from rig.stats import GROUP_KEYS, with_capture
-from rig.store import read_journal, read_manifest, read_plan
-from rig.waveform import load_waveform
+from rig.analysis.metrics import event_metrics
+from rig.analysis.stats import GROUP_KEYS, with_capture
+from rig.store.runfolder import read_journal, read_manifest, read_plan
+from rig.store.schema import METRIC_COLUMNS
+from rig.store.waveform import load_waveform
+from rigbase.errors import RunFolderError
 
 __all__ = [
     "METRIC_COLUMNS",
@@ -34,7 +34,7 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-_GROUP_KEYS = GROUP_KEYS  # defined once in rig.stats
+_GROUP_KEYS = GROUP_KEYS  # defined once in rig.analysis.stats
 
 
 @dataclass(frozen=True)
@@ -203,8 +203,8 @@ def analyze_run(
         threshold; None: the manifest's ``safe_residual_volts``, else 60 V (IEC 61010-1).
     seed: seed of the bootstrap's random generator (results are reproducible).
     """
-    from rig.selfdischarge import DEFAULT_SAFE_VOLTS, has_delay_sweep, self_discharge
-    from rig.stats import group_stats, limits_from_manifest
+    from rig.analysis.selfdischarge import DEFAULT_SAFE_VOLTS, has_delay_sweep, self_discharge
+    from rig.analysis.stats import group_stats, limits_from_manifest
 
     run_dir = Path(run_dir)
     manifest = read_manifest(run_dir)

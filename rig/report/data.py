@@ -16,10 +16,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from drivers.errors import RunFolderError
+from rig.analysis.stats import GROUP_KEYS, with_capture
 from rig.api import group_waveforms, load_run
-from rig.stats import GROUP_KEYS, with_capture
-from rig.units import eng
+from rigbase.errors import RunFolderError
+from rigbase.units import eng
 
 log = logging.getLogger(__name__)
 
@@ -32,7 +32,7 @@ FLAG_TEXT = {
 }
 
 
-_GROUP_KEYS = list(GROUP_KEYS)  # defined once in rig.stats
+_GROUP_KEYS = list(GROUP_KEYS)  # defined once in rig.analysis.stats
 
 
 _NEEDED = ["meter", "mode", "volts", "load", "delay_s", "abs_peak_a", "charge_c", "file"]
@@ -86,7 +86,7 @@ def _group_waveforms(run: Path, **filters: Any):
 
 def _peak_metric(g: pd.DataFrame) -> str:
     """The groups.csv metric of the peak's size: ``abs_peak_a`` if summarised, else ``peak_a``
-    (which rig.stats summarises by magnitude)."""
+    (which rig.analysis.stats summarises by magnitude)."""
     names = set(g["metric"].astype(str))
     return "abs_peak_a" if "abs_peak_a" in names or "peak_a" not in names else "peak_a"
 

@@ -3,7 +3,7 @@
 Every figure is built on a bare :class:`matplotlib.figure.Figure` with an Agg canvas (no
 pyplot, no display, no global state beyond an ``rc_context``), in the project's own look
 (:func:`house_style`), with the Okabe-Ito colour-blind-safe palette and SI units with
-engineering prefixes (:mod:`rig.units`). Builders take DataFrames and arrays and return a
+engineering prefixes (:mod:`rigbase.units`). Builders take DataFrames and arrays and return a
 Figure; :func:`render` writes it as PNG and SVG and hands the bytes back for embedding.
 
 Waveforms are reduced before plotting (the report may hold hundreds of 10^5-sample records):
@@ -31,7 +31,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
-from rig.units import axis_label, eng, eng_scale
+from rigbase.units import axis_label, eng, eng_scale
 
 __all__ = [
     "OKABE_ITO",

@@ -14,7 +14,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from drivers.errors import LimitError, SafetyError
+from rigbase.errors import LimitError, SafetyError
 
 __all__ = ["Interlocks", "SafeReport"]
 
@@ -67,7 +67,7 @@ class SafeReport:
 
 
 class Interlocks:
-    """Limits and safe-state logic for one open bench (``rig.benchopen.OpenBench``)."""
+    """Limits and safe-state logic for one open bench (``rig.runner.opener.OpenBench``)."""
 
     def __init__(self, bench: Any, config: Any) -> None:
         self.bench = bench

@@ -23,8 +23,8 @@ from typing import Any
 
 import numpy as np
 
-from drivers.errors import FileFormatError
-from rig.metrics import event_metrics
+from rig.analysis.metrics import event_metrics
+from rigbase.errors import FileFormatError
 
 __all__ = ["measure_file", "read_trace"]
 
@@ -144,7 +144,7 @@ def measure_file(
     dt: seconds per sample (.npy only; a CSV's time column gives it).
     shunt_ohms: shunt resistance, ohm, when the CSV holds voltage across a shunt.
     charge_volts: charge voltage of the event, V; load_ohms: load resistance, ohm.
-    Returns {metric name: value} with the names of rig.schema.METRIC_COLUMNS plus
+    Returns {metric name: value} with the names of rig.store.schema.METRIC_COLUMNS plus
     ``dt_s``, ``t0_s``, ``n_samples`` and ``file``.
     """
     i, step, t0 = read_trace(path, dt=dt, shunt_ohms=shunt_ohms)

@@ -1,0 +1,16 @@
+"""The self-contained HTML report of a run: its tables loaded from the run folder (`data`),
+the judgements at a glance (`glance`), the detail tables (`tables`), the figures (`figures`,
+`plots`), the HTML pieces and style (`html`), and the page assembly (`page`).
+"""
+
+from rig.report.page import (
+    FLAG_TEXT,
+    SECTIONS,
+    write_report,
+)
+
+__all__ = [
+    "FLAG_TEXT",
+    "SECTIONS",
+    "write_report",
+]
