@@ -27,9 +27,9 @@ from rigbase.errors import ProfileError
 __all__ = [
     "FORMAT_VERSION",
     "OPERATIONS",
-    "PREAMBLE_FIELDS",
     "PROFILE_DIR",
     "RANGES",
+    "SCALING_FIELDS",
     "Profile",
     "scpi_header_matches",
 ]
@@ -85,7 +85,7 @@ OPERATIONS: Mapping[str, Mapping[str, frozenset[str]]] = MappingProxyType(
             "set_format": frozenset({"fmt"}),
             "set_byte_order": frozenset({"order"}),
             "fetch": frozenset({"ch"}),
-            "preamble": frozenset({"ch"}),
+            "scaling": frozenset({"ch"}),
             "measure_dc": frozenset({"ch"}),
         },
         "meter": {
@@ -104,8 +104,19 @@ RANGES: Mapping[str, tuple[str, ...]] = MappingProxyType(
     }
 )
 
-#: Fields of the scope's preamble answer that scale raw codes to volts and seconds.
-PREAMBLE_FIELDS = ("points", "x_increment", "x_origin", "y_increment", "y_origin", "y_reference")
+#: Fields of the scope's scaling answer that turn raw codes into volts and sample indices
+#: into seconds: ``volts = (code - reference_code) * volts_per_code + reference_volts`` and
+#: ``seconds from the trigger = first_sample_s + index * sample_interval_s``; ``points`` is
+#: the record length, checked against the block. ``[scope.scaling_fields]`` gives the
+#: position of each in the instrument's comma-separated answer (other positions are ignored).
+SCALING_FIELDS = (
+    "points",
+    "sample_interval_s",
+    "first_sample_s",
+    "volts_per_code",
+    "reference_volts",
+    "reference_code",
+)
 
 # A value of the right type for every field, used to try each template once at load time so a
 # bad format spec ("{volts:.9q}") fails here rather than at the first command.
@@ -126,7 +137,7 @@ _SAMPLES: dict[str, object] = {
     "function": "VOLTage:DC",
 }
 
-_SUBTABLES = {"ranges", "preamble_fields", "functions"}
+_SUBTABLES = {"ranges", "scaling_fields", "functions"}
 _NAME_RE = re.compile(r"^[A-Za-z0-9_.-]+$")
 
 
@@ -150,7 +161,7 @@ class Profile:
     name: str
     templates: Mapping[str, Mapping[str, str]]
     range_table: Mapping[str, Mapping[str, tuple[float, float]]]
-    preamble_fields: Mapping[str, int] = field(default_factory=dict)
+    scaling_fields: Mapping[str, int] = field(default_factory=dict)
     meter_functions: Mapping[str, str] = field(default_factory=dict)
 
     # -- loading ------------------------------------------------------------------------------
@@ -237,7 +248,7 @@ class Profile:
         """The mode name whose function is ``function``, or None.
 
         ``function`` is an instrument's answer: quotes are dropped, and each node may be in
-        short or long form, in any case (SCPI-1999 mnemonic rules, REFERENCES.md section 5).
+        short or long form, in any case (SCPI-1999 Vol. 1, 6.2.1 mnemonics).
         """
         reply = function.strip().strip('"').strip()
         for mode, func in self.meter_functions.items():
@@ -303,7 +314,7 @@ class _Validator:
 
         templates: dict[str, dict[str, str]] = {}
         ranges: dict[str, dict[str, tuple[float, float]]] = {}
-        preamble: dict[str, int] = {}
+        scaling: dict[str, int] = {}
         functions: dict[str, str] = {}
         for role in OPERATIONS:
             body = self.table(data, role, required=role == "common")
@@ -313,7 +324,7 @@ class _Validator:
             if role in RANGES:
                 ranges[role] = self.ranges(role, body)
             if role == "scope":
-                preamble = self.preamble(body)
+                scaling = self.scaling_fields(body)
             if role == "meter":
                 functions = self.functions(body)
         return Profile(
@@ -321,7 +332,7 @@ class _Validator:
             name=name,
             templates=MappingProxyType(templates),
             range_table=MappingProxyType(ranges),
-            preamble_fields=MappingProxyType(preamble),
+            scaling_fields=MappingProxyType(scaling),
             meter_functions=MappingProxyType(functions),
         )
 
@@ -330,7 +341,7 @@ class _Validator:
         allowed_tables = {
             "common": set(),
             "meter": {"functions"},
-            "scope": {"ranges", "preamble_fields"},
+            "scope": {"ranges", "scaling_fields"},
         }
         tables = allowed_tables.get(role, {"ranges"})
         for key in body:
@@ -406,18 +417,21 @@ class _Validator:
             out[name] = (low, high)
         return out
 
-    def preamble(self, body: Mapping[str, Any]) -> dict[str, int]:
-        table = self.table(body, "preamble_fields", required=False, where="scope")
+    def scaling_fields(self, body: Mapping[str, Any]) -> dict[str, int]:
+        table = self.table(body, "scaling_fields", required=False, where="scope")
         if table is None:
-            raise self.fail("scope.preamble_fields", "missing table")
+            raise self.fail("scope.scaling_fields", "missing table")
         out: dict[str, int] = {}
         for name in table:
-            if name not in PREAMBLE_FIELDS:
-                raise self.fail(f"scope.preamble_fields.{name}", "unknown preamble field")
-        for name in PREAMBLE_FIELDS:
-            key = f"scope.preamble_fields.{name}"
+            if name not in SCALING_FIELDS:
+                known = ", ".join(SCALING_FIELDS)
+                raise self.fail(
+                    f"scope.scaling_fields.{name}", f"unknown scaling field (known: {known})"
+                )
+        for name in SCALING_FIELDS:
+            key = f"scope.scaling_fields.{name}"
             if name not in table:
-                raise self.fail(key, "missing preamble field position")
+                raise self.fail(key, "missing: position of this field in the scaling answer")
             pos = table[name]
             if not isinstance(pos, int) or isinstance(pos, bool) or pos < 0:
                 raise self.fail(key, "must be a position, an integer >= 0")
@@ -426,7 +440,7 @@ class _Validator:
         for name, pos in out.items():
             if pos in seen:
                 raise self.fail(
-                    f"scope.preamble_fields.{name}", f"position {pos} already used by {seen[pos]}"
+                    f"scope.scaling_fields.{name}", f"position {pos} already used by {seen[pos]}"
                 )
             seen[pos] = name
         return out

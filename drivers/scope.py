@@ -1,9 +1,10 @@
 """The digitising oscilloscope role: input set-up, single-shot acquisition, raw-code fetch.
 
-A fetched :class:`Trace` keeps the raw ADC codes plus the preamble's scaling, so the run
+A fetched :class:`Trace` keeps the raw ADC codes plus the scaling the scope reports for them
+(the profile's ``scaling`` query, its fields mapped by ``[scope.scaling_fields]``), so the run
 folder can store codes (small, exact) and analysis can scale them later:
-``volts = (code - y_reference) * y_increment + y_origin`` and
-``seconds from trigger = x_origin + index * x_increment``.
+``volts = (code - reference_code) * volts_per_code + reference_volts`` and
+``seconds from trigger = first_sample_s + index * sample_interval_s``.
 """
 
 from __future__ import annotations
@@ -42,29 +43,31 @@ _SLOPES = {
     "both": "EITHer",
 }
 # FORMat:BORDer NORMal sends the most significant byte first (big-endian), SWAPped the
-# least significant first. Common practice, no source at hand ([M] SCPI-1999 vol. 2).
+# least significant first (SCPI-1999 Vol. 2, FORMat:BORDer; from memory).
 _ORDERS: dict[str, str] = {"big": "NORMal", "little": "SWAPped"}
 
 
 @dataclass(frozen=True)
 class Trace:
-    """One channel's raw codes with the scaling from the scope's preamble."""
+    """One channel's raw codes with the scaling the scope reported for them."""
 
     codes: np.ndarray  # int8 or int16, one per sample
-    x_increment: float  # seconds per sample
-    x_origin: float  # seconds from the trigger to sample 0
-    y_increment: float  # volts per code
-    y_origin: float  # volts at code y_reference
-    y_reference: float  # code of y_origin
+    sample_interval_s: float  # seconds per sample
+    first_sample_s: float  # seconds from the trigger to sample 0
+    volts_per_code: float  # volts per ADC code
+    reference_volts: float  # volts at code reference_code
+    reference_code: float  # the code that reads reference_volts
     bits: int  # 8 or 16
 
     def volts(self) -> np.ndarray:
         """The samples in volts (float64)."""
-        return (self.codes.astype(np.float64) - self.y_reference) * self.y_increment + self.y_origin
+        codes = self.codes.astype(np.float64)
+        return (codes - self.reference_code) * self.volts_per_code + self.reference_volts
 
     def time(self) -> np.ndarray:
         """Sample times in seconds from the trigger (float64)."""
-        return self.x_origin + self.x_increment * np.arange(len(self.codes), dtype=np.float64)
+        index = np.arange(len(self.codes), dtype=np.float64)
+        return self.first_sample_s + self.sample_interval_s * index
 
 
 class Scope:
@@ -244,29 +247,33 @@ class Scope:
             self.set_format(8, "big")
         assert self._format is not None
         bits, order = self._format
-        pre_cmd = self._cmd("preamble", ch=ch)
-        text = self.session.query(pre_cmd)
-        fields = self.profile.preamble_fields
+        scaling_cmd = self._cmd("scaling", ch=ch)
+        text = self.session.query(scaling_cmd)
+        fields = self.profile.scaling_fields
         try:
             values = [float(v) for v in text.split(",")]
             pick = {k: values[i] for k, i in fields.items()}
         except (ValueError, IndexError):
             raise InstrumentError(
-                self.name, pre_cmd, f"preamble {text!r} does not fit [scope.preamble_fields]"
+                self.name,
+                scaling_cmd,
+                f"scaling answer {text!r} does not fit [scope.scaling_fields]",
             ) from None
         cmd = self._cmd("fetch", ch=ch)
         codes = self.session.query_block(cmd, "int8" if bits == 8 else "int16", order)
         if len(codes) != int(pick["points"]):
             raise BlockFormatError(
-                self.name, cmd, f"block holds {len(codes)} points, preamble says {pick['points']:g}"
+                self.name,
+                cmd,
+                f"block holds {len(codes)} points, the scaling answer says {pick['points']:g}",
             )
         return Trace(
             codes=codes,
-            x_increment=pick["x_increment"],
-            x_origin=pick["x_origin"],
-            y_increment=pick["y_increment"],
-            y_origin=pick["y_origin"],
-            y_reference=pick["y_reference"],
+            sample_interval_s=pick["sample_interval_s"],
+            first_sample_s=pick["first_sample_s"],
+            volts_per_code=pick["volts_per_code"],
+            reference_volts=pick["reference_volts"],
+            reference_code=pick["reference_code"],
             bits=bits,
         )
 

@@ -21,7 +21,8 @@ log = logging.getLogger(__name__)
 
 
 def channel_list(channels: Sequence[int]) -> str:
-    """SCPI channel list for ``channels``: ``[1, 3]`` -> ``"(@1,3)"`` (REFERENCES.md sec. 5)."""
+    """SCPI channel list for ``channels``: ``[1, 3]`` -> ``"(@1,3)"`` (SCPI-1999 Vol. 1
+    channel lists, ``(@1,2)`` and ``(@1:4)``)."""
     return "(@" + ",".join(str(int(c)) for c in channels) + ")"
 
 

@@ -51,9 +51,9 @@ def _out(text: str = "") -> None:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    from rig.planning.benchfile import load_bench
     from rig.planning.plan import build_plan, describe, safety_review
     from rig.planning.sequence import load_sequence
+    from rig.runner.opener import load_bench
 
     bench = load_bench(args.bench)
     seq = load_sequence(args.sequence, bench)
@@ -170,10 +170,10 @@ def _print_verdicts(groups: Any) -> dict[str, int]:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from rig.planning.benchfile import load_bench
     from rig.planning.plan import build_plan, describe, safety_review
     from rig.planning.sequence import load_sequence
     from rig.runner.cycle import host_info
+    from rig.runner.opener import load_bench
     from rig.store.runfolder import RunWriter, new_run_id
 
     bench = load_bench(args.bench)
@@ -211,9 +211,9 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def cmd_resume(args: argparse.Namespace) -> int:
-    from rig.planning.benchfile import load_bench
     from rig.planning.plan import build_plan
     from rig.planning.sequence import load_sequence
+    from rig.runner.opener import load_bench
     from rig.store.runfolder import RunWriter, read_manifest, read_plan
 
     run = Path(args.run)
@@ -258,8 +258,7 @@ def cmd_verify(args: argparse.Namespace) -> int:
 
 
 def cmd_instruments(args: argparse.Namespace) -> int:
-    from rig.planning.benchfile import load_bench
-    from rig.runner.opener import open_bench
+    from rig.runner.opener import load_bench, open_bench
 
     bench = load_bench(args.bench)
     with open_bench(bench, operator=_operator_prompt) as ob:
@@ -350,22 +349,17 @@ def cmd_demo(args: argparse.Namespace) -> int:
 def cmd_sim_serve(args: argparse.Namespace) -> int:
     import time
 
-    from drivers.clock import RealClock
-    from drivers.sim.bench import start_sim_bench
-    from rig.planning.benchfile import load_bench, resolve_meter_model
+    from rig.planning.benchfile import resolve_meter_model
+    from rig.runner.opener import load_bench, serve_simulated_bench
 
     bench = load_bench(args.bench)
     if bench.simulation is None:
         raise FileFormatError(args.bench, "simulation", "this bench file has no [simulation] table")
-    from dataclasses import replace
-
-    cfg = bench.simulation.world
-    if args.meter:
-        cfg = replace(cfg, meter_model=str(resolve_meter_model(args.meter)))
-    with start_sim_bench(cfg, RealClock()) as sim:
+    meter = resolve_meter_model(args.meter) if args.meter else None
+    with serve_simulated_bench(bench, meter) as sim:
         _out("Simulated bench: no voltage leaves this computer. Before driving a real bench,")
         _out("read the high-voltage cautions of `rig --help` and the README.")
-        _out(f"simulated bench running in real time, meter model {cfg.meter_model}")
+        _out(f"simulated bench running in real time, meter model {sim.world.config.meter_model}")
         for role, res in sim.resources.items():
             _out(f"  {role:8s} {res}")
         _out("profile: drivers/profiles/scpi1999.toml; Ctrl-C stops")

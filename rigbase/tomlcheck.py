@@ -20,7 +20,7 @@ from typing import Any
 
 from rigbase.errors import FileFormatError
 
-__all__ = ["parse_si"]
+__all__ = ["REQUIRED", "Context", "Table", "jsonable", "parse_si", "read_toml", "resolve_file"]
 
 # --------------------------------------------------------------------------------------------
 # Numbers with SI prefixes
@@ -186,7 +186,7 @@ def _format_key(key: tuple[str | int, ...]) -> str:
     return out
 
 
-class _Context:
+class Context:
     """One file being read: its path and the line index used for error messages."""
 
     def __init__(self, path: Path, text: str) -> None:
@@ -205,7 +205,7 @@ class _Context:
         return FileFormatError(self.path, _format_key(key), problem, self.line_of(key))
 
 
-def _read_toml(path: str | Path, what: str) -> tuple[_Context, dict[str, Any]]:
+def read_toml(path: str | Path, what: str) -> tuple[Context, dict[str, Any]]:
     path = Path(path)
     try:
         text = path.read_text(encoding="utf-8")
@@ -213,7 +213,7 @@ def _read_toml(path: str | Path, what: str) -> tuple[_Context, dict[str, Any]]:
         raise FileFormatError(path, "", f"{what} file not found") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise FileFormatError(path, "", f"cannot read {what} file: {exc}") from None
-    ctx = _Context(path, text)
+    ctx = Context(path, text)
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -231,7 +231,7 @@ def _read_toml(path: str | Path, what: str) -> tuple[_Context, dict[str, Any]]:
 # Reading one table with checks
 # --------------------------------------------------------------------------------------------
 
-_REQUIRED: Any = object()
+REQUIRED: Any = object()
 
 
 def _nearest(name: str, valid: Iterable[str]) -> str | None:
@@ -253,7 +253,7 @@ def _type_name(value: object) -> str:
     return names.get(type(value), type(value).__name__)
 
 
-class _Table:
+class Table:
     """A TOML table under a key, read with type, unit and range checks.
 
     Unknown keys are refused when the table is opened, before anything else, so that a typo
@@ -261,15 +261,21 @@ class _Table:
     """
 
     def __init__(
-        self, ctx: _Context, data: object, key: tuple[str | int, ...], allowed: Iterable[str]
+        self,
+        ctx: Context,
+        data: object,
+        key: tuple[str | int, ...],
+        allowed: Iterable[str] | None,
     ) -> None:
+        """``allowed`` None admits any key: a table handed on, unread, to the one module that
+        knows its keys (which opens it again with them)."""
         self.ctx = ctx
         self.key = key
-        self.allowed = tuple(allowed)
+        self.allowed = tuple(allowed) if allowed is not None else None
         if not isinstance(data, dict):
             raise ctx.error(key, f"must be a table, not {_type_name(data)}")
         self.data: dict[str, Any] = data
-        for name in data:
+        for name in data if self.allowed is not None else ():
             if name not in self.allowed:
                 hint = _nearest(name, self.allowed)
                 tip = (
@@ -287,7 +293,7 @@ class _Table:
     def _get(self, name: str, default: Any) -> Any:
         if name in self.data:
             return self.data[name]
-        if default is _REQUIRED:
+        if default is REQUIRED:
             raise self.error(name, f"missing required key {name!r}")
         return default
 
@@ -329,7 +335,7 @@ class _Table:
     def number(
         self,
         name: str,
-        default: Any = _REQUIRED,
+        default: Any = REQUIRED,
         *,
         positive: bool = False,
         minimum: float | None = None,
@@ -346,7 +352,7 @@ class _Table:
     def integer(
         self,
         name: str,
-        default: Any = _REQUIRED,
+        default: Any = REQUIRED,
         *,
         minimum: int | None = None,
         maximum: int | None = None,
@@ -373,7 +379,7 @@ class _Table:
     def numbers(
         self,
         name: str,
-        default: Any = _REQUIRED,
+        default: Any = REQUIRED,
         *,
         positive: bool = False,
         minimum: float | None = None,
@@ -398,7 +404,7 @@ class _Table:
             out.append(number)
         return tuple(out)
 
-    def integers(self, name: str, default: Any = _REQUIRED, *, minimum: int | None = None) -> Any:
+    def integers(self, name: str, default: Any = REQUIRED, *, minimum: int | None = None) -> Any:
         if name not in self.data:
             return self._get(name, default)
         value = self.data[name]
@@ -411,7 +417,7 @@ class _Table:
     def string(
         self,
         name: str,
-        default: Any = _REQUIRED,
+        default: Any = REQUIRED,
         *,
         choices: Iterable[str] | None = None,
         what: str = "value",
@@ -442,7 +448,7 @@ class _Table:
     def strings(
         self,
         name: str,
-        default: Any = _REQUIRED,
+        default: Any = REQUIRED,
         *,
         choices: Iterable[str] | None = None,
         what: str = "value",
@@ -465,7 +471,7 @@ class _Table:
             out.append(item)
         return tuple(out)
 
-    def boolean(self, name: str, default: Any = _REQUIRED) -> Any:
+    def boolean(self, name: str, default: Any = REQUIRED) -> Any:
         if name not in self.data:
             return self._get(name, default)
         value = self.data[name]
@@ -473,13 +479,13 @@ class _Table:
             raise self.error(name, f"must be true or false, not {_type_name(value)}")
         return value
 
-    def table(self, name: str, allowed: Iterable[str], *, required: bool = False) -> _Table:
+    def table(self, name: str, allowed: Iterable[str] | None, *, required: bool = False) -> Table:
         """The sub-table ``name`` (empty when absent and not required)."""
         if name not in self.data and required:
             raise self.error(name, f"missing required table [{_format_key(self.key + (name,))}]")
-        return _Table(self.ctx, self.data.get(name, {}), self.key + (name,), allowed)
+        return Table(self.ctx, self.data.get(name, {}), self.key + (name,), allowed)
 
-    def tables(self, name: str, allowed: Iterable[str], *, required: bool = False) -> list[_Table]:
+    def tables(self, name: str, allowed: Iterable[str], *, required: bool = False) -> list[Table]:
         """The array of tables ``[[name]]`` (empty list when absent and not required)."""
         if name not in self.data:
             if required:
@@ -490,12 +496,12 @@ class _Table:
             raise self.error(name, f"must be an array of tables [[{name}]]")
         if required and not value:
             raise self.error(name, f"needs at least one [[{name}]] table")
-        allowed = tuple(allowed)
-        return [_Table(self.ctx, v, self.key + (name, i), allowed) for i, v in enumerate(value)]
+        allowed = tuple(allowed) if allowed is not None else None
+        return [Table(self.ctx, v, self.key + (name, i), allowed) for i, v in enumerate(value)]
 
 
-def _resolve_file(
-    table: _Table, name: str, value: str, base_dir: Path, default_dir: Path, what: str
+def resolve_file(
+    table: Table, name: str, value: str, base_dir: Path, default_dir: Path, what: str
 ) -> Path:
     """A bare name (``scpi1999``) is a file in ``default_dir``; else a path from ``base_dir``."""
     if not value.strip():
@@ -515,14 +521,14 @@ def _resolve_file(
     return path
 
 
-def _jsonable(value: Any) -> Any:
+def jsonable(value: Any) -> Any:
     """Dataclasses, paths and tuples turned into plain JSON values (for the run manifest)."""
     if is_dataclass(value) and not isinstance(value, type):
-        return {f.name: _jsonable(getattr(value, f.name)) for f in fields(value) if f.name != "raw"}
+        return {f.name: jsonable(getattr(value, f.name)) for f in fields(value) if f.name != "raw"}
     if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
+        return {str(k): jsonable(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
-        return [_jsonable(v) for v in value]
+        return [jsonable(v) for v in value]
     if isinstance(value, Path):
         return str(value)
     return value

@@ -52,8 +52,8 @@ class FakeMeter:
 
 DEFAULT_METERS = (
     FakeMeter(
-        "Fictiva FX-200",
-        "FX-0001",
+        "Candidate C",
+        "DEMO-C-0001",
         "CAT III 600 V (fictitious)",
         120.0,
         200e-12,
@@ -141,7 +141,7 @@ def _metrics(
         "flag_not_captured": False,
         "flag_truncated": bool(np.abs(a[-200:]).mean() > 0.02 * ap),
         "flag_below_noise": bool(ap < 5 * noise),
-        # HBM indicators: 100 pF / 1500 ohm network (ANSI/ESDA/JEDEC JS-001, REFERENCES.md 1)
+        # HBM indicators: 100 pF / 1500 ohm network (ANSI/ESDA/JEDEC JS-001)
         "ind_hbm_volts": ap * 1500.0,
         "ind_hbm_charge_c": ap * 1500.0 * 100e-12,
         "ind_hbm_energy_j": 0.5 * 100e-12 * (ap * 1500.0) ** 2,
@@ -459,9 +459,9 @@ def _manifest(run_id, meters, modes, loads, volts, reps, note) -> dict[str, obje
         },
         "simulated": True,
         "instruments": {
-            "supply": "FICTIVE,HV-1K,SN0001,1.0",
-            "switch": "FICTIVE,RLY-8,SN0002,1.0",
-            "scope": "FICTIVE,SCOPE-2,SN0003,1.0",
+            "supply": "FICTITIOUS,Simulated supply,0001,1.0",
+            "switch": "FICTITIOUS,Simulated relay board,0002,1.0",
+            "scope": "FICTITIOUS,Simulated scope,0003,1.0",
             "meter": "FICTIVE,DMM-SIM,SN0004,1.0",
         },
         "software": {

@@ -10,7 +10,7 @@ whose every answer is known exactly:
                                   R_bleed --[ch bleed]------+
 
 Between switching instants the node relaxes as ``v(t) = v_inf + (v0 - v_inf) exp(-(t-t0)/tau)``
-(textbook first-order RC, REFERENCES.md section 6). Scope input 1 is the shunt voltage
+(first-order RC step response, any circuits textbook). Scope input 1 is the shunt voltage
 ``i_discharge * R_shunt``, input 2 the divider output ``v / ratio``, inputs 3 and 4 read 0.
 Deliberate simplifications: no contact bounce, no current limit, no wiring inductance, and
 the bandwidth limits are NOT modelled (they are recorded in ``bandwidth_requests`` so tests can
@@ -228,7 +228,7 @@ class SimpleRcWorld:
 
     @staticmethod
     def exp_decay(v0: float, tau: float, t: np.ndarray) -> np.ndarray:
-        """``v0 exp(-t/tau)``; textbook RC discharge (REFERENCES.md section 6)."""
+        """``v0 exp(-t/tau)``; RC discharge, any circuits textbook."""
         return v0 * np.exp(-np.asarray(t) / tau)
 
 

@@ -1,6 +1,6 @@
 """The seam between the simulated instruments and the simulated physics.
 
-The SCPI instruments in ``drivers/sim/instruments.py`` keep their own settings (scope
+The SCPI instruments in ``drivers/sim/instruments/`` keep their own settings (scope
 range, trigger, format...) and ask the one shared :class:`World` for everything physical:
 what the supply delivers, which relay contacts conduct, the voltages at the scope inputs.
 ``drivers/sim/world.py`` implements it on the circuit engine. Tests may implement it with a

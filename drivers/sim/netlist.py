@@ -8,7 +8,7 @@ File layout (format 1)::
 
     [meter]
     format = 1
-    model = "Bramblecote BX-1000"          # free text
+    model = "Candidate A"          # free text
     rating = "CAT III 1000 V"              # free text
     modes = ["AC V", "AC mV", "DC V"]      # first one is the mode after connection
     input = "VIN"                          # V input terminal node

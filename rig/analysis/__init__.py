@@ -36,6 +36,11 @@ from rig.analysis.metrics import (
     event_metrics,
     quick_metrics,
 )
+from rig.analysis.runs import (
+    group_waveforms,
+    load_event_waveform,
+    load_run,
+)
 from rig.analysis.selfdischarge import (
     DEFAULT_SAFE_VOLTS,
     SELFDISCHARGE_COLUMNS,
@@ -93,9 +98,12 @@ __all__ = [
     "find_setting",
     "fit_self_discharge",
     "group_stats",
+    "group_waveforms",
     "has_delay_sweep",
     "journal_frame",
     "limits_from_manifest",
+    "load_event_waveform",
+    "load_run",
     "measure_file",
     "quick_metrics",
     "read_trace",

@@ -4,8 +4,8 @@ When a sequence sweeps the delay between the end of charging and the discharge, 
 (meter, serial, mode, capture, volts, load) gives the discharged charge Q against the delay d. A
 self-discharging input follows Q(d) = Q0 exp(-d / tau), so log |Q| is linear in d: an
 ordinary least-squares line through all captured events gives tau = -1 / slope with a
-t-based confidence interval on the slope (textbook regression; REFERENCES.md section 6 for
-the exponential discharge).
+t-based confidence interval on the slope (textbook least-squares regression; the exponential
+is the textbook RC discharge q = CV exp(-t / RC)).
 
 The safe threshold is, by default, the charge that would hold the input at the safe residual
 voltage: Q_safe = C_equiv(delay 0) x safe_residual_volts, with C_equiv the median equivalent
@@ -36,8 +36,8 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-#: Default safe residual, V d.c.: the hazardous-live d.c. level of IEC 61010-1 (earlier
-#: editions; edition 3 uses 70 V), REFERENCES.md section 3 [T].
+#: Default safe residual, V d.c.: the hazardous-live d.c. level of IEC 61010-1 (30 V rms,
+#: 42.4 V peak, 60 V d.c.; edition 3 (2010) uses 33 V rms, 46.7 V peak, 70 V d.c.).
 DEFAULT_SAFE_VOLTS = 60.0
 #: The group keys of rig.analysis.stats without the delay (the sweep's variable).
 SWEEP_KEYS: tuple[str, ...] = tuple(k for k in GROUP_KEYS if k != "delay_s")

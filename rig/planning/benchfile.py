@@ -16,27 +16,19 @@ from __future__ import annotations
 
 import logging
 import tomllib
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import drivers
-from drivers.sim.interfaces import (
-    BenchWiring,
-    BounceSpec,
-    Faults,
-    LoadSpec,
-    SenseSpec,
-    WorldConfig,
-)
 from rigbase.tomlcheck import (
-    _REQUIRED,
-    _Context,
-    _jsonable,
-    _read_toml,
-    _resolve_file,
-    _Table,
+    REQUIRED,
+    Context,
+    Table,
+    jsonable,
     parse_si,
+    read_toml,
+    resolve_file,
 )
 
 __all__ = [
@@ -44,11 +36,14 @@ __all__ = [
     "ROLES",
     "SIM_METERS_DIR",
     "Bench",
+    "DEFAULT_DIVIDER_OHMS",
     "Channels",
     "InstrumentSpec",
     "Limits",
+    "Load",
+    "Sense",
     "Simulation",
-    "load_bench",
+    "read_bench_file",
     "netlist_modes",
     "parse_si",
     "resolve_meter_model",
@@ -68,9 +63,9 @@ def resolve_meter_model(value: str | Path, base_dir: str | Path | None = None) -
     default the working directory). FileFormatError if the file does not exist."""
     text = str(value)
     base = Path(base_dir) if base_dir is not None else Path.cwd()
-    ctx = _Context(Path(text), "")
-    holder = _Table(ctx, {"sim_model": text}, (), ("sim_model",))
-    return _resolve_file(holder, "sim_model", text, base, SIM_METERS_DIR, "meter netlist")
+    ctx = Context(Path(text), "")
+    holder = Table(ctx, {"sim_model": text}, (), ("sim_model",))
+    return resolve_file(holder, "sim_model", text, base, SIM_METERS_DIR, "meter netlist")
 
 
 def netlist_modes(path: str | Path) -> tuple[str, ...]:
@@ -80,7 +75,7 @@ def netlist_modes(path: str | Path) -> tuple[str, ...]:
     keyed by mode name), or the same under a ``[meter]`` or ``[model]`` table. Raises
     FileFormatError when the file is missing, not TOML, or lists no modes.
     """
-    ctx, data = _read_toml(path, "meter netlist")
+    ctx, data = read_toml(path, "meter netlist")
     candidates = [data] + [data[k] for k in ("meter", "model") if isinstance(data.get(k), dict)]
     for table in candidates:
         modes = table.get("modes")
@@ -92,6 +87,31 @@ def netlist_modes(path: str | Path) -> tuple[str, ...]:
             if all(isinstance(m, dict) and isinstance(m.get("name"), str) for m in modes):
                 return tuple(m["name"] for m in modes)
     raise ctx.error(("modes",), "meter netlist lists no modes")
+
+
+@dataclass(frozen=True)
+class Load:
+    """A defined discharge load: resistance with the inductance of its wiring."""
+
+    name: str
+    ohms: float
+    henry: float = 0.0
+    channel: int | None = None  # relay that selects this load, None if always in circuit
+
+
+@dataclass(frozen=True)
+class Sense:
+    """Current sense on scope input 1: a series shunt, or a probe with its own bandwidth."""
+
+    kind: str = "shunt"  # "shunt" | "probe"
+    ohms: float = 0.1  # shunt resistance (kind = "shunt"), ohm
+    amps_per_volt: float = 1.0  # probe transfer (kind = "probe"): volts at scope = amps / this
+    bandwidth_hz: float | None = None  # probe bandwidth (first order); None = ideal
+
+
+# Input resistance of the HV divider probe when the bench file does not give one, ohm
+# (a typical high-voltage probe; common practice, no source).
+DEFAULT_DIVIDER_OHMS = 100.0e6
 
 
 @dataclass(frozen=True)
@@ -124,18 +144,22 @@ class Limits:
     # (common practice, no source).
     safe_residual_volts: float = 1.0
     # Hazardous-live threshold 60 V d.c.: IEC 61010-1 earlier editions (edition 3, 2010, uses
-    # 70 V d.c.); REFERENCES.md section 3 [T]. Above it, real hardware asks for confirmation.
+    # 70 V d.c.), normal condition. Above it, real hardware asks for confirmation.
     hazardous_live_volts: float = 60.0
-    # Stored-charge limit 45 uC (voltages up to 15 kV): IEC 61010-1; REFERENCES.md section 3 [T].
+    # Stored-charge limit 45 uC (voltages up to 15 kV): IEC 61010-1 (normal condition).
     stored_charge_limit_c: float = 45e-6
 
 
 @dataclass(frozen=True)
 class Simulation:
-    """The in-process simulated bench: its clock and the physics configuration."""
+    """The bench file's ``[simulation]`` table. Only the simulator knows its keys: the bench
+    opener (:func:`rig.runner.opener.load_bench`) has it read there and fills ``clock`` and
+    ``world``; a bench read by :func:`read_bench_file` alone carries the table unread."""
 
-    clock: str  # "virtual" | "real"
-    world: WorldConfig
+    table: Table
+    base_dir: Path
+    clock: str | None = None  # "virtual" | "real", once read
+    world: Any = None  # the simulator's WorldConfig, once read
 
 
 @dataclass(frozen=True)
@@ -148,8 +172,8 @@ class Bench:
     channels: Channels
     charge_ohms: float
     bleed_ohms: float
-    loads: tuple[LoadSpec, ...]
-    sense: SenseSpec
+    loads: tuple[Load, ...]
+    sense: Sense
     divider_ratio: float | None
     divider_ohms: float
     limits: Limits
@@ -162,53 +186,12 @@ class Bench:
         resources = [s.resource for s in self.instruments.values() if s.resource is not None]
         return bool(resources) and all(r == "sim" for r in resources)
 
-    def load(self, name: str) -> LoadSpec:
+    def load(self, name: str) -> Load:
         """The load called ``name`` (KeyError if the bench has none)."""
         for spec in self.loads:
             if spec.name == name:
                 return spec
         raise KeyError(name)
-
-    @property
-    def wiring(self) -> BenchWiring:
-        """Channels, parts, loads and senses as the simulated world sees them."""
-        if self.simulation is not None:
-            return self.simulation.world.wiring
-        return _wiring(
-            supply_output_ohms=BenchWiring().supply_output_ohms,
-            channels=self.channels,
-            charge_ohms=self.charge_ohms,
-            bleed_ohms=self.bleed_ohms,
-            loads=self.loads,
-            sense=self.sense,
-            divider_ratio=self.divider_ratio,
-            divider_ohms=self.divider_ohms,
-        )
-
-
-def _wiring(
-    *,
-    supply_output_ohms: float,
-    channels: Channels,
-    charge_ohms: float,
-    bleed_ohms: float,
-    loads: tuple[LoadSpec, ...],
-    sense: SenseSpec,
-    divider_ratio: float | None,
-    divider_ohms: float,
-) -> BenchWiring:
-    return BenchWiring(
-        charge_channel=channels.charge,
-        discharge_channel=channels.discharge,
-        bleed_channel=channels.bleed,
-        supply_output_ohms=supply_output_ohms,
-        charge_ohms=charge_ohms,
-        bleed_ohms=bleed_ohms,
-        loads=loads,
-        sense=sense,
-        divider_ratio=divider_ratio,
-        divider_ohms=divider_ohms,
-    )
 
 
 _BENCH_TOP = ("bench", "instruments", "channels", "parts", "loads", "sense", "limits", "simulation")
@@ -223,7 +206,7 @@ def _profile_channel_range(profile: Path) -> tuple[int, int] | None:
         return None
 
 
-def _read_instruments(top: _Table, base_dir: Path) -> dict[str, InstrumentSpec]:
+def _read_instruments(top: Table, base_dir: Path) -> dict[str, InstrumentSpec]:
     table = top.table("instruments", ROLES, required=True)
     out: dict[str, InstrumentSpec] = {}
     for role in ROLES:
@@ -234,10 +217,10 @@ def _read_instruments(top: _Table, base_dir: Path) -> dict[str, InstrumentSpec]:
         control = sub.string(
             "control", "manual" if role == "meter" else "scpi", choices=("scpi", "manual")
         )
-        resource = sub.string("resource", None if control == "manual" else _REQUIRED)
+        resource = sub.string("resource", None if control == "manual" else REQUIRED)
         if resource is not None and resource != "sim":
             _check_resource(sub, resource)
-        profile = _resolve_file(
+        profile = resolve_file(
             sub, "profile", sub.string("profile", "scpi1999"), base_dir, PROFILES_DIR, "profile"
         )
         timeout = sub.number("timeout_s", 5.0, positive=True)
@@ -254,7 +237,7 @@ def _read_instruments(top: _Table, base_dir: Path) -> dict[str, InstrumentSpec]:
     return out
 
 
-def _check_resource(table: _Table, resource: str) -> None:
+def _check_resource(table: Table, resource: str) -> None:
     # pyvisa's own resource-name parser is the reference for what VISA accepts.
     from pyvisa import rname
 
@@ -268,7 +251,7 @@ def _check_resource(table: _Table, resource: str) -> None:
         ) from None
 
 
-def _read_channels(top: _Table, switch_profile: Path) -> Channels:
+def _read_channels(top: Table, switch_profile: Path) -> Channels:
     table = top.table("channels", ("charge", "discharge", "bleed"), required=True)
     span = _profile_channel_range(switch_profile)
     low, high = span if span else (1, None)
@@ -286,7 +269,7 @@ def _read_channels(top: _Table, switch_profile: Path) -> Channels:
     return Channels(**values)
 
 
-def _read_loads(top: _Table, channels: Channels, switch_profile: Path) -> tuple[LoadSpec, ...]:
+def _read_loads(top: Table, channels: Channels, switch_profile: Path) -> tuple[Load, ...]:
     span = _profile_channel_range(switch_profile)
     low, high = span if span else (1, None)
     used = {
@@ -294,7 +277,7 @@ def _read_loads(top: _Table, channels: Channels, switch_profile: Path) -> tuple[
         channels.discharge: "channels.discharge",
         channels.bleed: "channels.bleed",
     }
-    loads: list[LoadSpec] = []
+    loads: list[Load] = []
     for i, t in enumerate(top.tables("loads", ("name", "ohms", "henry", "channel"), required=True)):
         name = t.string("name")
         if not name.strip():
@@ -311,34 +294,34 @@ def _read_loads(top: _Table, channels: Channels, switch_profile: Path) -> tuple[
                     f"channel {channel} is already used by {used[channel]}; channels must differ",
                 )
             used[channel] = f"loads[{i}].channel"
-        loads.append(LoadSpec(name, ohms, henry, channel))
+        loads.append(Load(name, ohms, henry, channel))
     return tuple(loads)
 
 
-def _read_sense(top: _Table) -> tuple[SenseSpec, float | None, float]:
+def _read_sense(top: Table) -> tuple[Sense, float | None, float]:
     sense = top.table("sense", ("current", "voltage"), required=True)
     cur = sense.table("current", ("kind", "ohms", "amps_per_volt", "bandwidth_hz"), required=True)
     kind = cur.string("kind", "shunt", choices=("shunt", "probe"))
-    defaults = SenseSpec()
-    ohms = cur.number("ohms", _REQUIRED if kind == "shunt" else defaults.ohms, positive=True)
+    defaults = Sense()
+    ohms = cur.number("ohms", REQUIRED if kind == "shunt" else defaults.ohms, positive=True)
     apv = cur.number(
-        "amps_per_volt", _REQUIRED if kind == "probe" else defaults.amps_per_volt, positive=True
+        "amps_per_volt", REQUIRED if kind == "probe" else defaults.amps_per_volt, positive=True
     )
     bandwidth = _optional_bandwidth(cur, "bandwidth_hz")
     volt = sense.table("voltage", ("divider_ratio", "divider_ohms"))
     ratio = volt.number("divider_ratio", None, minimum=1.0)
-    divider_ohms = volt.number("divider_ohms", BenchWiring().divider_ohms, positive=True)
-    return SenseSpec(kind, ohms, apv, bandwidth), ratio, divider_ohms
+    divider_ohms = volt.number("divider_ohms", DEFAULT_DIVIDER_OHMS, positive=True)
+    return Sense(kind, ohms, apv, bandwidth), ratio, divider_ohms
 
 
-def _optional_bandwidth(table: _Table, name: str) -> float | None:
+def _optional_bandwidth(table: Table, name: str) -> float | None:
     """A bandwidth in Hz, or None for ``"full"`` / absent (no limit)."""
     if table.data.get(name) in ("full", "none"):
         return None
     return table.number(name, None, positive=True)
 
 
-def _read_limits(top: _Table) -> Limits:
+def _read_limits(top: Table) -> Limits:
     t = top.table(
         "limits",
         (
@@ -371,83 +354,15 @@ def _read_limits(top: _Table) -> Limits:
     )
 
 
-_SIM_KEYS = (
-    "clock",
-    "seed",
-    "noise_volts",
-    "supply_output_ohms",
-    "supply_max_volts",
-    "supply_max_amps",
-    "meter_model",
-    "bounce",
-    "faults",
-)
+def read_bench_file(path: str | Path) -> Bench:
+    """Read and validate a bench file, leaving its ``[simulation]`` table unread.
 
-
-def _read_simulation(top: _Table, partial: dict[str, Any], base_dir: Path) -> Simulation:
-    t = top.table("simulation", _SIM_KEYS)
-    d = WorldConfig(meter_model="")
-    clock = t.string("clock", "virtual", choices=("virtual", "real"))
-    if t.has("meter_model"):
-        meter_model = _resolve_file(
-            t, "meter_model", t.string("meter_model"), base_dir, SIM_METERS_DIR, "meter netlist"
-        )
-    else:
-        # The sequence's meters replace it; this is only what the world starts with.
-        meter_model = SIM_METERS_DIR / "demo-a.toml"
-    b = t.table("bounce", ("max_bounces", "min_s", "max_s", "contact_ohms"))
-    db = BounceSpec()
-    bounce = BounceSpec(
-        max_bounces=b.integer("max_bounces", db.max_bounces, minimum=0),
-        min_s=b.number("min_s", db.min_s, positive=True),
-        max_s=b.number("max_s", db.max_s, positive=True),
-        contact_ohms=b.number("contact_ohms", db.contact_ohms, positive=True),
-    )
-    if bounce.max_s < bounce.min_s:
-        raise b.error("max_s", f"max_s {bounce.max_s:g} s is below min_s {bounce.min_s:g} s")
-    f = t.table("faults", [fl.name for fl in fields(Faults)])
-    df = Faults()
-    channels: Channels = partial["channels"]
-    all_channels = {channels.charge, channels.discharge, channels.bleed} | {
-        load.channel for load in partial["loads"] if load.channel is not None
-    }
-    stuck = f.integers("relay_stuck_closed", df.relay_stuck_closed, minimum=1)
-    for i, ch in enumerate(stuck):
-        if ch not in all_channels:
-            raise f.error(("relay_stuck_closed", i), f"channel {ch} is not a bench channel")
-    faults = Faults(
-        relay_stuck_closed=tuple(stuck),
-        supply_stuck_on=f.boolean("supply_stuck_on", df.supply_stuck_on),
-        scope_never_triggers=f.boolean("scope_never_triggers", df.scope_never_triggers),
-        drop_connection_after=f.integer("drop_connection_after", None, minimum=1),
-        slow_answer_s=f.number("slow_answer_s", df.slow_answer_s, minimum=0.0),
-        scpi_error_every=f.integer("scpi_error_every", None, minimum=1),
-        corrupt_block_every=f.integer("corrupt_block_every", None, minimum=1),
-    )
-    world = WorldConfig(
-        meter_model=str(meter_model),
-        wiring=_wiring(
-            supply_output_ohms=t.number(
-                "supply_output_ohms", d.wiring.supply_output_ohms, positive=True
-            ),
-            **partial,
-        ),
-        bounce=bounce,
-        supply_max_volts=t.number("supply_max_volts", d.supply_max_volts, positive=True),
-        supply_max_amps=t.number("supply_max_amps", d.supply_max_amps, positive=True),
-        noise_volts=t.number("noise_volts", d.noise_volts, minimum=0.0),
-        seed=t.integer("seed", d.seed, minimum=0),
-        faults=faults,
-    )
-    return Simulation(clock, world)
-
-
-def load_bench(path: str | Path) -> Bench:
-    """Read and validate a bench file; FileFormatError names the file, key, line and problem."""
+    Commands load benches through :func:`rig.runner.opener.load_bench`, which also has the
+    simulator read its table; FileFormatError names the file, key, line and problem."""
     path = Path(path)
-    ctx, data = _read_toml(path, "bench")
+    ctx, data = read_toml(path, "bench")
     base_dir = path.resolve().parent
-    top = _Table(ctx, data, (), _BENCH_TOP)
+    top = Table(ctx, data, (), _BENCH_TOP)
     name = top.table("bench", ("name",), required=True).string("name")
     instruments = _read_instruments(top, base_dir)
     switch_profile = instruments["switch"].profile
@@ -465,7 +380,8 @@ def load_bench(path: str | Path) -> Bench:
     simulated = all(r == "sim" for r in resources)
     simulation = None
     if simulated:
-        simulation = _read_simulation(top, partial, base_dir)
+        # Read by the simulator itself, through the bench opener (rig.runner.opener.load_bench).
+        simulation = Simulation(top.table("simulation", None), base_dir)
     elif top.has("simulation"):
         raise top.error("simulation", "[simulation] needs every instrument resource = 'sim'")
     fields_ = {
@@ -476,6 +392,9 @@ def load_bench(path: str | Path) -> Bench:
         "limits": limits,
         "simulation": simulation,
     }
-    bench = Bench(**fields_, raw=_jsonable(fields_))
+    raw = jsonable({**fields_, "simulation": None})
+    if simulation is not None:
+        raw["simulation"] = jsonable(simulation.table.data)
+    bench = Bench(**fields_, raw=raw)
     log.debug("bench %s loaded (%s)", path, "simulated" if simulated else "real")
     return bench

@@ -21,11 +21,11 @@ from rig.planning.benchfile import SIM_METERS_DIR, Bench, _optional_bandwidth, n
 from rig.store.schema import DEFAULT_CAPTURE, LIMIT_METRICS
 from rigbase.errors import FileFormatError
 from rigbase.tomlcheck import (
-    _jsonable,
+    Table,
     _nearest,
-    _read_toml,
-    _resolve_file,
-    _Table,
+    jsonable,
+    read_toml,
+    resolve_file,
 )
 
 __all__ = [
@@ -160,7 +160,7 @@ _SEQ_TOP = ("sequence", "meters", "charge", "discharge", "bleed", "scope", "limi
 _SCOPE_KEYS = tuple(f.name for f in fields(ScopeSettings))
 
 
-def _read_meters(top: _Table, bench: Bench, base_dir: Path) -> tuple[MeterSpec, ...]:
+def _read_meters(top: Table, bench: Bench, base_dir: Path) -> tuple[MeterSpec, ...]:
     meters: list[MeterSpec] = []
     allowed = ("model", "serial", "rating", "modes", "sim_model")
     scpi_functions = _meter_functions(bench)
@@ -172,7 +172,7 @@ def _read_meters(top: _Table, bench: Bench, base_dir: Path) -> tuple[MeterSpec, 
         modes = t.strings("modes", choices=scpi_functions, what="meter-profile mode")
         sim_model = None
         if t.has("sim_model"):
-            sim_model = _resolve_file(
+            sim_model = resolve_file(
                 t, "sim_model", t.string("sim_model"), base_dir, SIM_METERS_DIR, "meter netlist"
             )
         elif bench.uses_simulation:
@@ -205,7 +205,7 @@ def _meter_functions(bench: Bench) -> tuple[str, ...] | None:
     return tuple(functions) if isinstance(functions, dict) else None
 
 
-def _read_scope(t: _Table, base: ScopeSettings) -> ScopeSettings:
+def _read_scope(t: Table, base: ScopeSettings) -> ScopeSettings:
     values: dict[str, Any] = {}
     for name in _SCOPE_KEYS:
         default = getattr(base, name)
@@ -242,7 +242,7 @@ def _read_scope(t: _Table, base: ScopeSettings) -> ScopeSettings:
 
 
 def _read_limit(
-    t: _Table,
+    t: Table,
     modes: tuple[str, ...],
     volts: tuple[float, ...],
     loads: tuple[str, ...],
@@ -266,7 +266,7 @@ def _read_limit(
 
 
 def _read_captures(
-    st: _Table, base: ScopeSettings, modes: tuple[str, ...]
+    st: Table, base: ScopeSettings, modes: tuple[str, ...]
 ) -> tuple[tuple[str, ...], dict[str, ScopeSettings], dict[str, dict[str, ScopeSettings]]]:
     """Capture names, base + capture settings, and capture -> mode -> settings with the mode
     overrides on top (every combination is validated, since a mode override that fits one
@@ -302,9 +302,9 @@ def _read_captures(
 def load_sequence(path: str | Path, bench: Bench) -> Sequence:
     """Read and validate a sequence file against ``bench`` (voltages, loads, meter models)."""
     path = Path(path)
-    ctx, data = _read_toml(path, "sequence")
+    ctx, data = read_toml(path, "sequence")
     base_dir = path.resolve().parent
-    top = _Table(ctx, data, (), _SEQ_TOP)
+    top = Table(ctx, data, (), _SEQ_TOP)
     head = top.table(
         "sequence",
         ("name", "operator_note", "repetitions", "order", "shuffle_seed"),
@@ -363,4 +363,4 @@ def load_sequence(path: str | Path, bench: Bench) -> Sequence:
         "scope_captures": scope_captures,
         "scope_grid": scope_grid,
     }
-    return Sequence(**fields_, raw=_jsonable(fields_))
+    return Sequence(**fields_, raw=jsonable(fields_))

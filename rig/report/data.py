@@ -16,8 +16,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from rig.analysis.runs import group_waveforms, load_run
 from rig.analysis.stats import GROUP_KEYS, with_capture
-from rig.api import group_waveforms, load_run
 from rigbase.errors import RunFolderError
 from rigbase.units import eng
 

@@ -1,7 +1,8 @@
 """HTML pieces of the report: escaping, plain text of manifest values, tables, figures, CSS.
 
 Every string that comes from a file goes through :func:`esc`; table cells are HTML already
-(callers escape). Shared by the section builders of rig.report_* and the page in rig.report.page.
+(callers escape). Shared by the section builders (glance, tables, plots) and the page in
+rig.report.page; the page's stylesheet and its colours are here too.
 """
 
 from __future__ import annotations
@@ -95,20 +96,26 @@ def _img(fig: F.RenderedFigure, alt: str, caption: str) -> str:
     )
 
 
+# The page's own colours, all named in :root. Every text colour keeps at least the 4.5:1
+# contrast of WCAG 2.1, 1.4.3 Contrast (Minimum), on each background it is used on
+# (tests/unit/test_report.py computes them).
 _CSS = """
-:root{--ink:#1d1d1f;--mute:#5f6368;--rule:#d9d9de;--pass:#00704a;--fail:#b23b00;--bg:#fafafa}
-body{font:15px/1.45 "DejaVu Sans",system-ui,sans-serif;color:var(--ink);margin:0;background:#fff}
+:root{--ink:#1c2329;--mute:#575e66;--rule:#d3d8dc;--pass:#17694a;--fail:#a5400f;--bg:#f5f6f3;
+--paper:#ffffff;--head:#eaeef0;--pass-bg:#e1f1e8;--other-bg:#e9ebeb;--caution-bg:#fcf1e9}
+body{font:15px/1.45 "DejaVu Sans",system-ui,sans-serif;color:var(--ink);margin:0;
+background:var(--paper)}
 main{max-width:1120px;margin:0 auto;padding:16px 24px 48px}
 h1{font-size:1.6em;margin:.4em 0 .1em}h2{font-size:1.25em;margin:1.6em 0 .4em;
 border-bottom:2px solid var(--ink);padding-bottom:3px}h3{font-size:1.05em;margin:1.1em 0 .3em}
 table{border-collapse:collapse;margin:.5em 0 1em;font-size:.88em}
 th,td{border-bottom:1px solid var(--rule);padding:4px 8px;text-align:left;vertical-align:top}
-th{background:#f0f0f3;font-weight:600}
+th{background:var(--head);font-weight:600}
 .wide{overflow-x:auto}table.groups td,table.flagged td,.nw{white-space:nowrap}.n{color:var(--mute);font-size:.9em}
 .v{font-weight:700;padding:1px 6px;border-radius:3px;white-space:nowrap}
-.v.pass{color:var(--pass);background:#e3f4ec}.v.fail{color:#fff;background:var(--fail)}
-.v.other{color:var(--mute);background:#eee}.warn{color:var(--fail);font-size:.88em}
-.caution{border-left:6px solid var(--fail);background:#fff5ef;padding:4px 14px}
+.v.pass{color:var(--pass);background:var(--pass-bg)}
+.v.fail{color:var(--paper);background:var(--fail)}
+.v.other{color:var(--mute);background:var(--other-bg)}.warn{color:var(--fail);font-size:.88em}
+.caution{border-left:6px solid var(--fail);background:var(--caution-bg);padding:4px 14px}
 dl.kv{display:grid;grid-template-columns:max-content 1fr;gap:2px 14px;margin:.4em 0}
 dl.kv dt{font-weight:600}dl.kv dd{margin:0}
 figure{margin:.6em 0 1.4em}figure img{max-width:100%;height:auto;border:1px solid var(--rule)}

@@ -27,7 +27,7 @@ from rig.report.tables import _compare_table
 from rig.store.runfolder import read_manifest
 from rigbase.units import eng
 
-IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure up to 15 kV (REFERENCES.md 3)
+IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure (charged up to 15 kV), C
 
 
 MAX_WAVE_ROWS = 4  # (voltage, load) rows per waveform figure

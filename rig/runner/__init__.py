@@ -20,7 +20,9 @@ from rig.runner.interlocks import (
 )
 from rig.runner.opener import (
     OpenBench,
+    load_bench,
     open_bench,
+    serve_simulated_bench,
 )
 
 __all__ = [
@@ -33,5 +35,7 @@ __all__ = [
     "Runner",
     "SafeReport",
     "Terminated",
+    "load_bench",
     "open_bench",
+    "serve_simulated_bench",
 ]

@@ -403,9 +403,12 @@ class Runner:
         first = traces[0][0]
         n = min(len(t.codes) for t, *_ in traces)
         codes = np.stack([t.codes[:n] for t, *_ in traces])
-        gain = np.array([t.y_increment * scale for t, _, _, scale in traces])
+        gain = np.array([t.volts_per_code * scale for t, _, _, scale in traces])
         offset = np.array(
-            [(t.y_origin - t.y_reference * t.y_increment) * scale for t, _, _, scale in traces]
+            [
+                (t.reference_volts - t.reference_code * t.volts_per_code) * scale
+                for t, _, _, scale in traces
+            ]
         )
         lo, hi = np.iinfo(codes.dtype).min, np.iinfo(codes.dtype).max
         return Waveform(
@@ -414,8 +417,8 @@ class Runner:
             offset=offset,
             code_min=np.full(len(traces), lo),
             code_max=np.full(len(traces), hi),
-            dt=float(first.x_increment),
-            t0=float(first.x_origin),
+            dt=float(first.sample_interval_s),
+            t0=float(first.first_sample_s),
             channels=tuple(name for _, name, _, _ in traces),
             units=tuple(unit for _, _, unit, _ in traces),
         )

@@ -1,5 +1,10 @@
 """Open the instruments a bench file names, and hand the runner one bench object and a clock.
 
+This is the one door from the controller to the simulated bench (``drivers.sim``): it loads
+bench files for every command (:func:`load_bench`: the controller's checks, then the
+simulator's own reading of the ``[simulation]`` table), opens them (:func:`open_bench`) and
+serves them for anyone's own scripts (:func:`serve_simulated_bench`).
+
 When the bench file asks for the simulated bench (``resource = "sim"``), the simulated
 instruments are started in-process on loopback and reached through pyvisa-py exactly like
 hardware: the runner cannot tell the difference. Only two things differ, both physical acts
@@ -10,7 +15,8 @@ on the simulated bench the simulation does them.
 from __future__ import annotations
 
 import logging
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -22,8 +28,11 @@ from drivers.scope import Scope
 from drivers.session import ScpiSession
 from drivers.supply import Supply
 from drivers.switch import SwitchBoard
+from rig.planning.benchfile import Bench, read_bench_file
+from rigbase.errors import FileFormatError
+from rigbase.tomlcheck import jsonable
 
-__all__ = ["OpenBench", "open_bench"]
+__all__ = ["OpenBench", "load_bench", "open_bench", "serve_simulated_bench"]
 
 log = logging.getLogger(__name__)
 
@@ -79,14 +88,68 @@ class OpenBench:
         self.close()
 
 
+def load_bench(path: str | Path) -> Bench:
+    """Read and validate a bench file completely, the same way for every command.
+
+    The controller checks instruments, channels, parts, loads, senses and limits
+    (:func:`rig.planning.benchfile.read_bench_file`); a simulated bench's ``[simulation]``
+    table is then read by the simulator itself, which fills ``bench.simulation.clock`` and
+    ``.world``. FileFormatError names the file, the key, its line and the problem.
+    """
+    return _resolve_simulation(read_bench_file(path))
+
+
+def _resolve_simulation(bench: Bench) -> Bench:
+    sim = bench.simulation
+    if sim is None or sim.world is not None:
+        return bench
+    from drivers.sim.config import read_simulation
+    from drivers.sim.interfaces import LoadSpec, SenseSpec
+
+    cfg = read_simulation(
+        sim.table,
+        channels=(bench.channels.charge, bench.channels.discharge, bench.channels.bleed),
+        charge_ohms=bench.charge_ohms,
+        bleed_ohms=bench.bleed_ohms,
+        loads=tuple(LoadSpec(ld.name, ld.ohms, ld.henry, ld.channel) for ld in bench.loads),
+        sense=SenseSpec(
+            bench.sense.kind, bench.sense.ohms, bench.sense.amps_per_volt, bench.sense.bandwidth_hz
+        ),
+        divider_ratio=bench.divider_ratio,
+        divider_ohms=bench.divider_ohms,
+        base_dir=sim.base_dir,
+    )
+    raw = {**bench.raw, "simulation": jsonable(cfg)}
+    return replace(bench, simulation=replace(sim, clock=cfg.clock, world=cfg.world), raw=raw)
+
+
+@contextmanager
+def serve_simulated_bench(bench: Bench, meter_model: Path | None = None) -> Iterator[Any]:
+    """The simulated bench of a bench file on loopback, in real time (``rig sim serve``).
+
+    Yields the running bench: ``.resources`` maps each role to its VISA resource string and
+    ``.world`` holds the physics. ``meter_model`` (a netlist path) replaces the file's meter.
+    """
+    bench = _resolve_simulation(bench)
+    if bench.simulation is None:
+        raise FileFormatError(bench.path, "simulation", "this bench file has no [simulation] table")
+    from drivers.sim.bench import start_sim_bench
+
+    cfg = bench.simulation.world
+    if meter_model is not None:
+        cfg = replace(cfg, meter_model=str(meter_model))
+    with start_sim_bench(cfg, RealClock()) as sim:
+        yield sim
+
+
 def open_bench(
-    bench: Any,
+    bench: Bench,
     *,
     first_sim_model: Path | None = None,
     operator: Prompt | None = None,
     clock: Clock | None = None,
 ) -> OpenBench:
-    """Open the bench of a loaded bench file (:func:`rig.planning.benchfile.load_bench`).
+    """Open the bench of a loaded bench file (:func:`load_bench`).
 
     ``first_sim_model`` is the netlist of the first meter (simulated bench only);
     ``operator`` shows a message to the operator and returns when they confirm (real
@@ -94,6 +157,7 @@ def open_bench(
     """
     sim = None
     resources: dict[str, str] = {}
+    bench = _resolve_simulation(bench)
     if bench.simulation is not None:
         from drivers.sim.bench import start_sim_bench
 

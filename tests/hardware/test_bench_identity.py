@@ -10,8 +10,7 @@ import os
 
 import pytest
 
-from rig.planning.benchfile import load_bench
-from rig.runner.opener import open_bench
+from rig.runner.opener import load_bench, open_bench
 
 pytestmark = pytest.mark.hardware
 

@@ -120,8 +120,9 @@ def test_supply_charging_current_follows_the_rc_law(rig: Rig) -> None:
     assert rig.supply.output_is_on()
     t = 5e-3
     rig.clock.sleep(t)
-    # textbook first-order RC charge (REFERENCES.md section 6) through R_out + R_charge, with
-    # the leakage of the test double's meter in parallel with C
+    # textbook first-order RC charge (Horowitz & Hill, The Art of Electronics, 3rd ed., 1.4.2
+    # RC circuits; section from memory) through R_out + R_charge, with the leakage of the
+    # test double's meter in parallel with C
     r_series = w.supply_output_ohms + w.charge_ohms
     farads = MODE_FARADS["AC V"]
     g = 1 / r_series + 1 / LEAK_OHMS
@@ -252,26 +253,27 @@ def test_discharge_capture_matches_the_rc_decay(rig: Rig, bits: int, order: str)
     assert len(trace.codes) == 2000
     t = trace.time()
     assert t[0] == pytest.approx(-100e-6) and t[1] - t[0] == pytest.approx(1e-6)
-    # textbook RC discharge i(t) = (V0/R) exp(-t/RC) (REFERENCES.md section 6), seen as the
-    # shunt voltage; R is load + shunt, in parallel with the test double's leakage
+    # textbook RC discharge i(t) = (V0/R) exp(-t/RC) (Horowitz & Hill, The Art of
+    # Electronics, 3rd ed., 1.4.2; section from memory), seen as the shunt voltage; R is
+    # load + shunt, in parallel with the test double's leakage
     r_dis = LOAD_OHMS + w.sense.ohms
     tau = MODE_FARADS["AC V"] / (1 / r_dis + 1 / LEAK_OHMS)
-    after = t >= -0.5 * trace.x_increment  # the trigger sample's time rounds to about -1e-20
+    after = t >= -0.5 * trace.sample_interval_s  # the trigger sample's time rounds to about -1e-20
     expected = v0 / r_dis * w.sense.ohms * np.exp(-t[after] / tau)
     volts = trace.volts()
     # codes are rounded to the nearest step and clipped at the top code (full scale - 1 step)
-    top = trace.y_origin + (2 ** (bits - 1) - 1) * trace.y_increment
+    top = trace.reference_volts + (2 ** (bits - 1) - 1) * trace.volts_per_code
     np.testing.assert_allclose(
-        volts[after], np.minimum(expected, top), rtol=0, atol=trace.y_increment * 0.5 + 1e-9
+        volts[after], np.minimum(expected, top), rtol=0, atol=trace.volts_per_code * 0.5 + 1e-9
     )
-    assert np.all(np.abs(volts[~after]) <= trace.y_increment)  # relay open before the trigger
+    assert np.all(np.abs(volts[~after]) <= trace.volts_per_code)  # relay open before the trigger
     # a log-linear fit of the tail gives the time constant back
     keep = after & (volts > 0.2 * volts[after].max())
     slope = np.polyfit(t[keep], np.log(volts[keep]), 1)[0]
     assert -1 / slope == pytest.approx(tau, rel=0.02 if bits == 8 else 2e-3)
     divider = rig.scope.fetch(2)
     assert divider.volts()[np.argmin(np.abs(t))] == pytest.approx(
-        v0 / w.divider_ratio, abs=divider.y_increment
+        v0 / w.divider_ratio, abs=divider.volts_per_code
     )
 
 
@@ -324,7 +326,8 @@ def test_fetch_without_a_record_reports_the_instruments_error(rig: Rig) -> None:
     configure_scope(rig.scope, 8, "big")
     with pytest.raises(ScpiError) as info:
         rig.scope.fetch(1)
-    assert info.value.code == -230  # SCPI "data corrupt or stale" (REFERENCES.md section 5 list)
+    # SCPI-1999 Vol. 2, 21.8 error list (from memory): -230 "Data corrupt or stale"
+    assert info.value.code == -230
     assert rig.sessions["scope"].errors() == []
 
 
@@ -391,10 +394,19 @@ def test_sessions_ride_through_dropped_links() -> None:
 
 
 def test_trace_scaling_follows_the_profile_formula() -> None:
-    # volts = (code - y_reference) * y_increment + y_origin; seconds = x_origin + i * x_increment
-    # (the scaling rule stated in the shipped profile's [scope.preamble_fields] comment)
+    # volts = (code - reference_code) * volts_per_code + reference_volts and
+    # seconds = first_sample_s + i * sample_interval_s (the scaling rule stated in the
+    # shipped profile's [scope.scaling_fields] comment)
     codes = np.array([-128, 0, 10, 127], dtype=np.int8)
-    tr = Trace(codes, 2e-9, -4e-9, 0.5, 1.0, 10.0, 8)
+    tr = Trace(
+        codes,
+        sample_interval_s=2e-9,
+        first_sample_s=-4e-9,
+        volts_per_code=0.5,
+        reference_volts=1.0,
+        reference_code=10.0,
+        bits=8,
+    )
     np.testing.assert_array_equal(tr.volts(), [-68.0, -4.0, 1.0, 59.5])
     np.testing.assert_allclose(tr.time(), [-4e-9, -2e-9, 0.0, 2e-9], atol=1e-24)
     assert tr.volts().dtype == np.float64

@@ -15,11 +15,10 @@ import numpy as np
 import pytest
 
 from drivers.sim.interfaces import Faults
-from rig.planning.benchfile import load_bench
 from rig.planning.plan import build_plan
 from rig.planning.sequence import load_sequence
 from rig.runner.cycle import ExitPath, Observer, Phase, Runner
-from rig.runner.opener import open_bench
+from rig.runner.opener import load_bench, open_bench
 from rig.store.runfolder import RunWriter, read_journal, verify_run
 from rig.store.waveform import load_waveform
 

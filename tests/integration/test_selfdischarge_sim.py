@@ -4,7 +4,8 @@ The fitted self-discharge time constant of each AC mode must agree within 5 % wi
 slowest time constant of the meter model's own network with its input open, taken from the
 circuit engine's state matrix (eigenvalues of A). Physics of the check: with the input
 open, every state decays as a sum of exponentials; after the fast modes have died away the
-stored charge follows the slowest one (REFERENCES.md section 6, exponential discharge).
+stored charge follows the slowest one (natural response of a linear RC network, any
+circuits textbook).
 """
 
 from __future__ import annotations
@@ -17,7 +18,8 @@ import pytest
 from drivers.sim.circuit import Circuit
 from drivers.sim.netlist import load_netlist
 from rig.analysis.analyze import analyze_run
-from rig.planning.benchfile import load_bench, resolve_meter_model
+from rig.planning.benchfile import resolve_meter_model
+from rig.runner.opener import load_bench
 
 from .test_runner import BENCH, run_once
 

@@ -1,8 +1,8 @@
 """Random bytes and random SCPI-like lines against a simulated instrument over a raw socket.
 
 The server must never die or hang (every socket operation has a timeout), and every bad
-command must leave an error with a standard SCPI-1999 number (REFERENCES.md section 5;
-the further table entries used by the server are marked [M] in drivers/sim/scpi.py).
+command must leave an error with a standard SCPI-1999 number (SCPI-1999 Vol. 2, 21.8 error
+list; the entries quoted from memory are marked so in drivers/sim/scpi/codes.py).
 """
 
 from __future__ import annotations
@@ -23,7 +23,9 @@ from tests.sim_support import SimpleRcWorld
 
 CONFIG = WorldConfig(meter_model="test-double", seed=11)
 STANDARD = set(ERROR_MESSAGES) - {0}
-BLANK = bytes([*range(0x00, 0x0A), *range(0x0B, 0x21)])  # IEEE 488.2 white space [M]
+BLANK = bytes(
+    [*range(0x00, 0x0A), *range(0x0B, 0x21)]
+)  # IEEE 488.2-1992, 7.4.1.2 white space (from memory)
 SOCKET_TIMEOUT_S = 5.0
 
 

@@ -1,9 +1,10 @@
 """The simulated supply, switch board, scope and bench meter through pyvisa-py over TCP.
 
 The world behind them is the closed-form RC test double of ``tests/sim_support.py``, so every
-physical answer is known: RC charge and discharge ``v0 exp(-t/RC)`` (textbook, REFERENCES.md
-section 6). Blocks are decoded with pyvisa's own ``pyvisa.util.from_ieee_block`` (reference
-decoder of IEEE 488.2 definite-length blocks). Writes are asynchronous, so a test that moves
+physical answer is known: RC charge and discharge ``v0 exp(-t/RC)`` (textbook: Horowitz &
+Hill, The Art of Electronics, 3rd ed., 1.4.2; section from memory). Blocks are decoded with
+pyvisa's own ``pyvisa.util.from_ieee_block`` (reference decoder of IEEE 488.2 definite-length
+blocks). Writes are asynchronous, so a test that moves
 the virtual clock first waits for ``*OPC?``.
 """
 
@@ -69,26 +70,26 @@ def _discharge(inst: dict) -> None:
     assert inst["switch"].query("ROUT:CLOS (@2);*OPC?") == "1"
 
 
-def _setup_scope(scope, points: int, dt: float, x_origin: float, level: float = 0.1) -> None:
+def _setup_scope(scope, points: int, dt: float, first_sample_s: float, level: float = 0.1) -> None:
     assert (
         scope.query(
             f"SENS1:VOLT:RANG:PTP 1;:SENS1:VOLT:OFFS 0;:SENS:SWE:TINT {dt};POIN {points};"
-            f"OFFS:TIME {x_origin};"
+            f"OFFS:TIME {first_sample_s};"
             f":TRIG:SOUR INT1;LEV {level};SLOP POS;:INIT:CONT OFF;:INIT;*OPC?"
         )
         == "1"
     )
 
 
-def _preamble(scope, n: int = 1) -> dict[str, float]:
-    fields = PROFILE["scope"]["preamble_fields"]
-    values = [float(v) for v in scope.query(f"TRAC:PRE? INT{n}").split(",")]
+def _scaling(scope, n: int = 1) -> dict[str, float]:
+    fields = PROFILE["scope"]["scaling_fields"]
+    values = [float(v) for v in scope.query(f"TRAC:SCAL? INT{n}").split(",")]
     return {name: values[i] for name, i in fields.items()}
 
 
-def _volts(codes: np.ndarray, pre: dict[str, float]) -> np.ndarray:
-    # the profile's scaling rule: volts = (code - y_reference) * y_increment + y_origin
-    return (codes - pre["y_reference"]) * pre["y_increment"] + pre["y_origin"]
+def _volts(codes: np.ndarray, sc: dict[str, float]) -> np.ndarray:
+    # the profile's scaling rule: volts = (code - reference_code) * volts_per_code + reference_volts
+    return (codes - sc["reference_code"]) * sc["volts_per_code"] + sc["reference_volts"]
 
 
 # -- every profile command, long and short form ------------------------------------------------
@@ -119,7 +120,7 @@ def test_every_profile_command_is_accepted(inst: dict, bench: SimBench, form: st
     for role, section in roles.items():
         i = inst[role]
         for key, template in PROFILE[section].items():
-            if not isinstance(template, str) or key in ("fetch", "preamble", "measure_dc"):
+            if not isinstance(template, str) or key in ("fetch", "scaling", "measure_dc"):
                 continue
             if section == "meter" and key == "set_function":
                 for function in PROFILE["meter"]["functions"].values():
@@ -146,7 +147,7 @@ def test_every_profile_command_is_accepted(inst: dict, bench: SimBench, form: st
     _charge(inst, bench)
     _discharge(inst)
     bench.world.clock.sleep(0.01)
-    for key in ("preamble", "measure_dc"):
+    for key in ("scaling", "measure_dc"):
         assert scope.query(variant(_fill(PROFILE["scope"][key])))
     block = query_raw_block(scope, variant(_fill(PROFILE["scope"]["fetch"])))
     assert block.startswith(b"#") and block.endswith(b"\n")
@@ -188,7 +189,7 @@ def test_supply_measures_the_rc_charge(inst: dict, bench: SimBench) -> None:
     tau = w.time_constant()
     w.clock.sleep(tau)
     volts, amps = float(ps.query("MEAS:VOLT:DC?")), float(ps.query("MEAS:CURR:DC?"))
-    # textbook RC charge (REFERENCES.md 6) with the 10 Mohm leak as a divider:
+    # textbook RC charge (Horowitz & Hill, 1.4.2, from memory) with the 10 Mohm leak as a divider:
     # v(t) = v_inf (1 - exp(-t/tau)), i = (V - v) / R_path, terminal = V - i R_out
     v_inf = 100.0 * 10e6 / (10e6 + r_path)
     node = v_inf * (1 - np.exp(-1.0))
@@ -221,7 +222,7 @@ def test_switch_rejects_bad_channels(inst: dict, bench: SimBench) -> None:
         assert error_codes(sw) == [-222], bad  # SCPI-1999 -222 data out of range
     assert bench.world.relay_commanded([2]) == [False]  # nothing of a bad list is applied
     sw.write("ROUT:CLOS 2")
-    assert error_codes(sw) == [-104]  # a channel list is required: data type error [M]
+    assert error_codes(sw) == [-104]  # a channel list is required: data type error (from memory)
     sw.write("ROUT:CLOS (@2);*RST")
     assert sw.query("ROUT:CLOS? (@2)") == "0"
 
@@ -239,7 +240,7 @@ def test_meter_functions(inst: dict, bench: SimBench) -> None:
     assert error_codes(meter) == []
     for bad in ('FUNC "FREQuency"', 'FUNC "VOLT"', 'FUNC "VOLT:AC:MILL:X"'):
         meter.write(bad)
-        assert error_codes(meter) == [-224], bad  # illegal parameter value [M]
+        assert error_codes(meter) == [-224], bad  # illegal parameter value (from memory)
 
 
 # -- scope ----------------------------------------------------------------------------------------
@@ -248,7 +249,7 @@ def test_meter_functions(inst: dict, bench: SimBench) -> None:
 def test_scope_setting_errors(inst: dict) -> None:
     scope = inst["scope"]
     cases = [
-        ("INP5:COUP AC", -114),  # header suffix out of range [M]
+        ("INP5:COUP AC", -114),  # header suffix out of range (from memory)
         ("INP1:IMP 75", -224),  # only 50 ohm and 1 Mohm
         ("SENS:SWE:POIN 999", -222),  # points below 1000
         ("SENS:SWE:POIN 10000001", -222),
@@ -259,7 +260,7 @@ def test_scope_setting_errors(inst: dict) -> None:
         ("TRIG:SLOP UP", -224),
         ("INP1:COUP GND", -224),
         ("TRAC:DATA? INT1", -230),  # no completed acquisition yet
-        ("TRAC:PRE? INT1", -230),
+        ("TRAC:SCAL? INT1", -230),
     ]
     for command, code in cases:
         scope.write(command)  # a refused query sends no answer
@@ -273,9 +274,9 @@ def test_scope_setting_errors(inst: dict) -> None:
 
 def test_scope_triggers_on_a_discharge(inst: dict, bench: SimBench) -> None:
     scope, w = inst["scope"], bench.world
-    dt, points, x_origin = 1e-6, 2000, -200e-6
+    dt, points, first_sample_s = 1e-6, 2000, -200e-6
     _charge(inst, bench)
-    _setup_scope(scope, points, dt, x_origin, level=0.1)
+    _setup_scope(scope, points, dt, first_sample_s, level=0.1)
     assert scope.query("STAT:OPER:COND?") == "32"  # SCPI-1999: bit 5 waiting for trigger
     w.clock.sleep(1e-3)
     assert scope.query("STAT:OPER:COND?") == "32"
@@ -288,21 +289,26 @@ def test_scope_triggers_on_a_discharge(inst: dict, bench: SimBench) -> None:
     w.clock.sleep(2e-3)
     assert scope.query("STAT:OPER:COND?") == "0"
     scope.write("FORM INT,16")
-    pre = _preamble(scope)
-    assert (pre["points"], pre["x_increment"], pre["x_origin"]) == (points, dt, x_origin)
-    assert pre["y_increment"] == 1.0 / 2**16 and pre["y_origin"] == 0.0
+    sc = _scaling(scope)
+    assert (sc["points"], sc["sample_interval_s"], sc["first_sample_s"]) == (
+        points,
+        dt,
+        first_sample_s,
+    )
+    assert sc["volts_per_code"] == 1.0 / 2**16 and sc["reference_volts"] == 0.0
     raw = query_raw_block(scope, "TRAC:DATA? INT1")
     codes = np.asarray(from_ieee_block(raw[:-1], "h", True, np.array))
-    volts = _volts(codes, pre)
-    k = int(round(-x_origin / dt))  # the trigger sits at -x_origin / dt samples
+    volts = _volts(codes, sc)
+    k = int(round(-first_sample_s / dt))  # the trigger sits at -first_sample_s / dt samples
     assert volts[k - 1] < 0.1 <= volts[k]
-    # closed form (textbook RC discharge, REFERENCES.md 6): shunt volts = v0 Rs/R exp(-t/tau),
+    # closed form (textbook RC discharge, Horowitz & Hill 1.4.2, from memory): shunt volts =
+    # v0 Rs/R exp(-t/tau),
     # the trigger at the relay closing instant (sample grid starts at the switching time)
     r = 1010.0
     tau = 1.0 / (1.0 / r + 1.0 / 10e6) * 100e-9
     t = (np.arange(points) - k) * dt  # seconds from the trigger
     expected = np.where(t >= 0, v0 / r * 10.0 * np.exp(-np.clip(t, 0, None) / tau), 0.0)
-    tol = 6 * CONFIG.noise_volts + pre["y_increment"]
+    tol = 6 * CONFIG.noise_volts + sc["volts_per_code"]
     err = np.abs(volts - expected)
     assert np.max(err) < tol, (np.argmax(err), volts[k - 2 : k + 3], expected[k - 2 : k + 3])
     # the decay constant from a log-linear fit over 3 tau (textbook RC: tau = R C)
@@ -319,18 +325,18 @@ def test_blocks_int8_and_int16_both_orders(inst: dict, bench: SimBench) -> None:
     _discharge(inst)
     w.clock.sleep(2e-3)
     scope.write("FORM:DATA INT,8")
-    pre8 = _preamble(scope)
+    sc8 = _scaling(scope)
     raw8 = query_raw_block(scope, "TRAC:DATA? INT1")
     assert raw8.startswith(b"#71000000") and len(raw8) == 9 + 1_000_000 + 1
     # reference decoder: pyvisa.util.from_ieee_block
     codes8 = np.asarray(from_ieee_block(raw8[:-1], "b", False, np.array))
     assert codes8.size == 1_000_000 and codes8.min() >= -128 and codes8.max() <= 127
-    t = (np.arange(codes8.size) - round(-pre8["x_origin"] / pre8["x_increment"])) * 1e-9
+    t = (np.arange(codes8.size) - round(-sc8["first_sample_s"] / sc8["sample_interval_s"])) * 1e-9
     tau = 1.0 / (1.0 / 1010.0 + 1.0 / 10e6) * 100e-9
     expected = np.where(t >= 0, v0 / 101.0 * np.exp(-np.clip(t, 0, None) / tau), 0.0)
-    # 8 bits over 1 V: y_increment 3.9 mV; rounding error at most half a code plus noise
-    assert pre8["y_increment"] == 1.0 / 256
-    assert np.max(np.abs(_volts(codes8, pre8) - expected)) < pre8["y_increment"] / 2 + 6e-4
+    # 8 bits over 1 V: volts_per_code 3.9 mV; rounding error at most half a code plus noise
+    assert sc8["volts_per_code"] == 1.0 / 256
+    assert np.max(np.abs(_volts(codes8, sc8) - expected)) < sc8["volts_per_code"] / 2 + 6e-4
 
     # INT,16 of a 500,000-point record, both byte orders
     v0 = _charge(inst, bench)
@@ -338,7 +344,7 @@ def test_blocks_int8_and_int16_both_orders(inst: dict, bench: SimBench) -> None:
     _discharge(inst)
     w.clock.sleep(2e-3)
     scope.write("FORM:DATA INT,16;BORD NORM")
-    pre16 = _preamble(scope)
+    sc16 = _scaling(scope)
     big = query_raw_block(scope, "TRAC:DATA? INT1")
     scope.write("FORM:BORD SWAP")
     little = query_raw_block(scope, "TRAC:DATA? INT1")
@@ -346,9 +352,11 @@ def test_blocks_int8_and_int16_both_orders(inst: dict, bench: SimBench) -> None:
     codes_big = np.asarray(from_ieee_block(big[:-1], "h", True, np.array))
     codes_little = np.asarray(from_ieee_block(little[:-1], "h", False, np.array))
     assert np.array_equal(codes_big, codes_little)
-    t = (np.arange(codes_big.size) - round(-pre16["x_origin"] / pre16["x_increment"])) * 2e-9
+    t = (
+        np.arange(codes_big.size) - round(-sc16["first_sample_s"] / sc16["sample_interval_s"])
+    ) * 2e-9
     expected = np.where(t >= 0, v0 / 101.0 * np.exp(-np.clip(t, 0, None) / tau), 0.0)
-    assert np.max(np.abs(_volts(codes_big, pre16) - expected)) < 6e-4
+    assert np.max(np.abs(_volts(codes_big, sc16) - expected)) < 6e-4
     # the same record as INT,8: the codes agree to within one 8-bit step
     scope.write("FORM INT,8")
     codes_same = np.asarray(
@@ -389,20 +397,20 @@ def test_measure_dc_and_ac_coupling(inst: dict, bench: SimBench) -> None:
     _discharge(inst)
     w.clock.sleep(2e-3)
     scope.write("FORM INT,16")
-    pre = _preamble(scope, 2)
+    sc = _scaling(scope, 2)
     codes = np.asarray(
         from_ieee_block(query_raw_block(scope, "TRAC:DATA? INT2")[:-1], "h", True, np.array)
     )
-    volts = _volts(codes, pre)
+    volts = _volts(codes, sc)
     # reference: scipy.signal.lsim of the continuous first-order high-pass s / (s + w),
     # w = 2 pi 10 Hz, driven by the closed-form divider signal minus its steady level
     # (a level held since long before the record gives no output)
     tau = 1.0 / (1.0 / 1010.0 + 1.0 / 10e6) * 100e-9
-    t = np.arange(codes.size) * pre["x_increment"]
+    t = np.arange(codes.size) * sc["sample_interval_s"]
     x = v0 / 1000.0 * np.exp(-t / tau)
     w_hp = 2 * np.pi * 10.0
     _, expected, _ = lsim(([1.0, 0.0], [1.0, w_hp]), x - x[0], t)
-    assert np.max(np.abs(volts - expected)) < 6 * 1e-4 + pre["y_increment"]
+    assert np.max(np.abs(volts - expected)) < 6 * 1e-4 + sc["volts_per_code"]
     assert expected[-1] == pytest.approx(-v0 / 1000.0, rel=0.1)  # nearly the whole level
 
 
@@ -415,7 +423,7 @@ def test_bandwidth_limit_reaches_the_world(inst: dict, bench: SimBench) -> None:
     _discharge(inst)
     w.clock.sleep(2e-3)
     w.bandwidth_requests.clear()
-    scope.query("TRAC:PRE? INT1")
+    scope.query("TRAC:SCAL? INT1")
     assert w.bandwidth_requests[0] == (20e6,)  # trigger search on input 1, limit on
     assert w.bandwidth_requests[-1] == (20e6, None, None, None)  # the record, inputs 1..4
 
@@ -431,7 +439,7 @@ def test_disabled_input_and_continuous_mode(inst: dict, bench: SimBench) -> None
     assert error_codes(scope) == [-221]  # settings conflict: the input was off
     scope.query("INIT:CONT ON;*OPC?")
     assert scope.query("STAT:OPER:COND?") == "32"  # re-armed, waiting for the next edge
-    assert scope.query("TRAC:PRE? INT1").startswith("1000,")  # the last record stays readable
+    assert scope.query("TRAC:SCAL? INT1").startswith("1000,")  # the last record stays readable
     scope.query("ABOR;:INIT:CONT OFF;:ABOR;*OPC?")
     assert scope.query("STAT:OPER:COND?") == "0"
 
@@ -474,14 +482,14 @@ def test_sixteen_bit_codes_with_a_large_offset(rm: pyvisa.ResourceManager) -> No
             )
             _discharge(opened)
             sim.world.clock.sleep(1e-3)
-            pre = _preamble(scope, 2)
+            sc = _scaling(scope, 2)
             codes = np.asarray(
                 from_ieee_block(query_raw_block(scope, "TRAC:DATA? INT2")[:-1], "h", True, np.array)
             )
             t_trig = sim.world.history()[-1][0]  # the discharge relay closing (ground truth)
-            t = t_trig + pre["x_origin"] + np.arange(codes.size) * pre["x_increment"]
+            t = t_trig + sc["first_sample_s"] + np.arange(codes.size) * sc["sample_interval_s"]
             truth = sim.world.scope_inputs(t, [None, None])[1]
-            expected = np.clip(np.rint((truth - offset) / pre["y_increment"]), -32768, 32767)
+            expected = np.clip(np.rint((truth - offset) / sc["volts_per_code"]), -32768, 32767)
             pre_trigger = slice(0, 500)  # steady part: the codes must match to one step
             assert np.max(np.abs(codes[pre_trigger] - expected[pre_trigger])) <= 1
             # the leak's 50 V/s decay: about 160 steps over the 500 ns before the trigger

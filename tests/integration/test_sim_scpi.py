@@ -1,8 +1,8 @@
 """The SCPI server core through pyvisa-py over TCP: identity, syntax, status, errors, faults.
 
 Every instrument is reached only as a VISA resource (``pyvisa.ResourceManager("@py")``),
-as hardware would be. Error numbers are checked against SCPI-1999 (REFERENCES.md section 5;
-numbers flagged [M] there are marked so here).
+as hardware would be. Error numbers are checked against the SCPI-1999 error list (SCPI-1999
+Vol. 2, 21.8); numbers and clauses quoted from memory are marked "(from memory)".
 """
 
 from __future__ import annotations
@@ -49,7 +49,8 @@ def test_identities_are_invented_and_distinct(rm: pyvisa.ResourceManager, bench:
         inst = open_instrument(rm, resource)
         ids[role] = inst.query("*IDN?").split(",")
         inst.close()
-    # IEEE 488.2 10.14 [M]: four comma-separated fields: maker, model, serial, firmware
+    # IEEE 488.2-1992, 10.14 *IDN? (from memory): four comma-separated fields: maker, model,
+    # serial, firmware
     assert all(len(fields) == 4 and fields[0] == "SIMULATED" for fields in ids.values())
     assert len({tuple(f) for f in ids.values()}) == 4
 
@@ -61,15 +62,16 @@ def test_identities_are_invented_and_distinct(rm: pyvisa.ResourceManager, bench:
      "VOLT 0.0125KV", "VOLT 1.25E1"],
 )  # fmt: skip
 def test_long_short_mixed_case_and_suffixes(supply, command: str) -> None:
-    # SCPI-1999 (REFERENCES.md 5): short or long form in any case; IEEE 488.2 suffixes [M]
+    # SCPI-1999 Vol. 1, 6.2.1: short or long form in any case; IEEE 488.2-1992, 7.7.3
+    # suffixes (from memory)
     supply.write(command)
     assert float(supply.query("SOUR:VOLT?")) == pytest.approx(12.5)
     assert error_codes(supply) == []
 
 
 def test_compound_messages(supply) -> None:
-    # SCPI-1999 (REFERENCES.md 5): ';' same subsystem, ';:' back to root, several answers
-    # joined with ';' in one response message (IEEE 488.2 8.4.1 [M])
+    # SCPI-1999 Vol. 1 ch. 6 (from memory): ';' same subsystem, ';:' back to root; several
+    # answers joined with ';' in one response message (IEEE 488.2-1992, 8.4.1, from memory)
     assert supply.query("SOUR:VOLT 10;CURR 0.05;:OUTP:STAT ON;:VOLT?;CURR?;:OUTP?") == ("10;0.05;1")
     assert supply.query("*CLS;VOLT 20;*OPC?;:VOLT?") == "1;20"
     supply.write("SOUR:VOLT 1;OUTP OFF")  # OUTP is not under SOURce: -113, output stays on
@@ -78,7 +80,7 @@ def test_compound_messages(supply) -> None:
 
 
 def test_min_max_def(supply) -> None:
-    # SCPI-1999 (REFERENCES.md 5): MIN, MAX, DEF stand for numbers; queries accept them too
+    # SCPI-1999 Vol. 1, 7.2.1: MIN, MAX, DEF stand for numbers; queries accept them too
     supply.write("VOLT MAX")
     assert float(supply.query("VOLT?")) == CONFIG.supply_max_volts
     assert float(supply.query("VOLT? MIN")) == 0.0
@@ -94,22 +96,22 @@ def test_min_max_def(supply) -> None:
      ("SOUR:VOLT:LEVE 5", -113),   # abbreviation that is neither form
      ("VOLT 2000", -222),          # data out of range (above supply_max_volts)
      ("VOLT -1", -222),
-     ("VOLT", -109),               # missing parameter
-     ("VOLT 1,2", -108),           # parameter not allowed
-     ("OUTP:STAT MAYBE", -224),    # illegal parameter value
-     ("VOLT 'x'", -104),           # data type error [M]
-     ("VOLT 5 PARSECS", -131),     # invalid suffix [M]
-     ("VOLT (5", -102),            # syntax error
+     ("VOLT", -109),               # missing parameter (from memory)
+     ("VOLT 1,2", -108),           # parameter not allowed (from memory)
+     ("OUTP:STAT MAYBE", -224),    # illegal parameter value (from memory)
+     ("VOLT 'x'", -104),           # data type error (from memory)
+     ("VOLT 5 PARSECS", -131),     # invalid suffix (from memory)
+     ("VOLT (5", -102),            # syntax error (from memory)
      ("MEAS:VOLT:DC", -113)],      # query-only header sent as a command
 )  # fmt: skip
 def test_error_numbers(supply, command: str, code: int) -> None:
-    # SCPI-1999 error numbers, REFERENCES.md section 5 ([M] where marked)
+    # SCPI-1999 Vol. 2, 21.8 error numbers ("from memory" where marked)
     supply.write(command)
     assert error_codes(supply) == [code]
 
 
 def test_error_message_format(supply) -> None:
-    # SCPI-1999 (REFERENCES.md 5): '<code>,"<message>"', 0,"No error" when empty
+    # SCPI-1999 Vol. 2, 21.8: '<code>,"<message>"', 0,"No error" when empty
     supply.write("BOGUS")
     answer = supply.query("SYSTem:ERRor:NEXT?")
     assert answer.startswith('-113,"Undefined header')
@@ -118,7 +120,7 @@ def test_error_message_format(supply) -> None:
 
 
 def test_queue_overflow(supply) -> None:
-    # SCPI-1999 (REFERENCES.md 5): -350 replaces the last entry when the queue is full
+    # SCPI-1999 Vol. 2, 21.8: -350 replaces the last entry when the queue is full
     for _ in range(30):
         supply.write("BOGUS")
     codes = error_codes(supply)
@@ -128,8 +130,8 @@ def test_queue_overflow(supply) -> None:
 
 
 def test_status_registers(supply) -> None:
-    # IEEE 488.2 11.5.1 [M]: ESR bit 5 command error (32), bit 4 execution error (16);
-    # STB bit 5 ESB when ESR & ESE, bit 2 error queue not empty (SCPI-1999)
+    # IEEE 488.2-1992, 11.5.1 (from memory): ESR bit 5 command error (32), bit 4 execution
+    # error (16); STB bit 5 ESB when ESR & ESE, bit 2 error queue not empty (SCPI-1999)
     supply.write("*ESE 48")
     supply.write("BOGUS")
     supply.write("VOLT 1e9")
@@ -174,14 +176,15 @@ def test_keeps_serving_after_garbage(rm: pyvisa.ResourceManager, bench: SimBench
         inst.write_raw(b"A" * (70 * 1024) + b"\n")  # longer than the 64 KiB line limit
         inst.write_raw(b"ROUT:CLOS (@1" + b"," * 100 + b"\n")
         assert inst.query("*IDN?").startswith("SIMULATED,RELAY")
-        # -101 invalid character [M], -363 input buffer overrun [M], -102 syntax error
+        # -101 invalid character, -363 input buffer overrun, -102 syntax error (all three
+        # from memory)
         assert error_codes(inst) == [-101, -363, -102]
     finally:
         inst.close()
 
 
 def test_query_unterminated_at_disconnect(rm: pyvisa.ResourceManager, bench: SimBench) -> None:
-    # SCPI-1999 (REFERENCES.md 5): -420 Query UNTERMINATED; here: a query whose message never
+    # SCPI-1999 Vol. 2, 21.8: -420 Query UNTERMINATED; here: a query whose message never
     # got its terminator before the client went away
     inst = open_instrument(rm, bench.resources["meter"])
     inst.write("*CLS")
@@ -199,7 +202,7 @@ def test_query_unterminated_at_disconnect(rm: pyvisa.ResourceManager, bench: Sim
 
 
 def test_query_interrupted(rm: pyvisa.ResourceManager, bench: SimBench) -> None:
-    # SCPI-1999 (REFERENCES.md 5): -410 Query INTERRUPTED: a new message arrives while the
+    # SCPI-1999 Vol. 2, 21.8: -410 Query INTERRUPTED: a new message arrives while the
     # previous answer is still unread (here an 8 MB block the client does not read)
     scope = open_instrument(rm, bench.resources["scope"])
     try:

@@ -18,11 +18,10 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from rig.planning.benchfile import load_bench  # noqa: E402
 from rig.planning.plan import build_plan  # noqa: E402
 from rig.planning.sequence import load_sequence  # noqa: E402
 from rig.runner.cycle import Runner  # noqa: E402
-from rig.runner.opener import open_bench  # noqa: E402
+from rig.runner.opener import load_bench, open_bench  # noqa: E402
 from rig.store.runfolder import RunWriter  # noqa: E402
 from tests.integration.test_runner import write_sequence  # noqa: E402
 

@@ -6,7 +6,7 @@ Target from the simulated-instrument contract: a 1,000,000-point record produced
 under a second". Figures, on the closed-form RC test double (so the World's own cost is
 small) and on the circuit-engine bench world when it is importable:
 
-- trigger search + record generation (first TRAC:PREamble? after the acquisition completed),
+- trigger search + record generation (first TRACe:SCALing? after the acquisition completed),
 - INT,8 and INT,16 fetches of the cached record: quantise, encode, send, and receive through
   pyvisa-py (header, then one counted read).
 """
@@ -51,7 +51,7 @@ def _one(rm: pyvisa.ResourceManager, config: WorldConfig, use_double: bool) -> d
                 sw.query("ROUT:CLOS (@2);*OPC?")
                 clock.sleep(2e-3)
                 t = time.perf_counter()
-                sc.query("TRAC:PRE? INT1")
+                sc.query("TRAC:SCAL? INT1")
                 out["record"].append(time.perf_counter() - t)
                 for fmt, key in (("INT,8", "int8"), ("INT,16", "int16")):
                     sc.query(f"FORM {fmt};*OPC?")

@@ -1,7 +1,10 @@
-"""Per-event metrics against published references and physics (see ../shared/REFERENCES.md).
+"""Per-event metrics against published references and physics.
 
-Flags copied from REFERENCES.md: [T] stated in a secondary text restating the source,
-[M] from memory of the source, [D] derived from [T] inputs.
+Each check names its source beside it: ANSI/ESDA/JEDEC JS-001 (the human body model network
+and its current waveform), IEC 61000-4-2 (the analytic contact-discharge current of its
+informative annex), textbook RC and series-RLC relations, and scipy.optimize.curve_fit.
+"(from memory)" marks a value recalled from the source rather than read from it; "derived"
+marks a number computed here from the cited inputs.
 """
 
 from __future__ import annotations
@@ -14,8 +17,8 @@ from rig.analysis.metrics import current_after_onset, event_metrics
 
 # --------------------------------------------------------------------------- JS-001 HBM
 
-HBM_C = 100e-12  # JS-001 network capacitance [T], REFERENCES.md section 1
-HBM_R = 1500.0  # JS-001 network resistance [T]
+HBM_C = 100e-12  # ANSI/ESDA/JEDEC JS-001 network capacitance, F
+HBM_R = 1500.0  # ANSI/ESDA/JEDEC JS-001 network resistance, ohm
 # Series inductance of the discharge path: our choice (not from the standard), so that the
 # 10-90 % rise time lands inside the 2-10 ns shorting-wire window.
 HBM_L = 3e-6
@@ -72,20 +75,21 @@ def hbm(request):
 
 def test_hbm_peak_in_shorting_wire_window(hbm):
     volts, m, _ = hbm
-    # JS-001 shorting-wire peak windows, REFERENCES.md section 1 [M]:
+    # ANSI/ESDA/JEDEC JS-001 shorting-wire peak windows (from memory):
     # 0.60-0.74 A at 1 kV, 1.20-1.48 A at 2 kV, 2.40-2.96 A at 4 kV
     windows = {1000.0: (0.60, 0.74), 2000.0: (1.20, 1.48), 4000.0: (2.40, 2.96)}
     for v, peak in zip(volts, m["peak_a"], strict=True):
         lo, hi = windows[v]
         assert lo <= peak <= hi
-    # peak about V / 1500 (0.667 A per kV) [T]; the series L takes a little off it
+    # peak about V / 1500 ohm (0.667 A per kV into a short, JS-001); the series L takes a
+    # little off it
     np.testing.assert_allclose(m["peak_a"], volts / HBM_R, rtol=0.05)
     assert not m["flag_below_noise"].any() and not m["flag_clipped"].any()
 
 
 def test_hbm_rise_and_decay_in_window(hbm):
     _, m, _ = hbm
-    # JS-001 shorting wire: rise time 2-10 ns, decay time 130-170 ns [T], section 1
+    # ANSI/ESDA/JEDEC JS-001 shorting wire: rise time 2-10 ns, decay time 130-170 ns
     assert np.all((m["rise_s"] > 2e-9) & (m["rise_s"] < 10e-9))
     assert np.all((m["decay_s"] > 130e-9) & (m["decay_s"] < 170e-9))
     assert not m["flag_truncated"].any()
@@ -94,18 +98,18 @@ def test_hbm_rise_and_decay_in_window(hbm):
 
 def test_hbm_charge_and_energy_follow_physics(hbm):
     volts, m, _ = hbm
-    # Q = C V: 0.1 uC per kV [D], REFERENCES.md section 1
+    # Q = C V (textbook) with the JS-001 100 pF: 0.1 uC per kV (derived)
     np.testing.assert_allclose(m["charge_c"], HBM_C * volts, rtol=0.01)
     np.testing.assert_allclose(m["c_equiv_f"], HBM_C, rtol=0.01)
-    # E = C V^2 / 2 all dissipated in R (energy balance, section 6; 50 uJ at 1 kV,
-    # 0.8 mJ at 4 kV [D], section 1)
+    # E = C V^2 / 2 all dissipated in R (textbook energy balance; 50 uJ at 1 kV, 0.8 mJ at
+    # 4 kV with the JS-001 100 pF, derived)
     np.testing.assert_allclose(m["energy_j"], 0.5 * HBM_C * volts**2, rtol=0.02)
     np.testing.assert_allclose(m["energy_j"][[0, 2]], [50e-6, 0.8e-3], rtol=0.02)
 
 
 def test_hbm_time_constant(hbm):
     _, m, tau_slow = hbm
-    # ideal network: tau = R C = 150 ns into a short [D], section 1
+    # ideal JS-001 network: tau = R C = 1500 ohm x 100 pF = 150 ns into a short (derived)
     np.testing.assert_allclose(m["tau_s"], HBM_R * HBM_C, rtol=0.03)
     # the tail of the series RLC decays with its slow root exactly (textbook)
     np.testing.assert_allclose(m["tau_s"], tau_slow, rtol=0.01)
@@ -113,9 +117,10 @@ def test_hbm_time_constant(hbm):
 
 
 def test_hbm_moment_ratio_gives_rc():
-    # Published ESD literature (REFERENCES.md section 1 [T]): the first time moment over the
-    # zeroth gives R C for the discharge, here checked on the float record that the metrics
-    # see, with the metrics' charge as the zeroth moment.
+    # The first time moment over the zeroth gives R C for the discharge: for
+    # i = V/R exp(-t/RC), int t i dt / int i dt = RC (textbook RC relation, the mean of an
+    # exponential); checked on the float record that the metrics see, with the metrics'
+    # charge as the zeroth moment.
     n = 20_000
     t = HBM_DT * np.arange(n)
     i, _ = rlc_discharge(1000.0, t)
@@ -130,8 +135,9 @@ def test_hbm_moment_ratio_gives_rc():
 
 
 def heidler_4kv(t: np.ndarray) -> np.ndarray:
-    """IEC 61000-4-2 informative annex: sum of two Heidler terms at 4 kV, REFERENCES.md
-    section 2 [T] (I1 16.6 A, t1 1.1 ns, t2 2 ns, I2 9.3 A, t3 12 ns, t4 37 ns, n 1.8)."""
+    """IEC 61000-4-2, informative annex (analytic contact-discharge current): sum of two
+    Heidler terms at 4 kV (I1 16.6 A, t1 1.1 ns, t2 2 ns, I2 9.3 A, t3 12 ns, t4 37 ns,
+    n 1.8)."""
     n = 1.8
     tt = np.maximum(t, 0.0)
 
@@ -157,11 +163,12 @@ def iec():
 
 def test_iec_first_peak_and_rise(iec):
     m, _, _ = iec
-    # first peak 3.75 A per kV = 15 A at 4 kV [T], tolerance +-15 % (edition 2.0) [M]
+    # IEC 61000-4-2: first peak 3.75 A per kV = 15 A at 4 kV (150 pF / 330 ohm network),
+    # tolerance +-15 % (edition 2.0, from memory)
     assert 15.0 * 0.85 <= m["peak_a"][0] <= 15.0 * 1.15
-    # rise time 0.8 ns +-25 % (edition 2.0) [M]
+    # IEC 61000-4-2: rise time 0.8 ns +-25 % (edition 2.0, from memory)
     assert 0.8e-9 * 0.75 <= m["rise_s"][0] <= 0.8e-9 * 1.25
-    # computed from the annex formula: first peak 14.92 A at 1.46 ns, rise 0.811 ns [D]
+    # computed from the annex formula: first peak 14.92 A at 1.46 ns, rise 0.811 ns (derived)
     assert m["peak_a"][0] == pytest.approx(14.92, rel=0.01)
     assert m["t_peak_s"][0] == pytest.approx(1.46e-9, rel=0.01)
     assert m["rise_s"][0] == pytest.approx(0.811e-9, rel=0.01)
@@ -169,10 +176,11 @@ def test_iec_first_peak_and_rise(iec):
 
 def test_iec_i30_i60_and_charge(iec):
     m, i30, i60 = iec
-    # I30 = 8 A and I60 = 4 A at 4 kV, +-30 %, from the 10 % point [T]/[M], section 2
+    # IEC 61000-4-2: I30 = 8 A and I60 = 4 A at 4 kV (2 A and 1 A per kV); the +-30 %
+    # tolerance and the 10 % point as the time origin are from memory
     assert 8.0 * 0.7 <= i30 <= 8.0 * 1.3
     assert 4.0 * 0.7 <= i60 <= 4.0 * 1.3
-    # computed from the annex formula: I30 8.03 A, I60 4.04 A, integral 0.585 uC [D]
+    # computed from the annex formula: I30 8.03 A, I60 4.04 A, integral 0.585 uC (derived)
     assert i30 == pytest.approx(8.03, rel=0.01)
     assert i60 == pytest.approx(4.04, rel=0.01)
     assert m["charge_c"][0] == pytest.approx(0.585e-6, rel=0.01)

@@ -1,4 +1,10 @@
-"""Circuit engine against closed forms and textbook worked examples (REFERENCES.md section 6)."""
+"""Circuit engine against closed forms and textbook worked examples.
+
+Sources, named again beside each check: the first-order RC relations and conservation of energy
+(any circuits textbook), the capacitor-discharge worked example of Cambridge International
+AS/A-level physics, and the defibrillator problem of OpenStax University Physics Volume 2
+(RC circuits).
+"""
 
 from __future__ import annotations
 
@@ -24,17 +30,18 @@ def test_rc_discharge_current_charge_energy(c: float, r: float, v0: float) -> No
     t = _dense(30 * tau)
     tr = _rc(c, r).simulate([Step(0.0)], t, {"v(a)": v0}, ["i(R1)"])
     i = tr["i(R1)"]
-    # textbook RC discharge i = V/R exp(-t/RC) (REFERENCES.md section 6, [T])
+    # textbook RC discharge i(t) = (V/R) exp(-t/RC) (any circuits textbook)
     np.testing.assert_allclose(i, v0 / r * np.exp(-t / tau), rtol=1e-3, atol=1e-12)
-    # Q = C V and E = C V^2 / 2 (REFERENCES.md section 6, [T]), within 0.1 %
+    # Q = C V and E = C V^2 / 2 (any circuits textbook), within 0.1 %
     assert simpson(i, x=t) == pytest.approx(c * v0, rel=1e-3)
     assert simpson(i**2 * r, x=t) == pytest.approx(c * v0**2 / 2, rel=1e-3)
 
 
 def test_cambridge_worked_example() -> None:
-    # Cambridge International AS/A-level physics notes (REFERENCES.md section 6, [T]/[D]):
+    # Worked example, Cambridge International AS/A-level physics, capacitor discharge:
     # C = 100 uF, V0 = 12 V, R = 2 kohm: tau = 0.2 s, Q0 = 1.2 mC, I0 = 6 mA,
-    # V(0.5 s) = 0.985 V, E = 7.2 mJ.
+    # V(0.5 s) = 0.985 V, E = 7.2 mJ (the example's figures, or derived from its inputs
+    # with tau = RC, Q = CV, E = CV^2/2).
     circ = _rc(100e-6, 2e3)
     assert circ.time_constants([])[0] == pytest.approx(0.2, rel=1e-6)
     t = _dense(6.0)
@@ -47,9 +54,9 @@ def test_cambridge_worked_example() -> None:
 
 
 def test_openstax_defibrillator_example() -> None:
-    # OpenStax University Physics, defibrillator problem (REFERENCES.md section 6, [T]/[D]):
-    # tau = 10.0 ms, C = 8.00 uF (so R = 1.25 kohm); 12.0 kV falls to 600 V after
-    # tau ln 20 = 30.0 ms.
+    # OpenStax University Physics Volume 2, RC circuits, defibrillator problem:
+    # tau = 10.0 ms, C = 8.00 uF (so R = tau / C = 1.25 kohm, derived); 12.0 kV falls to
+    # 600 V after tau ln 20 = 30.0 ms.
     circ = _rc(8.00e-6, 1.25e3)
     assert circ.time_constants([])[0] == pytest.approx(10.0e-3, rel=1e-9)
     t20 = 10.0e-3 * np.log(20.0)
@@ -60,7 +67,7 @@ def test_openstax_defibrillator_example() -> None:
 
 
 def test_underdamped_series_rlc() -> None:
-    # Series RLC natural response, under-damped (any circuits textbook [M]):
+    # Series RLC natural response, under-damped (any circuits textbook; formula from memory):
     # i(t) = V0 / (L wd) exp(-alpha t) sin(wd t), alpha = R / 2L, wd^2 = 1/LC - alpha^2.
     c, r, ind, v0 = 470e-12, 5.0, 200e-9, 1000.0
     circ = Circuit(
@@ -101,8 +108,10 @@ def meter_with_load(name: str, load_ohms: float, henry: float) -> tuple[Circuit,
 
 @pytest.mark.parametrize("mode", ["AC V", "DC V"])
 def test_energy_balance_full_discharge(mode: str) -> None:
-    # Conservation of energy (REFERENCES.md section 6, textbook): over a complete discharge the
-    # energy dissipated in all resistors equals the energy initially stored, sum C V^2 / 2.
+    # Conservation of energy (any circuits textbook): in a network of R and C only, over a
+    # complete discharge the energy dissipated in all resistors equals the energy initially
+    # stored, sum C V^2 / 2. The inductances here (wiring, jack lead) carry no current at the
+    # start or at the end, so they add nothing to either side.
     circ, net = meter_with_load("demo-a", 500.0, 200e-9)
     ms = net.closed_switches(mode)
     x0 = circ.simulate([Step(0.0, ms | {"Kc"}, {"Isup": 1.0})], [], t_end=2.0).x_end
@@ -138,7 +147,7 @@ def test_energy_balance_full_discharge(mode: str) -> None:
 def test_floating_capacitor_gets_documented_stray() -> None:
     # a capacitor with no capacitive path to ground (a coupling capacitor between two
     # resistors) is solved with the documented 1 pF strays; it still discharges as a
-    # textbook RC through R1 + R2 (REFERENCES.md section 6, [T]) within 0.1 %
+    # textbook RC through R1 + R2, i(t) = (V/R) exp(-t/RC) (any circuits textbook), within 0.1 %
     c, r1, r2, v0 = 100e-9, 1e3, 2e3, 500.0
     circ = Circuit(
         [

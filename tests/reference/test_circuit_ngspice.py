@@ -1,4 +1,4 @@
-"""Circuit engine against ngspice on the demo meters (REFERENCES.md section 7).
+"""Circuit engine against ngspice (Debian package ``ngspice``) on the demo meters.
 
 Each demo meter in each mode is charged to 1 kV, then discharged into a short (0.05 ohm with
 200 nH of wiring) and into 500 ohm; the network is exported to an ngspice deck and run with
@@ -49,7 +49,7 @@ def test_discharge_matches_ngspice(meter: str, mode: str, load: str) -> None:
     for k, name in enumerate(outs):
         peak = np.abs(ref.y[k]).max()
         dev = np.abs(got.y[k] - ref.y[k]).max()
-        # ngspice transient of the same netlist (REFERENCES.md section 7): within 0.5 % of peak
+        # reference: ngspice transient (.tran ... uic) of the same netlist, within 0.5 % of peak
         assert dev <= 5e-3 * peak, f"{name}: {100 * dev / peak:.3f} % of peak {peak:.4g}"
     # the record covers the whole event: amperes at first, the tail has died out at the end
     assert np.abs(ref.y[0]).max() > 1.0
@@ -72,7 +72,7 @@ def test_charge_phase_matches_ngspice(meter: str, mode: str) -> None:
     for k, name in enumerate(outs):
         peak = np.abs(ref.y[k]).max()
         dev = np.abs(got.y[k] - ref.y[k]).max()
-        # ngspice transient of the same netlist (REFERENCES.md section 7): within 0.5 % of peak
+        # reference: ngspice transient (.tran ... uic) of the same netlist, within 0.5 % of peak
         assert dev <= 5e-3 * peak, f"{name}: {100 * dev / peak:.3f} % of peak {peak:.4g}"
 
 

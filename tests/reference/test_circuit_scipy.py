@@ -1,4 +1,4 @@
-"""Circuit engine against scipy on random small RC networks (REFERENCES.md section 7).
+"""Circuit engine against scipy.linalg.expm and scipy.signal.lsim on random small RC networks.
 
 The reference builds its own nodal matrices (``Cn v' = -G v + b``) straight from the drawn
 elements, then uses ``scipy.linalg.expm`` and ``scipy.signal.lsim``: nothing of the engine's
@@ -81,7 +81,7 @@ def test_random_rc_against_expm(net) -> None:
     for j, tj in enumerate(t):
         M = np.zeros((n + 1, n + 1))
         M[:n, :n], M[:n, n] = A * tj, B[:, 0] * amps * tj
-        E = scipy.linalg.expm(M)  # scipy.linalg.expm (REFERENCES.md section 7)
+        E = scipy.linalg.expm(M)  # reference: scipy.linalg.expm, matrix exponential
         ref[:, j] = E[:n, :n] @ v0 + E[:n, n]
     scale = max(np.abs(ref).max(), 1e-9)
     assert np.abs(got.y - ref).max() <= 1e-6 * scale
@@ -90,7 +90,7 @@ def test_random_rc_against_expm(net) -> None:
 
 
 def test_rc_ladder_against_lsim() -> None:
-    # three-section RC ladder driven by a current step, scipy.signal.lsim (REFERENCES.md 7)
+    # three-section RC ladder driven by a current step; reference: scipy.signal.lsim
     els = [
         Element("I1", "I", "0", "a"),
         Element("R0", "R", "a", "0", 10e3),

@@ -20,13 +20,13 @@ from rig.analysis.stats import (
 
 
 def test_tolerance_factor_nist_handbook_examples():
-    # NIST/SEMATECH e-Handbook of Statistical Methods 7.2.6.3, REFERENCES.md section 4:
-    # N = 43, p = 0.90, gamma = 0.99: k1 = 1.8752 approximate [T], 1.8740 exact [D]
+    # NIST/SEMATECH e-Handbook of Statistical Methods, section 7.2.6.3 (tolerance factors):
+    # N = 43, p = 0.90, gamma = 0.99: k1 = 1.8752 approximate, 1.8740 exact
     assert tolerance_factor_approx(43, coverage=0.90, confidence=0.99) == pytest.approx(
         1.8752, abs=5e-4
     )
     assert tolerance_factor(43, coverage=0.90, confidence=0.99) == pytest.approx(1.8740, abs=5e-4)
-    # second published example, N = 40: 1.9034 approximate, 1.9017 exact [T]
+    # second published example of that section, N = 40: 1.9034 approximate, 1.9017 exact
     assert tolerance_factor_approx(40, coverage=0.90, confidence=0.99) == pytest.approx(
         1.9034, abs=5e-4
     )

@@ -17,12 +17,11 @@ import pandas as pd
 import pytest
 
 from rig.analysis.analyze import METRIC_COLUMNS, analyze_run, compute_metrics
+from rig.analysis.baseline import baseline_int8
 from rig.analysis.compare import COMPARE_COLUMNS, all_equivalent, compare_runs, write_comparison
 from rig.analysis.measure import measure_file
-from rig.analysis.metrics import _baseline_int8 as baseline_int8
-from rig.analysis.metrics import _count_pulses_blocks as count_pulses_blocks
-from rig.analysis.metrics import _count_pulses_sparse as count_pulses_sparse
 from rig.analysis.metrics import event_metrics
+from rig.analysis.pulses import count_pulses_blocks, count_pulses_sparse
 from rig.analysis.selfdischarge import SELFDISCHARGE_COLUMNS, fit_self_discharge, self_discharge
 from rig.analysis.stats import GROUPS_COLUMNS
 from rig.store.waveform import Waveform, save_waveform
@@ -261,12 +260,13 @@ def test_bounce_pulses_clipping_and_truncation():
 def test_indicators():
     t = (np.arange(N) - PRE) * DT
     m = event_metrics(pulse(1500.0, 2e-9, 50.0, t)[None, :], dt=DT, t0=t[0])
-    # ind_hbm_volts = |peak| x 1500 ohm; HBM 100 pF at that voltage (JS-001 network [T])
+    # ind_hbm_volts = |peak| x 1500 ohm; HBM 100 pF at that voltage, Q = C V, E = C V^2 / 2
+    # (HBM network 100 pF / 1500 ohm: ANSI/ESDA/JEDEC JS-001; textbook capacitor relations)
     assert m["ind_hbm_volts"][0] == pytest.approx(m["abs_peak_a"][0] * 1500.0)
     assert m["ind_hbm_charge_c"][0] == pytest.approx(100e-12 * m["ind_hbm_volts"][0])
     assert m["ind_hbm_energy_j"][0] == pytest.approx(0.5 * 100e-12 * m["ind_hbm_volts"][0] ** 2)
-    # stored charge against 45 uC (IEC 61010-1 [T]): 3 uC here (+1 %: the ideal step at t = 0
-    # adds half a sample, dt / (2 tau), to the sampled integral)
+    # stored charge against 45 uC (IEC 61010-1 stored-charge figure): 3 uC here (+1 %: the
+    # ideal step at t = 0 adds half a sample, dt / (2 tau), to the sampled integral)
     assert m["ind_iec61010_charge_ratio"][0] == pytest.approx(3e-6 / 45e-6, rel=0.015)
 
 
@@ -328,7 +328,7 @@ def test_analyze_run_end_to_end(tmp_path, limits):
     assert np.isnan(m.loc[m.event == 3, "peak_a"]).all()
     assert m.loc[m.event == 12, "flag_below_noise"].all()
     ok = m[~m.flag_not_captured & ~m.flag_below_noise]
-    # physics of the invented sources: Q = C V, tau = R C (REFERENCES.md section 6)
+    # physics of the invented sources: Q = C V, tau = R C (textbook RC relations)
     for mode, (c, r) in MODES.items():
         sel = ok[ok["mode"] == mode]
         np.testing.assert_allclose(sel["c_equiv_f"].median(), c, rtol=0.03)
@@ -476,7 +476,7 @@ def test_measure_csv_npy_and_errors(tmp_path):
     csv = tmp_path / "scope.csv"
     pd.DataFrame({"Time (s)": t, "Current (A)": i}).to_csv(csv, index=False)
     m = measure_file(csv, charge_volts=100.0, load_ohms=50.0)
-    # Q = C V = 200 nC; E in R = C V^2 / 2 = 10 uJ; tau = R C (textbook, section 6)
+    # Q = C V = 200 nC; E in R = C V^2 / 2 = 10 uJ; tau = R C (textbook RC relations)
     assert m["charge_c"] == pytest.approx(200e-9, rel=0.01)
     assert m["energy_j"] == pytest.approx(10e-6, rel=0.03)
     assert m["tau_s"] == pytest.approx(100e-9, rel=0.01)
@@ -578,7 +578,7 @@ def test_run_without_captures_analyses_as_main(tmp_path):
 def test_integer_envelope_equals_the_float_one():
     """The crossing search's block minima taken on raw codes equal those of the float trace
     (both polarities, int8 and int16): a speed-up must not change a number."""
-    from rig.analysis.metrics import _block_min, _envelope
+    from rig.analysis.shape import block_min, envelope
 
     rng = np.random.default_rng(3)
     for dtype in (np.int8, np.int16):
@@ -590,7 +590,7 @@ def test_integer_envelope_equals_the_float_one():
             np.subtract(raw, base[:, None].astype(np.float32), out=y, casting="unsafe")
             for i in neg:
                 np.negative(y[i], out=y[i])
-            assert np.array_equal(_block_min(y, 64), _envelope(raw, y, base, neg, True, np.float32))
+            assert np.array_equal(block_min(y, 64), envelope(raw, y, base, neg, True, np.float32))
 
 
 def test_repair_gate_judges_the_groups_the_run_retested():

@@ -11,7 +11,8 @@ from rigbase.errors import LimitError, SafetyError
 
 
 def bench(simulated: bool, hazardous: float = 60.0):
-    # 60 V d.c.: hazardous-live level of IEC 61010-1 (earlier editions), REFERENCES.md section 3
+    # 60 V d.c.: hazardous-live d.c. level of IEC 61010-1 editions before 3 (edition 3, 2010:
+    # 70 V d.c.); clause 6.3.1 a) (clause number from memory)
     return SimpleNamespace(
         simulation=object() if simulated else None,
         limits=SimpleNamespace(hazardous_live_volts=hazardous),
@@ -52,8 +53,9 @@ def test_typed_confirmation(monkeypatch):
 
 
 def test_measure_command_on_a_textbook_rc_discharge(tmp_path, capsys):
-    """1 kV on 100 pF through 1500 ohm: Q = CV = 100 nC, tau = RC = 150 ns (REFERENCES.md
-    sections 1 and 6, JS-001 network and the RC relations)."""
+    """1 kV on 100 pF through 1500 ohm (the HBM network of ANSI/ESDA/JEDEC JS-001):
+    Q = CV = 100 nC, tau = RC = 150 ns, C = Q / V = 100 pF (RC relations, any circuits
+    textbook)."""
     import json
 
     import numpy as np

@@ -13,7 +13,7 @@ from rig.store.waveform import Waveform
 
 
 def rc_waveform(dt: float, n: int, amps: float, tau: float) -> Waveform:
-    """An RC discharge i = I0 exp(-t/tau) as int16 codes (REFERENCES.md section 6)."""
+    """An RC discharge i = I0 exp(-t/tau) as int16 codes (textbook RC relation)."""
     t = np.arange(n) * dt - 0.1 * n * dt
     i = np.where(t >= 0, amps * np.exp(-np.clip(t, 0, None) / tau), 0.0)
     gain = 2.5 * amps / 65536  # full scale above the peak: no clipping
@@ -46,5 +46,5 @@ def test_terminal_table_shows_peak_for_fast_and_charge_for_long_captures():
     assert "|peak|" in text and "charge" in text
     assert "20 A" in text  # the fast capture's peak
     # the long capture's charge: I0 tau (1 - exp(-T/tau)) = 10 mA x 200 us x (1 - e^-4.5)
-    # = 1.978 uC over the 0.9 ms after the trigger (RC relation, REFERENCES.md section 6)
+    # = 1.978 uC over the 0.9 ms after the trigger (integral of the textbook RC discharge)
     assert "1.98 µC" in text

@@ -17,17 +17,19 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from drivers.sim.interfaces import BenchWiring, LoadSpec, WorldConfig
+from drivers.sim.interfaces import BenchWiring, LoadSpec, SenseSpec, WorldConfig
 from rig.planning.benchfile import (
     PROFILES_DIR,
     SIM_METERS_DIR,
     Limits,
-    load_bench,
+    Load,
     netlist_modes,
     parse_si,
+    read_bench_file,
     resolve_meter_model,
 )
 from rig.planning.sequence import load_sequence
+from rig.runner.opener import load_bench
 from rigbase.errors import FileFormatError
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -168,8 +170,8 @@ def test_sim_demo_bench_values():
     assert set(bench.instruments) == {"supply", "switch", "scope", "meter"}
     assert bench.instruments["supply"].profile == PROFILES_DIR / "scpi1999.toml"
     assert bench.charge_ohms == 100e3 and bench.bleed_ohms == 10e3
-    assert bench.load("short") == LoadSpec("short", 0.05, 200e-9, 4)
-    assert bench.load("500R") == LoadSpec("500R", 500.0, 300e-9, 5)
+    assert bench.load("short") == Load("short", 0.05, 200e-9, 4)
+    assert bench.load("500R") == Load("500R", 500.0, 300e-9, 5)
     assert bench.divider_ratio == 1000 and bench.divider_ohms == 100e6
     assert bench.limits.max_volts == 1100 and bench.limits.safe_residual_volts == 1
     world = bench.simulation.world
@@ -181,14 +183,28 @@ def test_sim_demo_bench_values():
         supply_output_ohms=1e3,
         charge_ohms=100e3,
         bleed_ohms=10e3,
-        loads=bench.loads,
-        sense=bench.sense,
+        loads=tuple(LoadSpec(ld.name, ld.ohms, ld.henry, ld.channel) for ld in bench.loads),
+        sense=SenseSpec(**vars(bench.sense)),
         divider_ratio=1000.0,
         divider_ohms=100e6,
     )
     assert Path(world.meter_model) == SIM_METERS_DIR / "demo-a.toml"
     assert bench.raw["charge_ohms"] == 100e3  # the SI string resolved to a number
-    assert bench.wiring == world.wiring
+
+
+def test_simulation_table_is_read_by_the_simulator_for_check_and_run_alike(tmp_path):
+    """The controller's reader leaves [simulation] unread; the opener's load_bench (which
+    check, run, resume and sim serve all call) has the simulator read it, typos included."""
+    unread = read_bench_file(SIM_BENCH)
+    assert unread.simulation is not None and unread.simulation.world is None
+    text = SIM_BENCH.read_text().replace("[simulation]", "[simulation]\nnoise_volt = 1e-3", 1)
+    bad = tmp_path / "bench.toml"
+    bad.write_text(text)
+    read_bench_file(bad)  # the controller does not know the simulator's keys
+    with pytest.raises(
+        FileFormatError, match=r"simulation\.noise_volt.*did you mean 'noise_volts'"
+    ):
+        load_bench(bad)
 
 
 def test_lab_template_is_real_hardware_with_manual_meter():
@@ -233,9 +249,9 @@ def test_qualification_matches_the_demo_brief():
 
 def test_safety_defaults_are_the_iec_61010_values():
     lim = Limits(max_volts=1000.0, current_limit_amps=0.01)
-    # IEC 61010-1 (earlier editions): hazardous live 60 V d.c.; REFERENCES.md section 3 [T]
+    # IEC 61010-1 (earlier editions): hazardous live 60 V d.c. (edition 3, 2010: 70 V d.c.)
     assert lim.hazardous_live_volts == 60.0
-    # IEC 61010-1: stored-charge limit 45 uC for voltages up to 15 kV; REFERENCES.md 3 [T]
+    # IEC 61010-1: stored-charge limit 45 uC for voltages up to 15 kV
     assert lim.stored_charge_limit_c == 45e-6
     assert lim.safe_residual_volts == 1.0  # project default (common practice, no source)
 

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pytest
 
-from rig.planning.benchfile import Bench, load_bench
+from rig.planning.benchfile import Bench
 from rig.planning.plan import (
     EVENT_OVERHEAD_S,
     METER_CHANGE_S,
@@ -23,6 +23,7 @@ from rig.planning.plan import (
     safety_review,
 )
 from rig.planning.sequence import load_sequence
+from rig.runner.opener import load_bench
 
 ROOT = Path(__file__).resolve().parents[2]
 SIM_BENCH = ROOT / "sequences" / "benches" / "sim-demo.toml"
@@ -296,7 +297,8 @@ def test_estimate_by_hand(tmp_path):
     bench, seq, plan = make(tmp_path, reps=2, dwell=1.0, hold=0.5)
     n = len(plan.events)
     record = 20000 * 1e-9
-    # bleed to the safe residual: R_bleed C ln(V / V_safe) (textbook RC decay, REFERENCES.md 6)
+    # bleed to the safe residual: R_bleed C ln(V / V_safe), from the RC decay V exp(-t/RC)
+    # (any circuits textbook)
     bleed = {v: 10e3 * C_IN * math.log(v / 1.0) for v in (1000.0, 500.0)}
     per_event = sum(
         1.0 + e.delay_s + record + bleed[e.volts] + 0.5 + EVENT_OVERHEAD_S for e in plan.events
@@ -347,7 +349,7 @@ def test_review_short_dwell_gives_the_rc_charge_fraction(tmp_path):
         f for f in safety_review(plan, bench, seq) if "shorter than 5 time constants" in f.message
     ]
     assert {f.level for f in msgs} == {"warn"} and len(msgs) == 2  # one per meter
-    # charged fraction 1 - exp(-t/RC) (textbook first-order charge, REFERENCES.md section 6)
+    # charged fraction 1 - exp(-t/RC) (first-order RC charge, any circuits textbook)
     assert f"{100 * (1 - math.exp(-0.2 / tau)):.0f} %" in msgs[0].message
     _, seq_ok, plan_ok = make(tmp_path, dwell=5 * tau * 1.01)
     assert not [

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from drivers.profile import OPERATIONS, PREAMBLE_FIELDS, PROFILE_DIR, Profile
+from drivers.profile import OPERATIONS, PROFILE_DIR, SCALING_FIELDS, Profile
 from rigbase.errors import FileFormatError, ProfileError
 
 SHIPPED = PROFILE_DIR / "scpi1999.toml"
@@ -106,12 +106,12 @@ CASES = [
     ("range-missing", lambda t: edit(t, "supply.ranges", "amps", None), "supply.ranges.amps", "missing"),
     ("range-unknown", lambda t: edit(t, "scope.ranges", "volts", "[0, 1]"), "scope.ranges.volts", "unknown"),
     ("ranges-table-missing", lambda t: drop_table(t, "switch.ranges"), "switch.ranges", "missing"),
-    ("preamble-missing-field", lambda t: edit(t, "scope.preamble_fields", "y_reference", None), "scope.preamble_fields.y_reference", "missing"),
-    ("preamble-duplicate", lambda t: edit(t, "scope.preamble_fields", "y_reference", "4"), "scope.preamble_fields.y_reference", "already used"),
-    ("preamble-negative", lambda t: edit(t, "scope.preamble_fields", "points", "-1"), "scope.preamble_fields.points", "integer"),
-    ("preamble-float", lambda t: edit(t, "scope.preamble_fields", "points", "0.0"), "scope.preamble_fields.points", "integer"),
-    ("preamble-unknown", lambda t: edit(t, "scope.preamble_fields", "x_scale", "9"), "scope.preamble_fields.x_scale", "unknown"),
-    ("preamble-table-missing", lambda t: drop_table(t, "scope.preamble_fields"), "scope.preamble_fields", "missing"),
+    ("scaling-missing-field", lambda t: edit(t, "scope.scaling_fields", "reference_code", None), "scope.scaling_fields.reference_code", "missing"),
+    ("scaling-duplicate", lambda t: edit(t, "scope.scaling_fields", "reference_code", "4"), "scope.scaling_fields.reference_code", "already used"),
+    ("scaling-negative", lambda t: edit(t, "scope.scaling_fields", "points", "-1"), "scope.scaling_fields.points", "integer"),
+    ("scaling-float", lambda t: edit(t, "scope.scaling_fields", "points", "0.0"), "scope.scaling_fields.points", "integer"),
+    ("scaling-unknown", lambda t: edit(t, "scope.scaling_fields", "x_scale", "9"), "scope.scaling_fields.x_scale", "unknown"),
+    ("scaling-table-missing", lambda t: drop_table(t, "scope.scaling_fields"), "scope.scaling_fields", "missing"),
     ("functions-missing", lambda t: drop_table(t, "meter.functions"), "meter.functions", "missing"),
     ("function-empty", lambda t: edit(t, "meter.functions", '"AC V"', '""'), "meter.functions", "non-empty"),
     ("table-is-value", lambda t: drop_table(t, "common") + 'common = "x"\n', "common", "table"),
@@ -173,7 +173,7 @@ def test_shipped_profile_loads_by_name_and_by_path() -> None:
     assert by_name.name == "generic SCPI-1999"
     for role, ops in OPERATIONS.items():
         assert set(by_name.templates[role]) == set(ops)
-    assert set(by_name.preamble_fields) == set(PREAMBLE_FIELDS)
+    assert set(by_name.scaling_fields) == set(SCALING_FIELDS)
 
 
 def test_shipped_profile_commands_and_ranges() -> None:
@@ -205,7 +205,8 @@ def test_meter_function_map_and_readback_forms() -> None:
     assert p.meter_function("AC V") == "VOLTage:AC"
     with pytest.raises(ProfileError, match="meter.functions"):
         p.meter_function("Capacitance")
-    # an instrument may answer in short or long form, any case, quoted (REFERENCES.md sec. 5)
+    # an instrument may answer in short or long form, any case, quoted (SCPI-1999 Vol. 1,
+    # 6.2.1 mnemonics)
     assert p.meter_mode('"VOLT:AC"') == "AC V"
     assert p.meter_mode("voltage:ac:mill") == "AC mV"
     assert p.meter_mode("RES") == "Ohm"

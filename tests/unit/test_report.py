@@ -14,6 +14,7 @@ import pandas as pd
 import pytest
 
 from rig.report import figures as F
+from rig.report.html import _CSS
 from rig.report.page import write_report
 from rigbase.errors import RunFolderError
 from rigbase.units import eng, eng_scale
@@ -389,8 +390,8 @@ def test_thinning_keeps_a_one_sample_spike():
 
 
 def test_log_bins_follow_an_exponential_tail():
-    """Bin means of i = I0 exp(-t/tau) stay on the curve (textbook RC discharge,
-    REFERENCES.md 6) within the curvature error of the widest bin."""
+    """Bin means of i = I0 exp(-t/tau) stay on the curve (textbook RC discharge
+    i = V/R exp(-t/RC)) within the curvature error of the widest bin."""
     dt, tau, i0 = 1e-8, 1e-4, 0.5
     t = np.arange(-200, 100_000) * dt
     y = np.where(t >= 0, i0 * np.exp(-t / tau), 0.0)
@@ -413,7 +414,8 @@ def test_log_panel_starts_one_sample_after_the_trigger():
 
 
 def test_palette_is_okabe_ito():
-    # Okabe & Ito (2008), Color Universal Design: the eight published colours
+    # the Okabe-Ito colour-blind-safe palette (M. Okabe and K. Ito, "Color Universal Design",
+    # 2002, revised 2008): the eight published colours
     assert set(F.OKABE_ITO.values()) == {
         "#000000",
         "#E69F00",
@@ -426,6 +428,57 @@ def test_palette_is_okabe_ito():
     }
     cm = F.colour_map(["a", "b", "a", "c"])
     assert list(cm) == ["a", "b", "c"] and len(set(cm.values())) == 3
+
+
+def _wcag_contrast(fg: str, bg: str) -> float:
+    """Contrast ratio (L1 + 0.05) / (L2 + 0.05) of two sRGB colours ``#rrggbb``, with the
+    relative luminance L = 0.2126 R + 0.7152 G + 0.0722 B of linearised channels
+    (c / 12.92 up to 0.03928, else ((c + 0.055) / 1.055) ^ 2.4): WCAG 2.1, definitions of
+    "contrast ratio" and "relative luminance". (WCAG 2.2 writes 0.04045 for 0.03928; no 8-bit
+    value lies between the two, so both give the same ratios here.)"""
+
+    def luminance(colour: str) -> float:
+        rgb = [int(colour[i : i + 2], 16) / 255 for i in (1, 3, 5)]
+        lin = [c / 12.92 if c <= 0.03928 else ((c + 0.055) / 1.055) ** 2.4 for c in rgb]
+        return 0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2]
+
+    hi, lo = sorted((luminance(fg), luminance(bg)), reverse=True)
+    return (hi + 0.05) / (lo + 0.05)
+
+
+def test_report_colours_keep_wcag_aa_contrast():
+    """Every text colour of the stylesheet on each background it is used on keeps at least
+    4.5:1: WCAG 2.1, 1.4.3 Contrast (Minimum), level AA for normal text."""
+    # the formula itself: black on white is the maximum 21:1 (WCAG 2.1 definition); #767676
+    # is the lightest grey that passes on white (4.54:1) and #777777 just fails (4.48:1)
+    # (common practice, values from memory)
+    assert _wcag_contrast("#000000", "#ffffff") == pytest.approx(21.0)
+    assert _wcag_contrast("#767676", "#ffffff") == pytest.approx(4.54, abs=0.01)
+    assert _wcag_contrast("#777777", "#ffffff") < 4.5
+    root = re.search(r":root\{([^}]*)\}", _CSS)
+    assert root is not None
+    colours = dict(re.findall(r"--([a-z-]+):(#[0-9a-f]{6})", root.group(1)))
+    # every colour of the page is named in :root, so the pairs below cover them all
+    assert len(re.findall(r"#[0-9a-fA-F]{3,6}\b", _CSS)) == len(colours)
+    pairs = [  # (text, background) as the stylesheet and the page's classes combine them
+        ("ink", "paper"),  # body text
+        ("ink", "head"),  # table headers
+        ("ink", "caution-bg"),  # the caution box
+        ("mute", "paper"),  # .n notes, captions, navigation
+        ("mute", "head"),  # notes inside a header cell
+        ("mute", "caution-bg"),  # notes inside the caution box
+        ("mute", "other-bg"),  # verdicts other than pass/fail
+        ("pass", "pass-bg"),  # pass verdicts
+        ("paper", "fail"),  # fail verdicts
+        ("fail", "paper"),  # .warn
+        ("fail", "caution-bg"),  # .warn inside the caution box
+    ]
+    low = {
+        (fg, bg): round(_wcag_contrast(colours[fg], colours[bg]), 2)
+        for fg, bg in pairs
+        if _wcag_contrast(colours[fg], colours[bg]) < 4.5
+    }
+    assert not low, f"below WCAG 2.1 AA (4.5:1): {low}"
 
 
 def test_dollar_in_names_does_not_break_matplotlib(tmp_path):

@@ -1,7 +1,8 @@
 """Unit tests of the SCPI server core (parser, status, error queue, blocks) without sockets.
 
-Rules checked come from SCPI-1999 and IEEE 488.2 as summarised in REFERENCES.md section 5;
-each assertion names the rule it checks.
+Rules checked come from SCPI-1999 (Vol. 1 syntax and style, Vol. 2 21.8 error list) and
+IEEE 488.2-1992; each assertion names the rule and clause it checks, and says "from memory"
+where the clause or value is quoted from memory.
 """
 
 from __future__ import annotations
@@ -89,7 +90,7 @@ def test_pattern_short_and_long_forms() -> None:
      ":VOLT:LEV:IMM:AMPLITUDE", "SOURCE:VOLT:IMMEDIATE"],
 )  # fmt: skip
 def test_short_long_any_case_and_optional_nodes(dev: _Probe, header: str) -> None:
-    # SCPI-1999 vol. 1 6.2.1 (REFERENCES.md 5): short or long form in any case, optional nodes
+    # SCPI-1999 Vol. 1, 6.2.1 mnemonics: short or long form in any case, optional nodes
     dev.execute(f"{header} 12".encode())
     assert dev.log[-1] == ("volts", 12.0)
     assert _errors(dev) == []
@@ -97,14 +98,14 @@ def test_short_long_any_case_and_optional_nodes(dev: _Probe, header: str) -> Non
 
 @pytest.mark.parametrize("header", ["VOL", "VOLTA", "SOURC:VOLT", "VOLT:LEVE", "SOUR:VOLT:XYZ"])
 def test_other_abbreviations_are_undefined_headers(dev: _Probe, header: str) -> None:
-    # SCPI-1999 (REFERENCES.md 5): any abbreviation other than short/long form -> -113
+    # SCPI-1999 Vol. 1, 6.2.1: any abbreviation other than short/long form -> -113
     dev.execute(f"{header} 12".encode())
     assert dev.log == []
     assert _errors(dev) == [-113]
 
 
 def test_numeric_suffix_defaults_to_one(dev: _Probe) -> None:
-    # SCPI-1999 (REFERENCES.md 5): a missing numeric suffix is 1
+    # SCPI-1999 Vol. 1, 6.2.5.2: a missing numeric suffix is 1
     assert dev.execute(b"INP:COUP?;:INP3:COUP?;:INPUT4:COUP?") == ["1", "3", "4"]
     assert match_nodes(parse_header_pattern("INPut#:COUPling"), ["INP2", "COUP"]) == {"INPUT": 2}
     assert match_nodes(parse_header_pattern("INPut#:COUPling"), ["INPU2", "COUP"]) is None
@@ -114,7 +115,7 @@ def test_numeric_suffix_defaults_to_one(dev: _Probe) -> None:
 
 
 def test_semicolon_continues_in_the_same_subsystem(dev: _Probe) -> None:
-    # SCPI-1999 (REFERENCES.md 5): ';' keeps the path of the previous header
+    # SCPI-1999 Vol. 1 ch. 6 (from memory): ';' keeps the path of the previous header
     dev.execute(b"SYST:BEEP:STAT 1;IMM")
     assert [k for k, _ in dev.log] == ["beepst", "beep"]
     dev.execute(b"INP2:COUP AC;COUP DC")
@@ -123,7 +124,7 @@ def test_semicolon_continues_in_the_same_subsystem(dev: _Probe) -> None:
 
 
 def test_semicolon_colon_returns_to_root(dev: _Probe) -> None:
-    # SCPI-1999 (REFERENCES.md 5): ';:' returns to the root
+    # SCPI-1999 Vol. 1 ch. 6 (from memory): ';:' returns to the root
     dev.execute(b"SYST:BEEP:STAT 1;:VOLT 3;:SYST:BEEP")
     assert [k for k, _ in dev.log] == ["beepst", "volts", "beep"]
     dev.execute(b"SYST:BEEP:STAT 1;VOLT 3")  # VOLT is not under SYSTem:BEEPer
@@ -131,14 +132,16 @@ def test_semicolon_colon_returns_to_root(dev: _Probe) -> None:
 
 
 def test_common_commands_anywhere_keep_the_path(dev: _Probe) -> None:
-    # IEEE 488.2 7.6.1.2 [M]: common commands may sit between units without moving the path
+    # IEEE 488.2-1992, 7.6.1.2 (from memory): common commands may sit between units without
+    # moving the path
     out = dev.execute(b"SYST:BEEP:STAT 1;*IDN?;IMM;*OPC?")
     assert out == ["SIMULATED,PROBE,SN0000,0.1", "1"]
     assert [k for k, _ in dev.log] == ["beepst", "beep"]
 
 
 def test_command_error_skips_the_rest_execution_error_does_not(dev: _Probe) -> None:
-    # IEEE 488.2 6.1.6.1.1 [M]: a command error discards the rest of the program message
+    # IEEE 488.2-1992, 6.1.6.1.1 (from memory): a command error discards the rest of the
+    # program message
     assert dev.execute(b"VOLT 1;BOGUS;:VOLT 2") == []
     assert dev.volts == 1.0
     assert _errors(dev) == [-113]
@@ -158,7 +161,8 @@ def test_command_error_skips_the_rest_execution_error_does_not(dev: _Probe) -> N
      ("500UV", 500e-6), ("1MAV", None), ("7 V", 7.0)],
 )  # fmt: skip
 def test_numbers_with_multipliers(dev: _Probe, text: str, volts: float | None) -> None:
-    # IEEE 488.2 7.7.2/7.7.3 table 7-2 [M]: multipliers; M = milli, MA = mega; MIN/MAX/DEF
+    # IEEE 488.2-1992, 7.7.2/7.7.3 table 7-2 (from memory): multipliers; M = milli, MA = mega;
+    # MIN/MAX/DEF
     dev.execute(f"VOLT {text}".encode())
     if volts is None:  # 1 MV = 1e6 V is out of range
         assert _errors(dev) == [-222]
@@ -168,20 +172,20 @@ def test_numbers_with_multipliers(dev: _Probe, text: str, volts: float | None) -
 
 
 def test_mhz_is_megahertz(dev: _Probe) -> None:
-    # IEEE 488.2 7.7.3.5 [M]: MHZ and MOHM are the exceptions to M = milli
+    # IEEE 488.2-1992, 7.7.3.5 (from memory): MHZ and MOHM are the exceptions to M = milli
     dev.execute(b"FREQ 200MHZ;FREQ 3KHZ;FREQ 2GHZ;FREQ 1MA;FREQ DEF")
     assert [v for _, v in dev.log] == [200e6, 3e3, 2e9, 1e6, 50.0]
 
 
 @pytest.mark.parametrize("text", ["5 XYZ", "5VV", "5E"])
 def test_bad_suffix_is_invalid_suffix(dev: _Probe, text: str) -> None:
-    # SCPI-1999 error table [M]: -131 invalid suffix
+    # SCPI-1999 Vol. 2, 21.8 error list (from memory): -131 invalid suffix
     dev.execute(f"VOLT {text}".encode())
     assert _errors(dev) == [-131]
 
 
 def test_parameter_counts(dev: _Probe) -> None:
-    # SCPI-1999 (REFERENCES.md 5): -109 missing parameter, -108 parameter not allowed
+    # SCPI-1999 Vol. 2, 21.8 (from memory): -109 missing parameter, -108 parameter not allowed
     dev.execute(b"VOLT")
     dev.execute(b"VOLT 1,2")
     dev.execute(b"SYST:BEEP 3")
@@ -193,7 +197,7 @@ def test_parameter_kinds() -> None:
     assert p[0].boolean() is True
     assert p[1].string() == "it's"
     assert p[2].string() == "a;b"
-    # SCPI-1999 channel lists (REFERENCES.md 5): (@1,2), (@1:4), (@101:105,110)
+    # SCPI-1999 Vol. 1 channel lists: (@1,2), (@1:4), (@101:105,110)
     assert p[3].channels() == (1, 3)
     assert p[4].channels() == (1, 2, 3, 4)
     assert p[5].channels() == (101, 102, 103, 104, 105, 110)
@@ -205,14 +209,15 @@ def test_parameter_kinds() -> None:
 @pytest.mark.parametrize(("text", "value"), [("ON", True), ("off", False), ("1", True),
                                               ("0", False), ("0.4", False), ("2", True)])  # fmt: skip
 def test_booleans(text: str, value: bool) -> None:
-    # IEEE 488.2 / SCPI-1999 boolean data [M]: ON/OFF or a number rounded, 0 = false
+    # IEEE 488.2-1992 / SCPI-1999 Vol. 1 boolean data (from memory): ON/OFF or a number
+    # rounded, 0 = false
     assert parse_params(text)[0].boolean() is value
 
 
 def test_wrong_kinds_and_values() -> None:
     with pytest.raises(CommandRejected) as e:
         Param("string", "'x'", "x").number("V")
-    assert e.value.code == -104  # SCPI-1999 error table [M]: data type error
+    assert e.value.code == -104  # SCPI-1999 Vol. 2, 21.8 (from memory): data type error
     with pytest.raises(CommandRejected) as e:
         parse_params("MAYBE")[0].boolean()
     assert e.value.code == -224  # illegal parameter value
@@ -228,13 +233,13 @@ def test_wrong_kinds_and_values() -> None:
 
 
 def test_empty_queue_answers_no_error(dev: _Probe) -> None:
-    # SCPI-1999 (REFERENCES.md 5): 0,"No error" when empty
+    # SCPI-1999 Vol. 2, 21.8: 0,"No error" when empty
     assert dev.execute(b"SYST:ERR?") == ['0,"No error"']
     assert dev.execute(b"SYSTEM:ERROR:NEXT?") == ['0,"No error"']
 
 
 def test_queue_overflow_replaces_last_entry(dev: _Probe) -> None:
-    # SCPI-1999 21.8 (REFERENCES.md 5): on overflow the last entry becomes -350
+    # SCPI-1999 Vol. 2, 21.8: on overflow the last entry becomes -350
     for _ in range(QUEUE_DEPTH + 5):
         dev.execute(b"BOGUS")
     assert dev.execute(b"SYST:ERR:COUN?") == [str(QUEUE_DEPTH)]
@@ -243,7 +248,7 @@ def test_queue_overflow_replaces_last_entry(dev: _Probe) -> None:
 
 
 def test_esr_bits_follow_error_classes(dev: _Probe) -> None:
-    # IEEE 488.2 11.5.1 [M]: bit 5 (32) command error, 4 (16) execution error,
+    # IEEE 488.2-1992, 11.5.1 (from memory): bit 5 (32) command error, 4 (16) execution error,
     # 3 (8) device-dependent error, 2 (4) query error, 0 (1) operation complete, 7 (128) power on
     assert dev.execute(b"*ESR?") == ["128"]
     assert dev.execute(b"*ESR?") == ["0"]
@@ -259,7 +264,8 @@ def test_esr_bits_follow_error_classes(dev: _Probe) -> None:
 
 
 def test_status_byte_summaries(dev: _Probe) -> None:
-    # IEEE 488.2 11.2 / SCPI-1999 [M]: bit 2 error queue, bit 5 ESB = ESR & ESE, bit 6 MSS
+    # IEEE 488.2-1992, 11.2 / SCPI-1999 Vol. 1 status reporting (from memory): bit 2 error
+    # queue, bit 5 ESB = ESR & ESE, bit 6 MSS
     dev.execute(b"*CLS")
     assert dev.execute(b"*STB?") == ["0"]
     dev.execute(b"*ESE 32;*SRE 32")
@@ -275,7 +281,7 @@ def test_status_byte_summaries(dev: _Probe) -> None:
 
 
 def test_rst_keeps_the_queue_cls_clears_it(dev: _Probe) -> None:
-    # IEEE 488.2 10.32 / 10.3 [M]: *RST does not clear the queue, *CLS does
+    # IEEE 488.2-1992, 10.32 / 10.3 (from memory): *RST does not clear the queue, *CLS does
     dev.execute(b"BOGUS;")
     dev.execute(b"*RST")
     assert dev.execute(b"SYST:ERR:COUN?") == ["1"]
@@ -290,13 +296,13 @@ def test_rst_keeps_the_queue_cls_clears_it(dev: _Probe) -> None:
      (b"VOLT@ 3", -102), (b"VOLT 1,", -102), (b"\xc3\xa9", -101)],
 )  # fmt: skip
 def test_bad_lines_leave_standard_errors(dev: _Probe, line: bytes, code: int) -> None:
-    # SCPI-1999 error table (REFERENCES.md 5; -101 [M])
+    # SCPI-1999 Vol. 2, 21.8 error list (-101 and -102 from memory)
     dev.execute(line)
     assert _errors(dev) == [code]
 
 
 def test_whitespace_lines_are_ignored(dev: _Probe) -> None:
-    # IEEE 488.2 7.4.1.2 [M]: bytes 0x00-0x09 and 0x0B-0x20 are white space
+    # IEEE 488.2-1992, 7.4.1.2 (from memory): bytes 0x00-0x09 and 0x0B-0x20 are white space
     for line in (b"", b"   ", b"\r", b"\t", b"\x00\x01\x1f"):
         assert dev.execute(line) == []
     assert _errors(dev) == []
@@ -318,7 +324,7 @@ def test_block_encoder_matches_pyvisa(n: int) -> None:
 
 
 def test_block_encoder_worked_example() -> None:
-    # REFERENCES.md 5 (IEEE 488.2): "#12AB" carries "AB"
+    # IEEE 488.2-1992, 8.7.9 definite length arbitrary block response data: "#12AB" carries "AB"
     assert encode_block(b"AB") == b"#12AB"
     assert _Probe().execute(b"TEST:BLOC?") == [Block(b"AB")]
 

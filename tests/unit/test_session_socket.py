@@ -234,7 +234,7 @@ def test_block_decoding_matches_pyvisa_helpers(
 
 
 def test_block_example_from_ieee4882(session: ScpiSession, server: FakeInstrument) -> None:
-    # IEEE 488.2 definite-length block: "#12AB" carries "AB" (REFERENCES.md section 5)
+    # IEEE 488.2-1992, 8.7.9 definite length arbitrary block response data: "#12AB" carries "AB"
     server.block = b"#12AB\n"
     assert session.query_block("BLOCK?", "int8").tobytes() == b"AB"
     # the widest header: nine length digits

@@ -54,7 +54,8 @@ def test_short_dwell_leaves_capacitor_partly_charged(tmp_path: Path) -> None:
     w.supply_program(volts=0.0, output=False)
     w.relay_set([1], False)
     clk.sleep(1e-3)
-    # first-order charge v = V (1 - exp(-t/tau)) (REFERENCES.md section 6, [T])
+    # first-order charge v = V (1 - exp(-t/tau)) (Horowitz & Hill, The Art of Electronics,
+    # 3rd ed., 1.4.2; section from memory)
     assert w.meter_input_volts() == pytest.approx(1000.0 * (1 - np.exp(-0.5)), rel=1e-3)
 
 
@@ -106,13 +107,14 @@ def _scope_step_rise(tmp_path: Path, bw: float | None, sense: SenseSpec | None =
 
 @pytest.mark.parametrize("bw", [20e6, 100e6])
 def test_scope_bandwidth_rise_time(tmp_path: Path, bw: float) -> None:
-    # rise time x bandwidth = ln 9 / (2 pi) = 0.35 for a first-order input (REFERENCES.md 6)
+    # rise time x bandwidth = ln 9 / (2 pi) = 0.35 for a first-order input: 10-90 % of
+    # 1 - exp(-t/tau) takes tau ln 9 and f_3dB = 1 / (2 pi tau) (derived here; common practice)
     assert _scope_step_rise(tmp_path, bw)[0] == pytest.approx(0.35 / bw, rel=0.05)
 
 
 def test_current_probe_bandwidth_and_scale(tmp_path: Path) -> None:
     # a current probe (first order, 50 MHz) instead of the shunt: same 0.35/BW rule
-    # (REFERENCES.md section 6) and volts = amps / (amps per volt)
+    # (derived above) and volts = amps / (amps per volt)
     probe = SenseSpec("probe", amps_per_volt=10.0, bandwidth_hz=50e6)
     rise, top, v_before = _scope_step_rise(tmp_path, None, probe)
     assert rise == pytest.approx(0.35 / 50e6, rel=0.05)
