@@ -22,11 +22,15 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
+from drivers.dialect import Dialect, read_dialect
 from rigbase.errors import ProfileError
 
 __all__ = [
+    "FORMATS",
     "FORMAT_VERSION",
+    "LAYOUT2_ONLY",
     "OPERATIONS",
+    "OPTIONAL",
     "PROFILE_DIR",
     "RANGES",
     "SCALING_FIELDS",
@@ -34,7 +38,10 @@ __all__ = [
     "scpi_header_matches",
 ]
 
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
+#: layouts this reader understands: 1 (templates only) and 2 (adds the tables of
+#: :mod:`drivers.dialect` and optional operations)
+FORMATS = (1, 2)
 PROFILE_DIR = Path(__file__).resolve().parent / "profiles"
 
 #: role -> operation -> the fields the driver supplies; a template must use every one of
@@ -58,6 +65,9 @@ OPERATIONS: Mapping[str, Mapping[str, frozenset[str]]] = MappingProxyType(
             "get_output": frozenset(),
             "measure_voltage": frozenset(),
             "measure_current": frozenset(),
+            "enable_output": frozenset(),
+            "disable_output": frozenset(),
+            "get_interlock": frozenset(),
         },
         "switch": {
             "close": frozenset({"channels"}),
@@ -94,6 +104,18 @@ OPERATIONS: Mapping[str, Mapping[str, frozenset[str]]] = MappingProxyType(
         },
     }
 )
+
+#: Operations a layout-2 profile may leave out (the instrument has no such command); the
+#: drivers then do without (no identity, no error queue, a fixed byte order...).
+OPTIONAL: Mapping[str, frozenset[str]] = MappingProxyType(
+    {
+        "common": frozenset(OPERATIONS["common"]),
+        "supply": frozenset({"enable_output", "disable_output", "get_interlock"}),
+        "scope": frozenset({"set_byte_order", "get_condition", "scaling"}),
+    }
+)
+#: Operations that exist only from layout 2 on.
+LAYOUT2_ONLY = frozenset({"enable_output", "disable_output", "get_interlock"})
 
 #: role -> names of the [low, high] ranges a role table must carry.
 RANGES: Mapping[str, tuple[str, ...]] = MappingProxyType(
@@ -137,7 +159,34 @@ _SAMPLES: dict[str, object] = {
     "function": "VOLTage:DC",
 }
 
-_SUBTABLES = {"ranges", "scaling_fields", "functions"}
+_SUBTABLES = {
+    "ranges",
+    "scaling_fields",
+    "functions",
+    "values",
+    "channel_list",
+    "readback",
+    "transfer",
+    "completion",
+    "scaling_queries",
+}
+_ROLE_TABLES: Mapping[str, set[str]] = MappingProxyType(
+    {
+        "common": set(),
+        "supply": {"ranges", "values", "interlock_closed"},
+        "switch": {"ranges", "values", "channel_list", "readback"},
+        "scope": {
+            "ranges",
+            "scaling_fields",
+            "values",
+            "transfer",
+            "completion",
+            "scaling_queries",
+        },
+        "meter": {"functions", "values"},
+    }
+)
+_ROLE_TABLES_1 = {"common": set(), "meter": {"functions"}, "scope": {"ranges", "scaling_fields"}}
 _NAME_RE = re.compile(r"^[A-Za-z0-9_.-]+$")
 
 
@@ -163,6 +212,8 @@ class Profile:
     range_table: Mapping[str, Mapping[str, tuple[float, float]]]
     scaling_fields: Mapping[str, int] = field(default_factory=dict)
     meter_functions: Mapping[str, str] = field(default_factory=dict)
+    dialect: Dialect = field(default_factory=Dialect)
+    format: int = 1
 
     # -- loading ------------------------------------------------------------------------------
     @classmethod
@@ -204,6 +255,10 @@ class Profile:
         """True if the profile defines ``role``."""
         return role in self.templates
 
+    def has_operation(self, role: str, operation: str) -> bool:
+        """True if the profile gives a command for ``operation`` of ``role``."""
+        return operation in self.templates.get(role, {})
+
     def require_role(self, role: str) -> None:
         """Raise :class:`ProfileError` unless the profile defines ``role``."""
         if role not in self.templates:
@@ -226,7 +281,8 @@ class Profile:
                 f"{role}.{operation}",
                 f"called with fields {sorted(fields)}, template needs {sorted(expected)}",
             )
-        return template.format(**fields)
+        words = {k: self.dialect.word(role, k, v) for k, v in fields.items()}
+        return template.format(**words)
 
     def ranges(self, role: str) -> dict[str, tuple[float, float]]:
         """The ``[role.ranges]`` table as ``{name: (low, high)}`` (units as named in the file)."""
@@ -279,6 +335,7 @@ class _Validator:
 
     def __init__(self, path: Path) -> None:
         self.path = path
+        self.format = 1
 
     def fail(self, key: str, problem: str) -> ProfileError:
         return ProfileError(self.path, key, problem)
@@ -303,14 +360,19 @@ class _Validator:
         fmt = head.get("format")
         if fmt is None:
             raise self.fail("profile.format", "missing (this reader understands format = 1)")
-        if not isinstance(fmt, int) or isinstance(fmt, bool) or fmt != FORMAT_VERSION:
-            raise self.fail("profile.format", f"unsupported layout {fmt!r}; expected 1")
+        if not isinstance(fmt, int) or isinstance(fmt, bool) or fmt not in FORMATS:
+            raise self.fail(
+                "profile.format", f"unsupported layout {fmt!r}; this reader understands 1 and 2"
+            )
+        self.format = fmt
         name = head.get("name", self.path.stem)
         if not isinstance(name, str) or not name.strip():
             raise self.fail("profile.name", "must be a non-empty string")
-        unknown = set(data) - {"profile", *OPERATIONS}
+        unknown = set(data) - {"profile", "link", *OPERATIONS}
         if unknown:
-            raise self.fail(sorted(unknown)[0], f"unknown table; known: {', '.join(OPERATIONS)}")
+            known = ", ".join(["link", *OPERATIONS])
+            raise self.fail(sorted(unknown)[0], f"unknown table; known: {known}")
+        dialect = read_dialect(data, self.path, fmt)
 
         templates: dict[str, dict[str, str]] = {}
         ranges: dict[str, dict[str, tuple[float, float]]] = {}
@@ -323,8 +385,16 @@ class _Validator:
             templates[role] = self.operations(role, body)
             if role in RANGES:
                 ranges[role] = self.ranges(role, body)
-            if role == "scope":
+            if role == "scope" and (fmt == 1 or "scaling" in templates[role]):
                 scaling = self.scaling_fields(body)
+            if role == "scope" and fmt == 2:
+                has_combined = "scaling" in templates[role]
+                if has_combined == bool(dialect.scaling_queries):
+                    raise self.fail(
+                        "scope.scaling",
+                        "give either `scaling` with [scope.scaling_fields] or "
+                        "[scope.scaling_queries], not both and not neither",
+                    )
             if role == "meter":
                 functions = self.functions(body)
         return Profile(
@@ -334,16 +404,13 @@ class _Validator:
             range_table=MappingProxyType(ranges),
             scaling_fields=MappingProxyType(scaling),
             meter_functions=MappingProxyType(functions),
+            dialect=dialect,
+            format=fmt,
         )
 
     def operations(self, role: str, body: Mapping[str, Any]) -> dict[str, str]:
         ops = OPERATIONS[role]
-        allowed_tables = {
-            "common": set(),
-            "meter": {"functions"},
-            "scope": {"ranges", "scaling_fields"},
-        }
-        tables = allowed_tables.get(role, {"ranges"})
+        tables = _ROLE_TABLES[role] if self.format == 2 else _ROLE_TABLES_1.get(role, {"ranges"})
         for key in body:
             if key in ops:
                 continue
@@ -354,7 +421,13 @@ class _Validator:
         out: dict[str, str] = {}
         for op, needed in ops.items():
             key = f"{role}.{op}"
+            if op in LAYOUT2_ONLY and self.format == 1:
+                if op in body:
+                    raise self.fail(key, "needs [profile] format = 2")
+                continue
             if op not in body:
+                if self.format == 2 and op in OPTIONAL.get(role, ()):
+                    continue
                 raise self.fail(key, "missing operation")
             template = body[op]
             if not isinstance(template, str) or not template.strip():

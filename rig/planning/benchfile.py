@@ -160,6 +160,7 @@ class Simulation:
     base_dir: Path
     clock: str | None = None  # "virtual" | "real", once read
     world: Any = None  # the simulator's WorldConfig, once read
+    dialects: Any = None  # role -> profile path each simulated instrument speaks, once read
 
 
 @dataclass(frozen=True)

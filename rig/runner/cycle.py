@@ -391,7 +391,7 @@ class Runner:
             )
         sc.configure_acquisition(s.sample_interval_s, s.points, s.trigger_offset_s)
         sc.configure_trigger(1, s.trigger_level_amps * vpa, s.trigger_slope)
-        sc.set_format(s.bits, "big")
+        sc.set_format(s.bits)  # the byte order the profile prefers
 
     def _fetch(self, s: Any) -> Waveform:
         """Raw codes of the current (and voltage) inputs with scaling to amperes (and volts)."""
