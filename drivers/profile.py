@@ -31,6 +31,7 @@ __all__ = [
     "LAYOUT2_ONLY",
     "OPERATIONS",
     "OPTIONAL",
+    "OPTIONAL_ALWAYS",
     "PROFILE_DIR",
     "RANGES",
     "SCALING_FIELDS",
@@ -91,6 +92,7 @@ OPERATIONS: Mapping[str, Mapping[str, frozenset[str]]] = MappingProxyType(
             "set_trigger_slope": frozenset({"slope"}),
             "single": frozenset(),
             "abort": frozenset(),
+            "force_trigger": frozenset(),
             "get_condition": frozenset(),
             "set_format": frozenset({"fmt"}),
             "set_byte_order": frozenset({"order"}),
@@ -114,6 +116,8 @@ OPTIONAL: Mapping[str, frozenset[str]] = MappingProxyType(
         "scope": frozenset({"set_byte_order", "get_condition", "scaling"}),
     }
 )
+#: Operations any layout may leave out (added after layout 1 files were written).
+OPTIONAL_ALWAYS = frozenset({"force_trigger"})
 #: Operations that exist only from layout 2 on.
 LAYOUT2_ONLY = frozenset({"enable_output", "disable_output", "get_interlock"})
 
@@ -426,6 +430,8 @@ class _Validator:
                     raise self.fail(key, "needs [profile] format = 2")
                 continue
             if op not in body:
+                if op in OPTIONAL_ALWAYS:
+                    continue
                 if self.format == 2 and op in OPTIONAL.get(role, ()):
                     continue
                 raise self.fail(key, "missing operation")

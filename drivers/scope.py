@@ -204,6 +204,13 @@ class Scope:
         """Start one single-shot acquisition (it then waits for its trigger)."""
         self._write("single")
 
+    def force_trigger(self) -> bool:
+        """Trigger the armed acquisition now (False when the profile has no such command)."""
+        if not self.profile.has_operation(self.ROLE, "force_trigger"):
+            return False
+        self._write("force_trigger")
+        return True
+
     def abort(self) -> None:
         """Stop the acquisition in progress, if any."""
         self._write("abort")
