@@ -114,7 +114,7 @@ class _Walk:
                 self.session.write(command, repeatable=False)
                 reply = self.session.profile.dialect.link.acknowledge
         except InstrumentError as exc:
-            detail = exc.detail if not hasattr(exc, "code") else f"instrument error {exc.detail}"
+            detail = exc.detail  # a ScpiError's detail is the instrument's own error
             self.report.steps.append(Step(operation, command, "", False, detail))
             return None
         ok = expect is None or expect(reply)
@@ -238,7 +238,7 @@ class _Recorder:
         try:
             result = fn()
         except InstrumentError as exc:
-            detail = f"instrument error {exc.detail}" if hasattr(exc, "code") else exc.detail
+            detail = exc.detail
             self.walk.report.steps.append(
                 Step(_operation(self.profile, command), command, "", False, detail)
             )
