@@ -24,6 +24,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
+from drivers.operations import SCALING_FIELDS
 from rigbase.errors import ProfileError
 
 __all__ = [
@@ -277,8 +278,6 @@ def read_dialect(data: Mapping[str, Any], path: Path, fmt: int) -> Dialect:
             raise r.fail(f"scope.completion.{name}", "must be a bit number 0 to 15")
     if completion.wait_s < 0:
         raise r.fail("scope.completion.wait_s", "must be >= 0 s")
-
-    from drivers.profile import SCALING_FIELDS  # the one list of scaling fields
 
     qt = r.table(data, "scope.scaling_queries", SCALING_FIELDS)
     queries: dict[str, str | float] = {}
