@@ -224,10 +224,12 @@ def cmd_resume(args: argparse.Namespace) -> int:
     from rig.planning.plan import build_plan
     from rig.planning.sequence import load_sequence
     from rig.runner.opener import load_bench
+    from rig.runner.signoff import check_calibration
     from rig.store.runfolder import RunWriter, read_manifest, read_plan
 
     run = Path(args.run)
     bench = load_bench(run / "bench.toml")
+    check_calibration(bench, _today(), input if sys.stdin.isatty() else None)
     seq = load_sequence(run / "sequence.toml", bench)
     plan = build_plan(seq, bench)
     stored = [p["key"] for p in read_plan(run)]
@@ -396,7 +398,7 @@ def cmd_bringup(args: argparse.Namespace) -> int:
     sim = serve_simulated_bench(bench) if bench.simulation is not None else nullcontext()
     with sim as running:
         where = running.resources if running is not None else {}
-        resources = {r: where.get(r, bench.instruments[r].resource) for r in roles}
+        resources = {r: where.get(r, s.resource) for r, s in bench.instruments.items()}
         reports = bring_up(bench, roles, resources, _out)
     for rep in reports:
         proposed = propose_profile(rep, Path(args.write))

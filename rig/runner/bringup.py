@@ -327,6 +327,34 @@ def _walk_scope(w: _Walk, p: Profile) -> None:
     )
 
 
+def _supply_off(bench: Any, resources: dict[str, str], rm: Any, out: Callable[[str], None]) -> bool:
+    """Before any relay moves: the supply's output off at 0 V, confirmed by its readback."""
+    spec = bench.instruments["supply"]
+    resource = resources.get("supply", spec.resource)
+    try:
+        profile = Profile.load(spec.profile)
+        with ScpiSession(
+            resource,
+            "supply",
+            profile=profile,
+            timeout_s=min(spec.timeout_s, 2.0),
+            reconnect_attempts=0,
+            resource_manager=rm,
+        ) as s:
+            supply = Supply(s, profile)
+            supply.make_safe()
+            off = not supply.output_is_on()
+    except (InstrumentError, LimitError, SafetyError) as exc:
+        out(f"  supply: cannot confirm its output off ({exc}); relays stay as they are")
+        return False
+    out(
+        "  supply: output off at 0 V (read back) before switching relays"
+        if off
+        else "  supply: output still reads on; relays stay as they are"
+    )
+    return off
+
+
 def bring_up(
     bench: Any, roles: list[str], resources: dict[str, str], out: Callable[[str], None]
 ) -> list[RoleReport]:
@@ -380,7 +408,18 @@ def bring_up(
                 if role == "supply":
                     _walk_supply(walk, profile)
                 elif role == "switch":
-                    _walk_switch(walk, profile, bench)
+                    if _supply_off(bench, resources, rm, out):
+                        _walk_switch(walk, profile, bench)
+                    else:
+                        rep.steps.append(
+                            Step(
+                                "(supply)",
+                                "output off, 0 V",
+                                "",
+                                False,
+                                "supply not confirmed off: no relay switched",
+                            )
+                        )
                 elif role == "scope":
                     _walk_scope(walk, profile)
             finally:
