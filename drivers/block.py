@@ -138,7 +138,7 @@ def _read_counted(link: VisaLink, command: str, count: int) -> bytes:
         return chunks[0] if len(chunks) == 1 else b"".join(chunks)
     finally:
         try:
-            res.read_termination = "\n"
+            res.read_termination = link.link.read_termination or None
             if isinstance(old_recv, int):
                 backend.max_recv_size = old_recv
         except (visa_errors.Error, OSError) as exc:

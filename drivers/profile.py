@@ -22,11 +22,28 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
+from drivers.dialect import Dialect, read_dialect
+from drivers.operations import (  # the vocabulary, re-exported
+    _ROLE_TABLES,
+    _ROLE_TABLES_1,
+    _SAMPLES,
+    _SUBTABLES,
+    LAYOUT2_ONLY,
+    OPERATIONS,
+    OPTIONAL,
+    OPTIONAL_ALWAYS,
+    RANGES,
+    SCALING_FIELDS,
+)
 from rigbase.errors import ProfileError
 
 __all__ = [
+    "FORMATS",
     "FORMAT_VERSION",
+    "LAYOUT2_ONLY",
     "OPERATIONS",
+    "OPTIONAL",
+    "OPTIONAL_ALWAYS",
     "PROFILE_DIR",
     "RANGES",
     "SCALING_FIELDS",
@@ -34,110 +51,13 @@ __all__ = [
     "scpi_header_matches",
 ]
 
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
+#: layouts this reader understands: 1 (templates only) and 2 (adds the tables of
+#: :mod:`drivers.dialect` and optional operations)
+FORMATS = (1, 2)
 PROFILE_DIR = Path(__file__).resolve().parent / "profiles"
 
-#: role -> operation -> the fields the driver supplies; a template must use every one of
-#: them (leaving one out would silently drop a value) and no other.
-OPERATIONS: Mapping[str, Mapping[str, frozenset[str]]] = MappingProxyType(
-    {
-        "common": {
-            "identify": frozenset(),
-            "reset": frozenset(),
-            "clear_status": frozenset(),
-            "operation_complete": frozenset(),
-            "next_error": frozenset(),
-        },
-        "supply": {
-            "set_voltage": frozenset({"volts"}),
-            "get_voltage": frozenset(),
-            "set_current_limit": frozenset({"amps"}),
-            "get_current_limit": frozenset(),
-            "output_on": frozenset(),
-            "output_off": frozenset(),
-            "get_output": frozenset(),
-            "measure_voltage": frozenset(),
-            "measure_current": frozenset(),
-        },
-        "switch": {
-            "close": frozenset({"channels"}),
-            "open": frozenset({"channels"}),
-            "open_all": frozenset(),
-            "get_closed": frozenset({"channels"}),
-        },
-        "scope": {
-            "set_coupling": frozenset({"ch", "coupling"}),
-            "set_impedance": frozenset({"ch", "ohms"}),
-            "set_bandwidth": frozenset({"ch", "hz"}),
-            "set_bandwidth_state": frozenset({"ch", "state"}),
-            "set_range": frozenset({"ch", "volts"}),
-            "set_offset": frozenset({"ch", "volts"}),
-            "set_channel_state": frozenset({"ch", "state"}),
-            "set_sample_interval": frozenset({"seconds"}),
-            "set_points": frozenset({"points"}),
-            "set_trigger_offset": frozenset({"seconds"}),
-            "set_trigger_source": frozenset({"ch"}),
-            "set_trigger_level": frozenset({"volts"}),
-            "set_trigger_slope": frozenset({"slope"}),
-            "single": frozenset(),
-            "abort": frozenset(),
-            "get_condition": frozenset(),
-            "set_format": frozenset({"fmt"}),
-            "set_byte_order": frozenset({"order"}),
-            "fetch": frozenset({"ch"}),
-            "scaling": frozenset({"ch"}),
-            "measure_dc": frozenset({"ch"}),
-        },
-        "meter": {
-            "set_function": frozenset({"function"}),
-            "get_function": frozenset(),
-        },
-    }
-)
 
-#: role -> names of the [low, high] ranges a role table must carry.
-RANGES: Mapping[str, tuple[str, ...]] = MappingProxyType(
-    {
-        "supply": ("volts", "amps"),
-        "switch": ("channel",),
-        "scope": ("channel", "points", "seconds"),
-    }
-)
-
-#: Fields of the scope's scaling answer that turn raw codes into volts and sample indices
-#: into seconds: ``volts = (code - reference_code) * volts_per_code + reference_volts`` and
-#: ``seconds from the trigger = first_sample_s + index * sample_interval_s``; ``points`` is
-#: the record length, checked against the block. ``[scope.scaling_fields]`` gives the
-#: position of each in the instrument's comma-separated answer (other positions are ignored).
-SCALING_FIELDS = (
-    "points",
-    "sample_interval_s",
-    "first_sample_s",
-    "volts_per_code",
-    "reference_volts",
-    "reference_code",
-)
-
-# A value of the right type for every field, used to try each template once at load time so a
-# bad format spec ("{volts:.9q}") fails here rather than at the first command.
-_SAMPLES: dict[str, object] = {
-    "volts": 1.5,
-    "amps": 0.01,
-    "channels": "(@1,3)",
-    "ch": 1,
-    "coupling": "DC",
-    "ohms": 50.0,
-    "hz": 20e6,
-    "state": "ON",
-    "seconds": 1e-9,
-    "points": 1000,
-    "slope": "POSitive",
-    "fmt": "INT,8",
-    "order": "NORMal",
-    "function": "VOLTage:DC",
-}
-
-_SUBTABLES = {"ranges", "scaling_fields", "functions"}
 _NAME_RE = re.compile(r"^[A-Za-z0-9_.-]+$")
 
 
@@ -163,6 +83,8 @@ class Profile:
     range_table: Mapping[str, Mapping[str, tuple[float, float]]]
     scaling_fields: Mapping[str, int] = field(default_factory=dict)
     meter_functions: Mapping[str, str] = field(default_factory=dict)
+    dialect: Dialect = field(default_factory=Dialect)
+    format: int = 1
 
     # -- loading ------------------------------------------------------------------------------
     @classmethod
@@ -204,6 +126,10 @@ class Profile:
         """True if the profile defines ``role``."""
         return role in self.templates
 
+    def has_operation(self, role: str, operation: str) -> bool:
+        """True if the profile gives a command for ``operation`` of ``role``."""
+        return operation in self.templates.get(role, {})
+
     def require_role(self, role: str) -> None:
         """Raise :class:`ProfileError` unless the profile defines ``role``."""
         if role not in self.templates:
@@ -226,7 +152,8 @@ class Profile:
                 f"{role}.{operation}",
                 f"called with fields {sorted(fields)}, template needs {sorted(expected)}",
             )
-        return template.format(**fields)
+        words = {k: self.dialect.word(role, k, v) for k, v in fields.items()}
+        return template.format(**words)
 
     def ranges(self, role: str) -> dict[str, tuple[float, float]]:
         """The ``[role.ranges]`` table as ``{name: (low, high)}`` (units as named in the file)."""
@@ -279,6 +206,7 @@ class _Validator:
 
     def __init__(self, path: Path) -> None:
         self.path = path
+        self.format = 1
 
     def fail(self, key: str, problem: str) -> ProfileError:
         return ProfileError(self.path, key, problem)
@@ -303,14 +231,19 @@ class _Validator:
         fmt = head.get("format")
         if fmt is None:
             raise self.fail("profile.format", "missing (this reader understands format = 1)")
-        if not isinstance(fmt, int) or isinstance(fmt, bool) or fmt != FORMAT_VERSION:
-            raise self.fail("profile.format", f"unsupported layout {fmt!r}; expected 1")
+        if not isinstance(fmt, int) or isinstance(fmt, bool) or fmt not in FORMATS:
+            raise self.fail(
+                "profile.format", f"unsupported layout {fmt!r}; this reader understands 1 and 2"
+            )
+        self.format = fmt
         name = head.get("name", self.path.stem)
         if not isinstance(name, str) or not name.strip():
             raise self.fail("profile.name", "must be a non-empty string")
-        unknown = set(data) - {"profile", *OPERATIONS}
+        unknown = set(data) - {"profile", "link", *OPERATIONS}
         if unknown:
-            raise self.fail(sorted(unknown)[0], f"unknown table; known: {', '.join(OPERATIONS)}")
+            known = ", ".join(["link", *OPERATIONS])
+            raise self.fail(sorted(unknown)[0], f"unknown table; known: {known}")
+        dialect = read_dialect(data, self.path, fmt)
 
         templates: dict[str, dict[str, str]] = {}
         ranges: dict[str, dict[str, tuple[float, float]]] = {}
@@ -323,8 +256,16 @@ class _Validator:
             templates[role] = self.operations(role, body)
             if role in RANGES:
                 ranges[role] = self.ranges(role, body)
-            if role == "scope":
+            if role == "scope" and (fmt == 1 or "scaling" in templates[role]):
                 scaling = self.scaling_fields(body)
+            if role == "scope" and fmt == 2:
+                has_combined = "scaling" in templates[role]
+                if has_combined == bool(dialect.scaling_queries):
+                    raise self.fail(
+                        "scope.scaling",
+                        "give either `scaling` with [scope.scaling_fields] or "
+                        "[scope.scaling_queries], not both and not neither",
+                    )
             if role == "meter":
                 functions = self.functions(body)
         return Profile(
@@ -334,16 +275,13 @@ class _Validator:
             range_table=MappingProxyType(ranges),
             scaling_fields=MappingProxyType(scaling),
             meter_functions=MappingProxyType(functions),
+            dialect=dialect,
+            format=fmt,
         )
 
     def operations(self, role: str, body: Mapping[str, Any]) -> dict[str, str]:
         ops = OPERATIONS[role]
-        allowed_tables = {
-            "common": set(),
-            "meter": {"functions"},
-            "scope": {"ranges", "scaling_fields"},
-        }
-        tables = allowed_tables.get(role, {"ranges"})
+        tables = _ROLE_TABLES[role] if self.format == 2 else _ROLE_TABLES_1.get(role, {"ranges"})
         for key in body:
             if key in ops:
                 continue
@@ -354,7 +292,15 @@ class _Validator:
         out: dict[str, str] = {}
         for op, needed in ops.items():
             key = f"{role}.{op}"
+            if op in LAYOUT2_ONLY and self.format == 1:
+                if op in body:
+                    raise self.fail(key, "needs [profile] format = 2")
+                continue
             if op not in body:
+                if op in OPTIONAL_ALWAYS:
+                    continue
+                if self.format == 2 and op in OPTIONAL.get(role, ()):
+                    continue
                 raise self.fail(key, "missing operation")
             template = body[op]
             if not isinstance(template, str) or not template.strip():

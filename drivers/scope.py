@@ -19,7 +19,7 @@ import numpy as np
 from drivers.clock import Clock
 from drivers.profile import Profile
 from drivers.session import ByteOrder, ScpiSession
-from rigbase.errors import BlockFormatError, InstrumentError, LimitError
+from rigbase.errors import BlockFormatError, InstrumentError, InstrumentTimeout, LimitError
 
 __all__ = ["Scope", "Trace"]
 
@@ -183,20 +183,33 @@ class Scope:
         self._write("set_trigger_level", volts=level)
         self._write("set_trigger_slope", slope=word)
 
-    def set_format(self, bits: int, byte_order: ByteOrder) -> None:
-        """Raw-code transfer format: 8 or 16 bit signed integers, ``"big"``/``"little"``."""
+    def set_format(self, bits: int, byte_order: ByteOrder | None = None) -> None:
+        """Raw-code transfer format: 8 or 16 bit signed integers, ``"big"``/``"little"``
+        (default: the profile's ``[scope.transfer] byte_order``). A profile without a
+        ``set_byte_order`` command has a fixed order, which then applies whatever is asked."""
         if bits not in (8, 16) or isinstance(bits, bool):
             raise LimitError(f"{self.name}: bits must be 8 or 16, got {bits!r}")
-        if byte_order not in _ORDERS:
+        order = byte_order or self.profile.dialect.transfer.byte_order
+        if order not in _ORDERS:
             raise LimitError(f"{self.name}: byte order {byte_order!r} is not big or little")
         self._write("set_format", fmt=f"INT,{bits}")
-        self._write("set_byte_order", order=_ORDERS[byte_order])
-        self._format = (bits, byte_order)
+        if self.profile.has_operation(self.ROLE, "set_byte_order"):
+            self._write("set_byte_order", order=_ORDERS[order])
+        else:
+            order = self.profile.dialect.transfer.byte_order  # type: ignore[assignment]
+        self._format = (bits, order)  # type: ignore[assignment]
 
     # -- acquisition --------------------------------------------------------------------------
     def arm(self) -> None:
         """Start one single-shot acquisition (it then waits for its trigger)."""
         self._write("single")
+
+    def force_trigger(self) -> bool:
+        """Trigger the armed acquisition now (False when the profile has no such command)."""
+        if not self.profile.has_operation(self.ROLE, "force_trigger"):
+            return False
+        self._write("force_trigger")
+        return True
 
     def abort(self) -> None:
         """Stop the acquisition in progress, if any."""
@@ -207,23 +220,47 @@ class Scope:
         return self.session.query_int(self._cmd("get_condition"))
 
     def state(self) -> Literal["waiting", "acquiring", "complete"]:
-        """``"waiting"`` for the trigger, ``"acquiring"`` (sweeping), or ``"complete"``."""
+        """``"waiting"`` for the trigger, ``"acquiring"`` (sweeping), or ``"complete"``
+        (bits of ``[scope.completion]``; SCPI-1999 STATus:OPERation by default)."""
         cond = self.condition()
-        if cond & WAITING_BIT:
+        done = self.profile.dialect.completion
+        if cond & (1 << done.waiting_bit):
             return "waiting"
-        if cond & SWEEPING_BIT:
+        if cond & (1 << done.acquiring_bit):
             return "acquiring"
         return "complete"
 
+    def _opc_done(self, clock: Clock, wait_s: float) -> bool:
+        """The completion query answered (True) within ``wait_s`` seconds, or not (False).
+        A virtual clock cannot advance while the instrument holds its reply, so there the
+        query is asked with a short read timeout and time moves on between asks."""
+        cmd = self.profile.command("common", "operation_complete")
+        try:
+            text = self.session.query(cmd, repeatable=False, timeout_s=max(wait_s, 1e-3))
+        except InstrumentTimeout:
+            return False
+        if text.strip().lstrip("+") not in ("1", "1.0"):
+            raise InstrumentError(self.name, cmd, f"expected 1, got {text!r}")
+        return True
+
     def wait_complete(self, clock: Clock, timeout_s: float, poll_s: float) -> bool:
-        """Poll :meth:`state` every ``poll_s`` seconds on ``clock`` (a virtual clock advances)
-        until the acquisition is complete (True) or ``timeout_s`` seconds have passed
-        (False)."""
+        """Wait until the acquisition is complete (True) or ``timeout_s`` seconds have passed
+        on ``clock`` (False), the way ``[scope.completion]`` says: poll :meth:`state` every
+        ``poll_s`` seconds (``status``), ask the completion query (``opc``), or wait its
+        fixed ``wait_s`` and assume it (``wait``: the fetch then finds a missing record)."""
         poll = self._positive(poll_s, "poll_s")
         limit = self._finite(timeout_s, "timeout_s")
+        done = self.profile.dialect.completion
+        if done.method == "wait":
+            clock.sleep(done.wait_s)
+            return True
         start = clock.now()
         while True:
-            if self.state() == "complete":
+            if done.method == "opc":
+                left = limit - (clock.now() - start)
+                if self._opc_done(clock, 0.2 if clock.virtual else max(left, 1e-3)):
+                    return True
+            elif self.state() == "complete":
                 return True
             left = limit - (clock.now() - start)
             if left <= 0:
@@ -247,20 +284,12 @@ class Scope:
             self.set_format(8, "big")
         assert self._format is not None
         bits, order = self._format
-        scaling_cmd = self._cmd("scaling", ch=ch)
-        text = self.session.query(scaling_cmd)
-        fields = self.profile.scaling_fields
-        try:
-            values = [float(v) for v in text.split(",")]
-            pick = {k: values[i] for k, i in fields.items()}
-        except (ValueError, IndexError):
-            raise InstrumentError(
-                self.name,
-                scaling_cmd,
-                f"scaling answer {text!r} does not fit [scope.scaling_fields]",
-            ) from None
+        pick = self._scaling(ch)
         cmd = self._cmd("fetch", ch=ch)
-        codes = self.session.query_block(cmd, "int8" if bits == 8 else "int16", order)
+        if self.profile.dialect.transfer.encoding == "ascii":
+            codes = self._ascii_codes(cmd, bits)
+        else:
+            codes = self.session.query_block(cmd, "int8" if bits == 8 else "int16", order)
         if len(codes) != int(pick["points"]):
             raise BlockFormatError(
                 self.name,
@@ -276,6 +305,44 @@ class Scope:
             reference_code=pick["reference_code"],
             bits=bits,
         )
+
+    def _scaling(self, ch: int) -> dict[str, float]:
+        """The scaling fields of input ``ch``: one combined reply mapped by position
+        (``[scope.scaling_fields]``), or one query per field (``[scope.scaling_queries]``)."""
+        queries = self.profile.dialect.scaling_queries
+        if queries:
+            out: dict[str, float] = {}
+            for name, q in queries.items():
+                if isinstance(q, float):
+                    out[name] = q
+                else:
+                    out[name] = self.session.query_float(q.format(ch=ch))
+            return out
+        scaling_cmd = self._cmd("scaling", ch=ch)
+        text = self.session.query(scaling_cmd)
+        fields = self.profile.scaling_fields
+        try:
+            values = [float(v) for v in text.split(",")]
+            return {k: values[i] for k, i in fields.items()}
+        except (ValueError, IndexError):
+            raise InstrumentError(
+                self.name,
+                scaling_cmd,
+                f"scaling answer {text!r} does not fit [scope.scaling_fields]",
+            ) from None
+
+    def _ascii_codes(self, cmd: str, bits: int) -> np.ndarray:
+        """Codes sent as comma-separated ASCII integers, as int8/int16 (checked in range)."""
+        text = self.session.query(cmd)
+        try:
+            values = np.array([int(v) for v in text.split(",")], dtype=np.int64)
+        except ValueError:
+            raise BlockFormatError(self.name, cmd, "ASCII codes are not integers") from None
+        dtype = np.int8 if bits == 8 else np.int16
+        info = np.iinfo(dtype)
+        if values.size and (values.min() < info.min or values.max() > info.max):
+            raise BlockFormatError(self.name, cmd, f"ASCII codes outside {bits}-bit range")
+        return values.astype(dtype)
 
     def measure_dc(self, ch: int) -> float:
         """Mean voltage at input ``ch`` now, volts."""

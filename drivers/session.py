@@ -51,6 +51,7 @@ from rigbase.errors import (
     InstrumentError,
     InstrumentTimeout,
     LimitError,
+    ScpiError,
 )
 
 __all__ = ["BlockDType", "ByteOrder", "ScpiSession", "parse_error_reply", "parse_block_header"]
@@ -114,7 +115,7 @@ class ScpiSession:
             raise ConnectionLost(
                 name, None, f"cannot load VISA backend {backend!r}: {exc}"
             ) from exc
-        self._link = VisaLink(self._rm, resource, name, float(timeout_s))
+        self._link = VisaLink(self._rm, resource, name, float(timeout_s), profile.dialect.link)
         self._state = _State.OPEN
         try:
             self._link.open()
@@ -166,6 +167,9 @@ class ScpiSession:
         are; a command whose repetition matters is not). Only a checked write learns that
         the link dropped just after the command was sent; it then sends it again once.
         """
+        if self._profile.dialect.link.acknowledge:
+            self._acknowledged(command, repeatable)
+            return
         with self._lock:
             for attempt in (1, 2):
                 self._exchange(command, repeatable, lambda: self._do_write(command))
@@ -197,7 +201,23 @@ class ScpiSession:
         ``timeout_s`` overrides the session timeout for this reply (seconds). A query with
         ``repeatable`` is repeated once after a timeout and after a reconnect.
         """
-        return self._exchange(command, repeatable, lambda: self._do_query(command, timeout_s))
+        reply = self._exchange(command, repeatable, lambda: self._do_query(command, timeout_s))
+        failed = self._profile.dialect.link.error_match(reply)
+        if failed is not None:
+            raise ScpiError(self._name, command, *failed)
+        return reply
+
+    def _acknowledged(self, command: str, repeatable: bool) -> None:
+        """A line-protocol command: the instrument answers the acknowledgement word or one of
+        its error lines (``[link] acknowledge`` and ``error_reply`` of the profile)."""
+        ack = self._profile.dialect.link.acknowledge
+        reply = self.query(command, repeatable=repeatable)
+        if reply != ack:
+            raise InstrumentError(self._name, command, f"expected {ack!r}, got {reply!r}")
+
+    def has_command(self, operation: str) -> bool:
+        """True if the profile gives a common command for ``operation`` (``identify``...)."""
+        return self._profile.has_operation("common", operation)
 
     def query_float(self, command: str, *, repeatable: bool = True) -> float:
         """:meth:`query` parsed as one number (InstrumentError if it is not one)."""
@@ -236,15 +256,21 @@ class ScpiSession:
         return self._exchange(command, repeatable, lambda: self._do_block(command, wire, timeout_s))
 
     def identify(self) -> str:
-        """The instrument's ``*IDN?`` answer."""
+        """The instrument's ``*IDN?`` answer ("" when its profile has no identify command)."""
+        if not self.has_command("identify"):
+            return ""
         return self.query(self._profile.command("common", "identify"))
 
     def reset(self) -> None:
         """``*RST``: the instrument's reset state; the error queue is checked afterwards."""
+        if not self.has_command("reset"):
+            return
         self.write(self._profile.command("common", "reset"))
 
     def clear_status(self) -> None:
         """``*CLS``: clear the status registers and the error queue."""
+        if not self.has_command("clear_status"):
+            return
         self.write(self._profile.command("common", "clear_status"), check=False)
 
     def wait_complete(self, timeout_s: float | None = None) -> None:
@@ -255,7 +281,10 @@ class ScpiSession:
             raise InstrumentError(self._name, cmd, f"expected 1, got {text!r}")
 
     def errors(self) -> list[tuple[int, str]]:
-        """Empty the instrument's error queue: every (code, message) until code 0."""
+        """Empty the instrument's error queue: every (code, message) until code 0 (nothing for
+        an instrument without a queue: it reports errors in its replies instead)."""
+        if not self.has_command("next_error"):
+            return []
         cmd = self._profile.command("common", "next_error")
 
         def next_entry() -> tuple[int, str]:
@@ -367,6 +396,8 @@ class ScpiSession:
     def _raise_if_refused(self, command: str, timeout: InstrumentTimeout) -> None:
         """After a timeout: an instrument that refused a query queues an error and sends no
         answer (IEEE 488.2 behaviour); report that error instead of asking again."""
+        if not self.has_command("next_error"):
+            return
         cmd = self._profile.command("common", "next_error")
         try:
             with self._link.translate(cmd):

@@ -12,7 +12,7 @@ import math
 
 from drivers.profile import Profile
 from drivers.session import ScpiSession
-from rigbase.errors import InstrumentError, LimitError
+from rigbase.errors import InstrumentError, LimitError, SafetyError
 
 __all__ = ["Supply", "parse_bool"]
 
@@ -93,9 +93,31 @@ class Supply:
         value = self._check("amps", amps, "A")
         self.session.write(self._cmd("set_current_limit", amps=value))
 
+    def interlock_closed(self) -> bool | None:
+        """True if the supply reports its interlock (safety loop) closed; None when the
+        profile has no ``get_interlock`` query."""
+        if not self.profile.has_operation(self.ROLE, "get_interlock"):
+            return None
+        cmd = self._cmd("get_interlock")
+        return self.session.query(cmd).strip() == self.profile.dialect.interlock_closed
+
     def output(self, on: bool) -> None:
-        """Switch the output on or off."""
-        self.session.write(self._cmd("output_on" if on else "output_off"))
+        """Switch the output on or off.
+
+        On: where the profile has an interlock query, the interlock must read closed
+        (SafetyError otherwise, nothing sent), and where it has a separate enable command,
+        that goes first. Off: output off first, then the enable is withdrawn."""
+        has = self.profile.has_operation
+        if on:
+            if self.interlock_closed() is False:
+                raise SafetyError(f"{self.name}: interlock open; the output stays off")
+            if has(self.ROLE, "enable_output"):
+                self.session.write(self._cmd("enable_output"))
+            self.session.write(self._cmd("output_on"))
+            return
+        self.session.write(self._cmd("output_off"))
+        if has(self.ROLE, "disable_output"):
+            self.session.write(self._cmd("disable_output"))
 
     def output_is_on(self) -> bool:
         """True if the supply reports its output on."""

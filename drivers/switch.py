@@ -60,17 +60,21 @@ class SwitchBoard:
     def _cmd(self, operation: str, **fields: object) -> str:
         return self.profile.command(self.ROLE, operation, **fields)
 
+    def _list(self, chans: list[int]) -> str:
+        """The channel list as the profile writes it (``[switch.channel_list]``)."""
+        return self.profile.dialect.channel_list.text(chans)
+
     def close(self, channels: Iterable[int] | int) -> None:
         """Close (make) the relays of ``channels``; an empty list sends nothing."""
         chans = self._channels(channels)
         if chans:
-            self.session.write(self._cmd("close", channels=channel_list(chans)))
+            self.session.write(self._cmd("close", channels=self._list(chans)))
 
     def open(self, channels: Iterable[int] | int) -> None:
         """Open (break) the relays of ``channels``; an empty list sends nothing."""
         chans = self._channels(channels)
         if chans:
-            self.session.write(self._cmd("open", channels=channel_list(chans)))
+            self.session.write(self._cmd("open", channels=self._list(chans)))
 
     def open_all(self) -> None:
         """Open every relay of the board."""
@@ -81,14 +85,18 @@ class SwitchBoard:
         chans = self._channels(channels)
         if not chans:
             return []
-        cmd = self._cmd("get_closed", channels=channel_list(chans))
+        cmd = self._cmd("get_closed", channels=self._list(chans))
         text = self.session.query(cmd)
-        words = [w.strip() for w in text.split(",")]
-        if len(words) != len(chans) or any(w not in ("0", "1") for w in words):
+        rb = self.profile.dialect.readback
+        words = [w.strip() for w in text.strip().split(rb.separator.strip() or None)]
+        if len(words) != len(chans) or any(w not in (rb.closed, rb.open) for w in words):
             raise InstrumentError(
-                self.name, cmd, f"expected {len(chans)} comma-separated 0/1 values, got {text!r}"
+                self.name,
+                cmd,
+                f"expected {len(chans)} values {rb.closed}/{rb.open} separated by "
+                f"{rb.separator!r}, got {text!r}",
             )
-        return [w == "1" for w in words]
+        return [w == rb.closed for w in words]
 
     def transfer(
         self,

@@ -37,9 +37,10 @@ import pyvisa
 from pyvisa import constants
 from pyvisa import errors as visa_errors
 
+from drivers.dialect import Link
 from rigbase.errors import ConnectionLost, InstrumentError, InstrumentTimeout
 
-__all__ = ["VisaLink"]
+__all__ = ["VisaLink", "serial_settings"]
 
 log = logging.getLogger(__name__)
 
@@ -50,6 +51,33 @@ _CONNECTION_CODES = {
     constants.StatusCode.error_closing_failed,
     constants.StatusCode.error_resource_not_found,
 }
+
+
+_PARITY = {
+    "none": constants.Parity.none,
+    "even": constants.Parity.even,
+    "odd": constants.Parity.odd,
+}
+_STOP = {
+    1.0: constants.StopBits.one,
+    1.5: constants.StopBits.one_and_a_half,
+    2.0: constants.StopBits.two,
+}
+_FLOW = {
+    "none": constants.ControlFlow.none,
+    "xon_xoff": constants.ControlFlow.xon_xoff,
+    "rts_cts": constants.ControlFlow.rts_cts,
+}
+
+
+def serial_settings(res: Any, link: Link) -> None:
+    """Baud rate, data bits, parity, stop bits and flow control of a serial (ASRL) resource
+    as the profile's ``[link]`` gives them (VISA serial attributes, via pyserial in pyvisa-py)."""
+    res.baud_rate = link.baud_rate
+    res.data_bits = link.data_bits
+    res.parity = _PARITY[link.parity]
+    res.stop_bits = _STOP[link.stop_bits]
+    res.flow_control = _FLOW[link.flow_control]
 
 
 def _ms(seconds: float) -> int:
@@ -66,8 +94,14 @@ class VisaLink:
     """
 
     def __init__(
-        self, rm: pyvisa.ResourceManager, resource_name: str, name: str, timeout_s: float
+        self,
+        rm: pyvisa.ResourceManager,
+        resource_name: str,
+        name: str,
+        timeout_s: float,
+        link: Link | None = None,
     ) -> None:
+        self.link = link or Link()
         self.rm = rm
         self.resource_name = resource_name
         self.name = name
@@ -82,11 +116,13 @@ class VisaLink:
         try:
             res = self.rm.open_resource(
                 self.resource_name,
-                read_termination="\n",
-                write_termination="\n",
+                read_termination=self.link.read_termination or None,
+                write_termination=self.link.write_termination,
                 timeout=ms,
                 open_timeout=ms,
             )
+            if self.resource_name.upper().startswith("ASRL"):
+                serial_settings(res, self.link)
         except (visa_errors.Error, OSError, ValueError) as exc:
             raise ConnectionLost(
                 self.name, None, f"cannot open {self.resource_name}: {exc}"

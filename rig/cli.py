@@ -174,9 +174,11 @@ def cmd_run(args: argparse.Namespace) -> int:
     from rig.planning.sequence import load_sequence
     from rig.runner.cycle import host_info
     from rig.runner.opener import load_bench
+    from rig.runner.signoff import check_calibration, sign_off
     from rig.store.runfolder import RunWriter, new_run_id
 
     bench = load_bench(args.bench)
+    accepted = check_calibration(bench, _today(), input if sys.stdin.isatty() else None)
     seq = load_sequence(args.sequence, bench)
     plan = build_plan(seq, bench)
     findings = safety_review(plan, bench, seq)
@@ -197,6 +199,14 @@ def cmd_run(args: argparse.Namespace) -> int:
         "software": host_info(),
         "started": _now_iso(),
         "status": "created",
+        "calibration": bench.calibration.rows(),
+        "operator": sign_off(
+            bench,
+            getattr(args, "operator", None),
+            getattr(args, "sign_off", None),
+            accepted,
+            _now(),
+        ),
     }
     writer = RunWriter.create(
         args.results,
@@ -214,10 +224,12 @@ def cmd_resume(args: argparse.Namespace) -> int:
     from rig.planning.plan import build_plan
     from rig.planning.sequence import load_sequence
     from rig.runner.opener import load_bench
+    from rig.runner.signoff import check_calibration
     from rig.store.runfolder import RunWriter, read_manifest, read_plan
 
     run = Path(args.run)
     bench = load_bench(run / "bench.toml")
+    check_calibration(bench, _today(), input if sys.stdin.isatty() else None)
     seq = load_sequence(run / "sequence.toml", bench)
     plan = build_plan(seq, bench)
     stored = [p["key"] for p in read_plan(run)]
@@ -351,18 +363,22 @@ def cmd_sim_serve(args: argparse.Namespace) -> int:
 
     from rig.planning.benchfile import resolve_meter_model
     from rig.runner.opener import load_bench, serve_simulated_bench
+    from rig.runner.pasteable import pasteable_bench
 
     bench = load_bench(args.bench)
     if bench.simulation is None:
         raise FileFormatError(args.bench, "simulation", "this bench file has no [simulation] table")
     meter = resolve_meter_model(args.meter) if args.meter else None
-    with serve_simulated_bench(bench, meter) as sim:
+    with serve_simulated_bench(bench, meter, args.port) as sim:
         _out("Simulated bench: no voltage leaves this computer. Before driving a real bench,")
         _out("read the high-voltage cautions of `rig --help` and the README.")
         _out(f"simulated bench running in real time, meter model {sim.world.config.meter_model}")
         for role, res in sim.resources.items():
             _out(f"  {role:8s} {res}")
-        _out("profile: drivers/profiles/scpi1999.toml; Ctrl-C stops")
+        _out("bench file for these instruments (paste into a .toml file):")
+        _out("# ---8<---")
+        _out(pasteable_bench(Path(args.bench).read_text(encoding="utf-8"), sim.resources))
+        _out("# ---8<---  Ctrl-C stops")
         try:
             while True:
                 time.sleep(args.poll)
@@ -371,14 +387,63 @@ def cmd_sim_serve(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_bringup(args: argparse.Namespace) -> int:
+    from contextlib import nullcontext
+
+    from rig.runner.bringup import bring_up, propose_profile
+    from rig.runner.opener import load_bench, serve_simulated_bench
+
+    bench = load_bench(args.bench)
+    roles = [args.role] if args.role else [r for r in ("supply", "switch", "scope")]
+    sim = serve_simulated_bench(bench) if bench.simulation is not None else nullcontext()
+    with sim as running:
+        where = running.resources if running is not None else {}
+        resources = {r: where.get(r, s.resource) for r, s in bench.instruments.items()}
+        reports = bring_up(bench, roles, resources, _out)
+    for rep in reports:
+        proposed = propose_profile(rep, Path(args.write))
+        if proposed is not None:
+            _out(f"proposed profile with the finding: {proposed}")
+    fixes = [f for f in (r.first_fix() for r in reports) if f]
+    _out(f"first thing to fix: {fixes[0]}" if fixes else "bring-up: every step matched")
+    return EXIT_NO if fixes else EXIT_OK
+
+
+def cmd_profile_check(args: argparse.Namespace) -> int:
+    from drivers.profiledoc import check_profile
+
+    problems = check_profile(args.profile)
+    for p in problems:
+        _out(p)
+    _out(f"{args.profile}: " + (f"{len(problems)} problem(s)" if problems else "no problems found"))
+    return EXIT_INPUT if problems else EXIT_OK
+
+
+def cmd_profile_doc(args: argparse.Namespace) -> int:
+    from drivers.profiledoc import write_page
+
+    for name in args.profile:
+        _out(f"wrote {write_page(name, Path(args.out))}")
+    return EXIT_OK
+
+
 # ---------------------------------------------------------------------------------------------
 # plumbing
 
 
 def _now_iso() -> str:
+    return _now().isoformat(timespec="seconds")
+
+
+def _now() -> Any:
     from datetime import UTC, datetime
 
-    return datetime.now(UTC).isoformat(timespec="seconds")
+    return datetime.now(UTC)
+
+
+def _today() -> Any:
+    """Today's date (UTC), for calibration due dates."""
+    return _now().date()
 
 
 class _pd_display:
@@ -440,6 +505,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     sp.add_argument("--no-report", action="store_true", help="skip analysis and report at the end")
     sp.add_argument("--quiet", action="store_true", help="no live display")
+    sp.add_argument("--operator", help="operator's name, recorded in the manifest (real hardware)")
+    sp.add_argument("--sign-off", help="sign-off line for the manifest (default: who, when)")
 
     sp = add("resume", cmd_resume, "continue an interrupted run (no gaps, no duplicates)")
     sp.add_argument("run", help="run folder")
@@ -513,6 +580,16 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("run", help="run folder")
     sp.add_argument("--baseline", help="baseline run folder to overlay and compare")
 
+    sp = add("bringup", cmd_bringup, "walk each instrument's profile command by command, safely")
+    sp.add_argument("bench", help="bench file (TOML)")
+    sp.add_argument("--role", choices=("supply", "switch", "scope"), help="only this instrument")
+    sp.add_argument("--write", default=".", help="folder for proposed profiles (default .)")
+    sp = add("profile-check", cmd_profile_check, "check a profile file without an instrument")
+    sp.add_argument("profile", help="profile name or file")
+    sp = add("profile-doc", cmd_profile_doc, "write the command-set page of profiles (Markdown)")
+    sp.add_argument("profile", nargs="+", help="profile names or files")
+    sp.add_argument("--out", default="docs/dialects", help="folder (default docs/dialects)")
+
     sim = add("sim", lambda a: (sim.print_help(), EXIT_INPUT)[1], "simulated bench tools")
     simsub = sim.add_subparsers(dest="sim_command", metavar="SUBCOMMAND")
     sp = simsub.add_parser(
@@ -524,6 +601,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.set_defaults(func=cmd_sim_serve)
     sp.add_argument("bench", help="bench file with a [simulation] table")
     sp.add_argument("--meter", help="meter model id or netlist path (default: the bench's)")
+    sp.add_argument(
+        "--port", type=int, metavar="BASE", help="fixed TCP ports BASE..BASE+3 (default: any free)"
+    )
     sp.add_argument("--poll", type=float, default=0.5, help=argparse.SUPPRESS)
     return p
 

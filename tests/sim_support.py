@@ -280,9 +280,10 @@ def error_codes(inst) -> list[int]:
     return [code for code, _ in drain_errors(inst)]
 
 
-def start_double_bench(config: WorldConfig):
-    """The simulated instruments around a :class:`SimpleRcWorld` on a virtual clock."""
+def start_double_bench(config: WorldConfig, dialects: dict[str, str] | None = None):
+    """The simulated instruments around a :class:`SimpleRcWorld` on a virtual clock,
+    speaking the dialects of ``dialects`` (role -> profile name), SCPI-1999 otherwise."""
     from drivers.sim.bench import start_sim_bench
 
     clock = VirtualClock()
-    return start_sim_bench(config, clock, world=SimpleRcWorld(config, clock))
+    return start_sim_bench(config, clock, world=SimpleRcWorld(config, clock), dialects=dialects)

@@ -12,7 +12,7 @@ dotted key (``simulation.bounce.min_s``), its line and the problem.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 
 from drivers.sim.interfaces import BenchWiring, BounceSpec, Faults, LoadSpec, SenseSpec, WorldConfig
@@ -32,7 +32,9 @@ SIM_KEYS = (
     "meter_model",
     "bounce",
     "faults",
+    "dialects",
 )
+PROFILES_DIR = Path(__file__).resolve().parents[1] / "profiles"
 
 
 @dataclass(frozen=True)
@@ -41,6 +43,7 @@ class SimulationConfig:
 
     clock: str
     world: WorldConfig
+    dialects: dict[str, Path] = field(default_factory=dict)  # role -> profile it speaks
 
 
 def read_simulation(
@@ -122,4 +125,12 @@ def read_simulation(
         seed=t.integer("seed", d.seed, minimum=0),
         faults=faults,
     )
-    return SimulationConfig(clock, world)
+    # [simulation.dialects]: the dialect a simulated instrument speaks when it is not the one
+    # of the profile the bench names (to try a profile being written against a known one)
+    dt = t.table("dialects", ("supply", "switch", "scope", "meter"))
+    dialects = {
+        role: resolve_file(dt, role, dt.string(role), base_dir, PROFILES_DIR, "profile")
+        for role in ("supply", "switch", "scope", "meter")
+        if dt.has(role)
+    }
+    return SimulationConfig(clock, world, dialects)

@@ -31,6 +31,7 @@ import socket
 import threading
 import time
 from types import TracebackType
+from typing import Any
 
 from drivers.sim.interfaces import Faults
 from drivers.sim.scpi import Block, CommandRejected, ScpiDevice, encode_block
@@ -48,12 +49,18 @@ class ScpiServer:
 
     def __init__(
         self,
-        device: ScpiDevice,
+        device: ScpiDevice | Any,
         faults: Faults | None = None,
         name: str = "instrument",
         host: str = "127.0.0.1",
         port: int = 0,
+        line_end: bytes = b"\n",
+        reply_end: bytes = b"\n",
     ) -> None:
+        # a dialect may end its lines with CR (the byte that ends a program message) and its
+        # replies with CR LF; the other line-end byte is then blank space around a message
+        self.line_end = line_end[-1:]
+        self.reply_end = reply_end
         self.device = device
         self.faults = faults or Faults()
         self.name = name
@@ -136,7 +143,7 @@ class ScpiServer:
         messages = 0
         try:
             while not self._closing.is_set():
-                nl = buffer.find(b"\n")
+                nl = buffer.find(self.line_end)
                 if nl < 0:
                     if len(buffer) > MAX_LINE_BYTES:
                         if not discarding:
@@ -213,7 +220,7 @@ class ScpiServer:
                     return False
                 if chunk:
                     buffer += chunk
-                    if b"\n" in buffer:
+                    if self.line_end in buffer:
                         self.device.push_error(-410, "new message before the reply was read")
                         return True
         return True
@@ -239,7 +246,7 @@ class ScpiServer:
                 parts.append(encode_block(item.payload, self._announce(len(item.payload))))
             else:
                 parts.append(str(item).encode("ascii", "replace"))
-        return b";".join(parts) + b"\n"
+        return b";".join(parts) + self.reply_end
 
     def _announce(self, length: int) -> int | None:
         every = self.faults.corrupt_block_every

@@ -21,6 +21,7 @@ from pathlib import Path
 from typing import Any
 
 import drivers
+from rig.planning.calibration import Calibration, read_calibration
 from rigbase.tomlcheck import (
     REQUIRED,
     Context,
@@ -160,6 +161,7 @@ class Simulation:
     base_dir: Path
     clock: str | None = None  # "virtual" | "real", once read
     world: Any = None  # the simulator's WorldConfig, once read
+    dialects: Any = None  # role -> profile path each simulated instrument speaks, once read
 
 
 @dataclass(frozen=True)
@@ -179,6 +181,7 @@ class Bench:
     limits: Limits
     simulation: Simulation | None
     raw: dict[str, Any]
+    calibration: Calibration = Calibration()  # shunt/probe, divider and deskew records
 
     @property
     def uses_simulation(self) -> bool:
@@ -194,7 +197,17 @@ class Bench:
         raise KeyError(name)
 
 
-_BENCH_TOP = ("bench", "instruments", "channels", "parts", "loads", "sense", "limits", "simulation")
+_BENCH_TOP = (
+    "bench",
+    "instruments",
+    "channels",
+    "parts",
+    "loads",
+    "sense",
+    "limits",
+    "simulation",
+    "calibration",
+)
 
 
 def _profile_channel_range(profile: Path) -> tuple[int, int] | None:
@@ -375,6 +388,14 @@ def read_bench_file(path: str | Path) -> Bench:
         "loads": _read_loads(top, channels, switch_profile),
     }
     partial["sense"], partial["divider_ratio"], partial["divider_ohms"] = _read_sense(top)
+    calibration = read_calibration(top)
+    if calibration.divider_ratio is not None:
+        if partial["divider_ratio"] is None:
+            raise top.error(
+                ("calibration", "voltage"),
+                "a divider calibration, but [sense.voltage] has no divider",
+            )
+        partial["divider_ratio"] = calibration.divider_ratio  # the measured ratio is the one used
     limits = _read_limits(top)
     resources = [s.resource for s in instruments.values() if s.resource is not None]
     simulated = all(r == "sim" for r in resources)
@@ -391,6 +412,7 @@ def read_bench_file(path: str | Path) -> Bench:
         **partial,
         "limits": limits,
         "simulation": simulation,
+        "calibration": calibration,
     }
     raw = jsonable({**fields_, "simulation": None})
     if simulation is not None:

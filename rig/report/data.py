@@ -67,7 +67,7 @@ def _load_groups(run: Path) -> pd.DataFrame:
     for c in _GROUP_KEYS + optional:  # older or partial tables: show what is there
         if c not in g.columns:
             g[c] = np.nan
-    g["verdict"] = g["verdict"].fillna("").astype(str).str.strip()
+    g["verdict"] = g["verdict"].astype(object).fillna("").astype(str).str.strip()  # all-NaN: float
     return with_capture(g)
 
 

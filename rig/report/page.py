@@ -37,6 +37,7 @@ from rig.report import figures as F
 
 # FLAG_TEXT lives with the loading, which derives the ``flagged`` column from it; both it and
 # _GROUP_KEYS (the group keys of rig.analysis.stats) stay importable from here.
+from rig.report.calibration import section_calibration
 from rig.report.data import (
     _GROUP_KEYS,  # noqa: F401
     FLAG_TEXT,
@@ -73,6 +74,7 @@ SECTIONS = (
     ("glance", "At a glance"),
     ("verdicts", "Verdicts against the limits"),
     ("caution", "High-voltage caution"),
+    ("calibration", "Calibration and sign-off"),
     ("waveforms", "Discharge waveforms"),
     ("peaks", "Peak current per event"),
     ("trends", "Peak current and charge against charge voltage"),
@@ -120,6 +122,7 @@ def write_report(
     body["glance"] = _section_glance(m, g)
     body["verdicts"] = _section_verdicts(g) + _limits_table(man)
     body["caution"] = _CAUTION
+    body["calibration"] = section_calibration(man)
     body["waveforms"] = _section_waveforms(run, m, modes, colours, out)
     log.info("report %s: waveforms done after %.1f s", run.name, time.perf_counter() - t_start)
 

@@ -391,12 +391,17 @@ class Runner:
             )
         sc.configure_acquisition(s.sample_interval_s, s.points, s.trigger_offset_s)
         sc.configure_trigger(1, s.trigger_level_amps * vpa, s.trigger_slope)
-        sc.set_format(s.bits, "big")
+        sc.set_format(s.bits)  # the byte order the profile prefers
 
     def _fetch(self, s: Any) -> Waveform:
         """Raw codes of the current (and voltage) inputs with scaling to amperes (and volts)."""
         sc = self.bench.scope
-        inputs = [(1, "current", "A", 1.0 / self.volts_per_amp)]
+        # calibration (rig.planning.calibration): the sense's gain and zero error are applied
+        # to the stored scaling; the divider's measured ratio is already cfg.divider_ratio
+        cal = getattr(self.cfg, "calibration", None)
+        gain_cal = cal.current_gain if cal is not None else 1.0
+        zero_amps = cal.current_offset_amps if cal is not None else 0.0
+        inputs = [(1, "current", "A", 1.0 / self.volts_per_amp / gain_cal)]
         if self.cfg.divider_ratio:
             inputs.append((2, "voltage", "V", float(self.cfg.divider_ratio)))
         traces = [(sc.fetch(k), name, unit, scale) for k, name, unit, scale in inputs]
@@ -410,6 +415,7 @@ class Runner:
                 for t, _, _, scale in traces
             ]
         )
+        offset[0] -= zero_amps
         lo, hi = np.iinfo(codes.dtype).min, np.iinfo(codes.dtype).max
         return Waveform(
             codes=codes,

@@ -120,15 +120,23 @@ def _resolve_simulation(bench: Bench) -> Bench:
         base_dir=sim.base_dir,
     )
     raw = {**bench.raw, "simulation": jsonable(cfg)}
-    return replace(bench, simulation=replace(sim, clock=cfg.clock, world=cfg.world), raw=raw)
+    # each simulated instrument speaks the dialect of the profile the bench names for it,
+    # unless [simulation.dialects] names another (to try a profile against a known dialect)
+    dialects = {r: s.profile for r, s in bench.instruments.items() if s.control == "scpi"}
+    dialects.update(cfg.dialects)
+    sim = replace(sim, clock=cfg.clock, world=cfg.world, dialects=dialects)
+    return replace(bench, simulation=sim, raw=raw)
 
 
 @contextmanager
-def serve_simulated_bench(bench: Bench, meter_model: Path | None = None) -> Iterator[Any]:
+def serve_simulated_bench(
+    bench: Bench, meter_model: Path | None = None, port_base: int | None = None
+) -> Iterator[Any]:
     """The simulated bench of a bench file on loopback, in real time (``rig sim serve``).
 
     Yields the running bench: ``.resources`` maps each role to its VISA resource string and
-    ``.world`` holds the physics. ``meter_model`` (a netlist path) replaces the file's meter.
+    ``.world`` holds the physics. ``meter_model`` (a netlist path) replaces the file's meter;
+    ``port_base`` fixes the TCP ports (base + 0, 1, 2, 3 for supply, switch, scope, meter).
     """
     bench = _resolve_simulation(bench)
     if bench.simulation is None:
@@ -138,7 +146,9 @@ def serve_simulated_bench(bench: Bench, meter_model: Path | None = None) -> Iter
     cfg = bench.simulation.world
     if meter_model is not None:
         cfg = replace(cfg, meter_model=str(meter_model))
-    with start_sim_bench(cfg, RealClock()) as sim:
+    with start_sim_bench(
+        cfg, RealClock(), dialects=bench.simulation.dialects, port_base=port_base
+    ) as sim:
         yield sim
 
 
@@ -165,7 +175,7 @@ def open_bench(
         if first_sim_model is not None:
             world_cfg = replace(world_cfg, meter_model=str(first_sim_model))
         clock = clock or (VirtualClock() if bench.simulation.clock == "virtual" else RealClock())
-        sim = start_sim_bench(world_cfg, clock)
+        sim = start_sim_bench(world_cfg, clock, dialects=bench.simulation.dialects)
         resources = dict(sim.resources)
     clock = clock or RealClock()
     sessions: list[ScpiSession] = []

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from drivers.profile import OPERATIONS, PROFILE_DIR, SCALING_FIELDS, Profile
+from drivers.profile import LAYOUT2_ONLY, OPERATIONS, PROFILE_DIR, SCALING_FIELDS, Profile
 from rigbase.errors import FileFormatError, ProfileError
 
 SHIPPED = PROFILE_DIR / "scpi1999.toml"
@@ -73,7 +73,7 @@ def shipped_text() -> str:
 # (case id, edit to apply to the shipped text, key the error must name, words in the problem)
 CASES = [
     ("no-profile-table", lambda t: drop_table(t, "profile"), "profile", "missing"),
-    ("format-2", lambda t: edit(t, "profile", "format", "2"), "profile.format", "unsupported"),
+    ("format-3", lambda t: edit(t, "profile", "format", "3"), "profile.format", "unsupported"),
     ("format-string", lambda t: edit(t, "profile", "format", '"1"'), "profile.format", "unsupported"),
     ("format-missing", lambda t: edit(t, "profile", "format", None), "profile.format", "missing"),
     ("name-empty", lambda t: edit(t, "profile", "name", '""'), "profile.name", "non-empty"),
@@ -172,7 +172,8 @@ def test_shipped_profile_loads_by_name_and_by_path() -> None:
     assert by_name.roles == {"common", "supply", "switch", "scope", "meter"}
     assert by_name.name == "generic SCPI-1999"
     for role, ops in OPERATIONS.items():
-        assert set(by_name.templates[role]) == set(ops)
+        # layout 1 has every operation but those that came with layout 2
+        assert set(by_name.templates[role]) == set(ops) - LAYOUT2_ONLY
     assert set(by_name.scaling_fields) == set(SCALING_FIELDS)
 
 

@@ -27,6 +27,7 @@ EXPECTED_SECTIONS = [
     "glance",
     "verdicts",
     "caution",
+    "calibration",
     "waveforms",
     "peaks",
     "trends",

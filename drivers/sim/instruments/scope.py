@@ -115,6 +115,7 @@ class SimScope(ScpiDevice):
         )
         a("INITiate[:IMMediate]", set=self._initiate, set_args=(0, 0))
         a("ABORt", set=self._abort, set_args=(0, 0))
+        a(f"{trig}:IMMediate", set=self._force, set_args=(0, 0))
         a(
             "FORMat[:DATA]",
             set=self._set_format,
@@ -223,6 +224,12 @@ class SimScope(ScpiDevice):
         # a new single shot makes the previous record stale (TRACe:DATA? -> -230 until done)
         self.complete = None
         self._arm(self.world.clock.now())
+
+    def _force(self, call: Call) -> None:
+        """Trigger now, whatever the input does (a record with no input)."""
+        self._advance()
+        if self.acq is not None and self.acq.t_trig is None:
+            self.acq.t_trig = self.world.clock.now()
 
     def _abort(self, call: Call) -> None:
         self.acq = None
