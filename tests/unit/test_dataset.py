@@ -219,3 +219,27 @@ def test_query_errors_name_the_problem(tmp_path):
         group_summary(tmp_path, "abs_peak_a", engine="duckdb")
     with pytest.raises(RigError, match="nonsense"):
         group_summary(tmp_path, "nonsense")
+
+
+def test_catalog_and_query_commands(results, tmp_path, capsys):
+    from rig.cli import main
+
+    ds = tmp_path / "ds"
+    assert main(["catalog", str(results), "--dataset", str(ds)]) == 0
+    text = capsys.readouterr().out
+    assert "10 added" in text and "1 skipped" in text and "Candidate B" in text
+    assert main(["catalog", str(results), "--dataset", str(ds)]) == 0
+    assert "0 added, 0 replaced, 10 unchanged" in capsys.readouterr().out
+    out_csv = tmp_path / "q.csv"
+    args = ["query", str(ds), "--per", "unit", "--where", "capture=peak", "--csv", str(out_csv)]
+    assert main([*args, "--engine", "duckdb"]) == 0
+    got = pd.read_csv(out_csv)
+    assert set(got["serial"]) == {s for _, s, _ in UNITS} and (got["capture"] == "peak").all()
+    assert main(["query", str(ds), "--variance", "--where", "volts=1000"]) == 0
+    assert "share_between" in capsys.readouterr().out
+    first_week = [f"20261102-0800-{s}" for _, s, _ in UNITS]
+    trend = ["query", str(ds), "--trend", "--where", "capture=peak", "--level", "event"]
+    assert main([*trend, *sum((["--baseline", r] for r in first_week), [])]) == 0
+    assert "6.3.2.2" in capsys.readouterr().out
+    assert main(["query", str(ds), "--where", "volts=high"]) == 2  # bad input: exit 2
+    assert "volts" in capsys.readouterr().err
