@@ -410,6 +410,8 @@ def _add_dataset_commands(add: Callable[..., argparse.ArgumentParser]) -> None:
     sp.add_argument("results", type=Path, help="folder of run folders (or one run folder)")
     sp.add_argument("--dataset", type=Path, help="dataset folder to build or update")
     sp.add_argument("--add", action="append", metavar="RUN", help="another run folder to add")
+    sp.add_argument("--analyse", action="store_true", help="analyse new runs first (on Dask)")
+    sp.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler (default: local)")
     sp = add("query", cmd_query, "statistics of a metric across the runs of a dataset")
     sp.add_argument("dataset", type=Path, help="dataset folder (from rig catalog --dataset)")
     sp.add_argument("--metric", default="peak_a", help="metric column (default peak_a)")

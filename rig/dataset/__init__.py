@@ -16,6 +16,7 @@ from rig.dataset.build import (
 from rig.dataset.catalog import CATALOG_COLUMNS, find_runs, list_runs, run_entry
 from rig.dataset.cluster import dask_client
 from rig.dataset.control import CHART_NAME, D2, D4, individuals_chart
+from rig.dataset.distribute import analyze_runs
 from rig.dataset.query import ENGINES, STAT_COLUMNS, group_summary, load_events
 from rig.dataset.variance import VARIANCE_COLUMNS, one_way_random_effects, variance_split
 
@@ -29,6 +30,7 @@ __all__ = [
     "STAT_COLUMNS",
     "VARIANCE_COLUMNS",
     "BuildSummary",
+    "analyze_runs",
     "build_dataset",
     "dask_client",
     "events_dir",

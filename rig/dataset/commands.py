@@ -31,7 +31,14 @@ def run_catalog(args: argparse.Namespace, out: Callable[[str], None]) -> int:
     cat = list_runs(args.results)
     out(_table(cat.drop(columns=["path"])))
     if args.dataset:
-        s = build_dataset(args.dataset, [*cat["path"], *(args.add or [])])
+        runs = [*cat["path"], *(args.add or [])]
+        if args.analyse:
+            from rig.dataset.distribute import analyze_runs
+
+            todo = [p for p, done in zip(cat["path"], cat["analysed"], strict=True) if not done]
+            analyze_runs(todo, scheduler=args.scheduler)
+            out(f"analysed {len(todo)} run(s) on Dask")
+        s = build_dataset(args.dataset, runs)
         out(
             f"dataset {args.dataset}: {len(s.added)} added, {len(s.replaced)} replaced, "
             f"{len(s.unchanged)} unchanged, {len(s.skipped)} skipped"

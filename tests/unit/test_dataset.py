@@ -243,3 +243,27 @@ def test_catalog_and_query_commands(results, tmp_path, capsys):
     assert "6.3.2.2" in capsys.readouterr().out
     assert main(["query", str(ds), "--where", "volts=high"]) == 2  # bad input: exit 2
     assert "volts" in capsys.readouterr().err
+
+
+def test_metrics_on_dask_equal_the_single_process_analysis(tmp_path):
+    import shutil
+
+    from rig.analysis.analyze import analyze_run
+    from rig.dataset import analyze_runs
+    from tests.unit.test_analysis import make_run
+
+    runs = [
+        make_run(tmp_path / "a", f"r{k}", rng=np.random.default_rng(k), serial=f"SN-{k}")
+        for k in range(3)
+    ]
+    single = tmp_path / "single"
+    for run in runs:
+        shutil.copytree(run, single / run.name)
+        analyze_run(single / run.name)
+    written = analyze_runs(runs)
+    assert written == [r / "metrics.parquet" for r in runs]
+    for run in runs:
+        got = pd.read_parquet(run / "metrics.parquet")
+        want = pd.read_parquet(single / run.name / "metrics.parquet")
+        pd.testing.assert_frame_equal(got, want)
+        assert (run / "groups.csv").read_text() == (single / run.name / "groups.csv").read_text()
