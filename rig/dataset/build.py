@@ -32,6 +32,7 @@ import pandas as pd
 
 from rig.analysis.stats import with_capture
 from rig.dataset.catalog import run_entry
+from rig.store.runfolder import read_manifest
 from rig.store.schema import METRIC_COLUMNS
 from rig.store.waveform import sha256_file
 from rigbase.errors import RunFolderError
@@ -137,19 +138,24 @@ def build_dataset(dataset: str | Path, run_dirs: list[str | Path]) -> BuildSumma
     entries = {str(r): row for r, row in zip(runs["run_id"], runs.to_dict("records"), strict=True)}
     summary = BuildSummary()
     for run_dir in map(Path, run_dirs):
+        metrics = run_dir / "metrics.parquet"
         try:
-            entry = run_entry(run_dir)
+            manifest = read_manifest(run_dir)
         except RunFolderError as exc:
             summary.skipped[str(run_dir)] = str(exc)
             continue
-        metrics = run_dir / "metrics.parquet"
         if not metrics.is_file():
             summary.skipped[str(run_dir)] = "not analysed (run `rig analyze` first)"
             continue
-        run_id, sha = entry["run_id"], sha256_file(metrics)
+        run_id, sha = str(manifest.get("run_id") or run_dir.name), sha256_file(metrics)
         target = events_dir(dataset) / f"{run_id}.parquet"
-        if known.get(run_id) == sha and target.is_file():
+        if known.get(run_id) == sha and target.is_file():  # decided before reading the journal
             summary.unchanged.append(run_id)
+            continue
+        try:
+            entry = run_entry(run_dir)
+        except RunFolderError as exc:  # e.g. a journal line that is not JSON
+            summary.skipped[str(run_dir)] = str(exc)
             continue
         frame = _events_frame(run_dir, run_id)
         _write_atomic(frame, target)
