@@ -10,9 +10,12 @@ Layout (any Zarr v3 reader opens it, e.g. ``zarr.open_group(zarr.storage.ZipStor
   round-trips float64 exactly.
 
 Why this codec: measured on the demo's stored events (tests/perf/bench_waveform_store.py),
-Blosc-zstd-1 with bit shuffle gave 2.3x smaller files than ``.npz`` at about 8 ms per event
-on this machine; plain zstd gave 2.1x, higher zstd levels were no smaller (the ADC noise of a
-few codes sets the limit), and HDF5 with built-in gzip gave 2.3x at about 22 ms. One zip per
+Blosc-zstd-1 with bit shuffle gave files 2.34x smaller than ``.npz`` at 8-15 ms per event
+(atomic write with fsync and checksum; the spread is the load of this shared 2-core machine);
+plain zstd gave 2.1x, Blosc-zstd-5 no smaller (the ADC noise of a few codes sets the limit),
+and HDF5 (h5py) with its built-in gzip and shuffle 2.3x at about 22 ms; HDF5 with zstd would
+need a filter plugin that standard HDF5 tools lack, while Blosc is a core Zarr v3 codec.
+One zip per
 event keeps the run folder's one-file-per-event contract: the file is written under a
 temporary name, fsynced and renamed, its SHA-256 goes into the journal, and the journal stays
 the source of truth.
