@@ -15,10 +15,10 @@ Blosc-zstd-1 with bit shuffle gave files 2.34x smaller than ``.npz`` at 8-15 ms 
 plain zstd gave 2.1x, Blosc-zstd-5 no smaller (the ADC noise of a few codes sets the limit),
 and HDF5 (h5py) with its built-in gzip and shuffle 2.3x at about 22 ms; HDF5 with zstd would
 need a filter plugin that standard HDF5 tools lack, while Blosc is a core Zarr v3 codec.
-One zip per
-event keeps the run folder's one-file-per-event contract: the file is written under a
-temporary name, fsynced and renamed, its SHA-256 goes into the journal, and the journal stays
-the source of truth.
+
+One zip per event keeps the run folder's one-file-per-event contract: the file is written
+under a temporary name, fsynced and renamed, its SHA-256 goes into the journal, and the
+journal stays the source of truth.
 
 zarr is imported on first use so commands that never touch waveforms start fast.
 """
