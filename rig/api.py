@@ -10,8 +10,29 @@ Example (a run of the bundled demo; the demo's names are fictitious)::
 
 Nothing here writes into the run folder. This module only hands on the public names of the
 stages below it, so a notebook needs one import.
+
+Across runs (rig.dataset): ``list_runs``, ``build_dataset``, ``group_summary`` (pandas, DuckDB
+or Dask), ``variance_split`` and ``individuals_chart`` over ``load_events(dataset)``.
 """
 
 from rig.analysis.runs import group_waveforms, load_event_waveform, load_run
+from rig.dataset import (
+    build_dataset,
+    group_summary,
+    individuals_chart,
+    list_runs,
+    load_events,
+    variance_split,
+)
 
-__all__ = ["group_waveforms", "load_event_waveform", "load_run"]
+__all__ = [
+    "build_dataset",
+    "group_summary",
+    "group_waveforms",
+    "individuals_chart",
+    "list_runs",
+    "load_event_waveform",
+    "load_events",
+    "load_run",
+    "variance_split",
+]

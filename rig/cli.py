@@ -457,6 +457,40 @@ class _pd_display:
         self._ctx.__exit__(*exc)
 
 
+def cmd_catalog(args: argparse.Namespace) -> int:
+    from rig.dataset.commands import run_catalog
+
+    return run_catalog(args, _out)
+
+
+def cmd_query(args: argparse.Namespace) -> int:
+    from rig.dataset.commands import run_query
+
+    return run_query(args, _out)
+
+
+def _add_dataset_commands(add: Callable[..., argparse.ArgumentParser]) -> None:
+    """``rig catalog`` and ``rig query`` (rig.dataset); options only, nothing imported."""
+    sp = add("catalog", cmd_catalog, "list run folders; with --dataset, gather analysed runs")
+    sp.add_argument("results", type=Path, help="folder of run folders (or one run folder)")
+    sp.add_argument("--dataset", type=Path, help="dataset folder to build or update")
+    sp.add_argument("--add", action="append", metavar="RUN", help="another run folder to add")
+    sp.add_argument("--analyse", action="store_true", help="analyse new runs first (on Dask)")
+    sp.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler (default: local)")
+    sp = add("query", cmd_query, "statistics of a metric across the runs of a dataset")
+    sp.add_argument("dataset", type=Path, help="dataset folder (from rig catalog --dataset)")
+    sp.add_argument("--metric", default="peak_a", help="metric column (default peak_a)")
+    sp.add_argument("--per", choices=("model", "unit"), default="model", help="group by")
+    sp.add_argument("--where", action="append", metavar="COL=VALUE", help="filter; repeatable")
+    sp.add_argument("--engine", choices=("pandas", "duckdb", "dask"), default="pandas")
+    sp.add_argument("--scheduler", metavar="ADDRESS", help="Dask scheduler (default: local)")
+    sp.add_argument("--variance", action="store_true", help="split between units and events")
+    sp.add_argument("--trend", action="store_true", help="I-MR chart per unit over time")
+    sp.add_argument("--baseline", action="append", metavar="RUN_ID", help="baseline run id")
+    sp.add_argument("--level", choices=("run", "event"), default="run", help="chart points")
+    sp.add_argument("--csv", type=Path, help="also write the table to this CSV file")
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="rig",
@@ -589,6 +623,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("profile-doc", cmd_profile_doc, "write the command-set page of profiles (Markdown)")
     sp.add_argument("profile", nargs="+", help="profile names or files")
     sp.add_argument("--out", default="docs/dialects", help="folder (default docs/dialects)")
+    _add_dataset_commands(add)
 
     sim = add("sim", lambda a: (sim.print_help(), EXIT_INPUT)[1], "simulated bench tools")
     simsub = sim.add_subparsers(dest="sim_command", metavar="SUBCOMMAND")

@@ -41,12 +41,32 @@ def load_run(run_dir: str | Path) -> pd.DataFrame:
     return with_capture(journal_frame(run_dir))
 
 
+# (run folder, journal size, journal mtime) -> {event: row}; the journal is append-only, so a
+# changed size or time means new events and a fresh read. Kept for the last few runs only.
+_ROWS: dict[tuple[str, int, int], dict[int, dict[str, Any]]] = {}
+_ROWS_KEPT = 4
+
+
 def _row(run_dir: Path, event: int) -> dict[str, Any]:
-    jr = journal_frame(run_dir)
-    hit = jr[jr["event"] == event]
-    if hit.empty:
-        raise RunFolderError(f"{run_dir / 'journal.jsonl'}: no event {event}")
-    return hit.iloc[0].to_dict()
+    """One event's journal row; the journal is read once per run (not once per event)."""
+    journal = run_dir / "journal.jsonl"
+    try:
+        st = journal.stat()
+        key = (str(run_dir.resolve()), st.st_size, st.st_mtime_ns)
+    except FileNotFoundError:
+        key = None
+    rows = _ROWS.get(key) if key else None
+    if rows is None:
+        jr = journal_frame(run_dir)
+        rows = {int(e): r for e, r in zip(jr["event"], jr.to_dict("records"), strict=True)}
+        if key:
+            while len(_ROWS) >= _ROWS_KEPT:
+                _ROWS.pop(next(iter(_ROWS)))
+            _ROWS[key] = rows
+    hit = rows.get(event)
+    if hit is None:
+        raise RunFolderError(f"{journal}: no event {event}")
+    return hit
 
 
 def load_event_waveform(run_dir: str | Path, event: int) -> Waveform:

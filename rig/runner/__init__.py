@@ -13,6 +13,7 @@ from rig.runner.cycle import (
 )
 from rig.runner.display import (
     LiveDisplay,
+    RunningMedian,
 )
 from rig.runner.interlocks import (
     Interlocks,
@@ -29,6 +30,7 @@ __all__ = [
     "ExitPath",
     "Interlocks",
     "LiveDisplay",
+    "RunningMedian",
     "OpenBench",
     "Phase",
     "RunOutcome",

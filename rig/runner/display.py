@@ -7,7 +7,7 @@ per group change and per tenth of the plan is printed instead.
 
 from __future__ import annotations
 
-import statistics
+import heapq
 import sys
 from collections import OrderedDict
 from dataclasses import dataclass, field
@@ -22,13 +22,46 @@ from rig.runner.cycle import Observer, Phase
 from rig.store.waveform import Waveform
 from rigbase.units import eng
 
-__all__ = ["LiveDisplay"]
+__all__ = ["LiveDisplay", "RunningMedian"]
+
+
+class RunningMedian:
+    """Exact median of a growing list of numbers in O(log n) per value and O(1) per query:
+    the lower half in a max-heap, the upper half in a min-heap, sizes within one (the classic
+    two-heap running median; common practice, no source). The display used to sort the whole
+    group on every event (n^2 over a run)."""
+
+    def __init__(self) -> None:
+        self._low: list[float] = []  # negated: heapq is a min-heap
+        self._high: list[float] = []
+
+    def __len__(self) -> int:
+        return len(self._low) + len(self._high)
+
+    def add(self, x: float) -> None:
+        """Take one value (finite)."""
+        if self._low and x > -self._low[0]:
+            heapq.heappush(self._high, x)
+        else:
+            heapq.heappush(self._low, -x)
+        if len(self._low) > len(self._high) + 1:
+            heapq.heappush(self._high, -heapq.heappop(self._low))
+        elif len(self._high) > len(self._low):
+            heapq.heappush(self._low, -heapq.heappop(self._high))
+
+    def median(self) -> float | None:
+        """The median (mean of the two middle values for an even count); None when empty."""
+        if not self._low:
+            return None
+        if len(self._low) > len(self._high):
+            return -self._low[0]
+        return (-self._low[0] + self._high[0]) / 2.0
 
 
 @dataclass
 class _GroupRow:
     done: int = 0
-    values: list[float] = field(default_factory=list)
+    values: RunningMedian = field(default_factory=RunningMedian)
     flags: int = 0
     last: float | None = None
 
@@ -116,7 +149,7 @@ class LiveDisplay(Observer):
             value = m["charge_c"] if key[2] in self.charge_captures else m["abs_peak_a"]
             g.last = value
             if value is not None and value == value:  # NaN-safe
-                g.values.append(abs(value))
+                g.values.add(abs(value))
         self._done += 1
         self.progress.update(self.task, completed=self._done)
         if self._live is not None:
@@ -138,7 +171,7 @@ class LiveDisplay(Observer):
     def _describe(self, key: tuple, g: _GroupRow) -> str:
         meter, mode, capture, volts, load, delay = key
         label, unit = self._figure(capture)
-        med = statistics.median(g.values) if g.values else None
+        med = g.values.median()
         return (
             f"{meter} {mode} [{capture}] {volts:g} V {load}: {g.done} done, last {label} "
             f"{eng(g.last, unit)}, median {eng(med, unit)}, flagged {g.flags}"
@@ -164,7 +197,7 @@ class LiveDisplay(Observer):
             table.add_column(col, justify="left" if col in left else "right")
         for (meter, mode, capture, volts, load, delay), g in list(self.groups.items())[-12:]:
             label, unit = self._figure(capture)
-            med = statistics.median(g.values) if g.values else None
+            med = g.values.median()
             table.add_row(
                 str(meter),
                 str(mode),

@@ -19,6 +19,7 @@ from rig.store.schema import (
     METRIC_COLUMNS,
 )
 from rig.store.waveform import (
+    WAVEFORM_SUFFIX,
     Waveform,
     load_waveform,
     save_waveform,
@@ -32,6 +33,7 @@ __all__ = [
     "METRIC_COLUMNS",
     "RunWriter",
     "Verification",
+    "WAVEFORM_SUFFIX",
     "Waveform",
     "load_waveform",
     "new_run_id",

@@ -5,7 +5,8 @@ Layout of ``results/<run-id>/`` (format 1)::
     manifest.json    what was run, on what, by which software; status and times
     plan.json        the planned events in order (the runner's to-do list, for resume)
     journal.jsonl    one JSON object per finished event, appended, flushed and fsynced
-    waveforms/       one ``<event>.npz`` per captured event (see rig.store.waveform)
+    waveforms/       one ``e<event>.zarr.zip`` per captured event (``.npz`` in older runs;
+                     see rig.store.waveform)
     events.parquet   the journal as a table, written when the run ends
 
 A killed run loses at most the event in flight: a final journal line without its newline is
@@ -24,7 +25,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-from rig.store.waveform import Waveform, save_waveform, sha256_file
+from rig.store.waveform import WAVEFORM_SUFFIX, Waveform, save_waveform, sha256_file
 from rigbase.errors import RunFolderError
 
 __all__ = [
@@ -213,7 +214,7 @@ class RunWriter:
 
     def waveform_path(self, event: int) -> tuple[Path, str]:
         """Absolute path and run-relative name of an event's waveform file."""
-        rel = f"{WAVEFORMS}/e{event:06d}.npz"
+        rel = f"{WAVEFORMS}/e{event:06d}{WAVEFORM_SUFFIX}"
         return self.path / rel, rel
 
     def commit(self, row: dict[str, Any], waveform: Waveform | None) -> dict[str, Any]:

@@ -1,6 +1,12 @@
 """One captured event on disk: raw ADC codes plus the scaling that turns them into SI values.
 
-File format (``.npz``, written with :func:`numpy.savez`, read with ``allow_pickle=False``):
+Two formats, chosen by the file name. New runs write ``.zarr.zip`` (:data:`WAVEFORM_SUFFIX`):
+a compressed Zarr v3 group in one zip file, see :mod:`rig.store.zarrwave`. Run folders
+recorded before it hold ``.npz`` files, which :func:`load_waveform` still reads (and
+:func:`save_waveform` still writes when given such a name). The runner and analysis only call
+these two functions and never see the difference.
+
+``.npz`` format (written with :func:`numpy.savez`, read with ``allow_pickle=False``):
 
 ==============  =====================  ===================================================
 key             dtype / shape          meaning
@@ -16,20 +22,26 @@ key             dtype / shape          meaning
 ``units``       str (c,)               SI unit of each row after scaling, e.g. "A", "V"
 ==============  =====================  ===================================================
 
-The file is written to a temporary name in the same folder, flushed, fsynced and renamed, so
-a reader never sees half a file.
+Either file is written to a temporary name in the same folder, flushed, fsynced and renamed,
+so a reader never sees half a file.
 """
 
 from __future__ import annotations
 
 import hashlib
 import os
+import zipfile
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-__all__ = ["Waveform", "load_waveform", "save_waveform", "sha256_file"]
+from rig.store.zarrwave import ZARR_SUFFIX, read_zarr_waveform, write_zarr_waveform
+
+__all__ = ["WAVEFORM_SUFFIX", "Waveform", "load_waveform", "save_waveform", "sha256_file"]
+
+WAVEFORM_SUFFIX = ZARR_SUFFIX  # the format new events are written in
+_NPZ = ".npz"
 
 _KEYS = ("codes", "gain", "offset", "code_min", "code_max", "dt", "t0", "channels", "units")
 
@@ -67,9 +79,22 @@ class Waveform:
         return self.t0 + self.dt * np.arange(self.n)
 
 
+def _format(path: Path) -> str:
+    """``"zarr"`` or ``"npz"`` from the file name; ValueError naming the file otherwise."""
+    if path.name.endswith(ZARR_SUFFIX):
+        return "zarr"
+    if path.name.endswith(_NPZ):
+        return "npz"
+    raise ValueError(f"{path}: unknown waveform format (expected {ZARR_SUFFIX} or {_NPZ})")
+
+
 def save_waveform(path: str | Path, wf: Waveform) -> str:
-    """Write ``wf`` atomically to ``path`` (``.npz``); returns the file's SHA-256 (hex)."""
+    """Write ``wf`` atomically to ``path`` (format from the name: ``.zarr.zip`` or ``.npz``);
+    returns the file's SHA-256 (hex)."""
     path = Path(path)
+    if _format(path) == "zarr":
+        write_zarr_waveform(path, wf)
+        return sha256_file(path)
     tmp = path.with_name(path.name + ".tmp")
     with open(tmp, "wb") as fh:
         np.savez(
@@ -91,9 +116,20 @@ def save_waveform(path: str | Path, wf: Waveform) -> str:
 
 
 def load_waveform(path: str | Path) -> Waveform:
-    """Read a waveform file; ValueError naming the file and key if it is incomplete."""
+    """Read a waveform file of either format; ValueError naming the file and key if it is
+    incomplete."""
     path = Path(path)
-    with np.load(path, allow_pickle=False) as z:
+    if _format(path) == "zarr":
+        fields = read_zarr_waveform(path)
+        codes = fields["codes"]
+        if codes.ndim != 2 or codes.dtype not in (np.int8, np.int16):
+            raise ValueError(f"{path} [codes]: expected a 2-D int8 or int16 array")
+        return Waveform(**fields)
+    try:
+        z = np.load(path, allow_pickle=False)
+    except (ValueError, zipfile.BadZipFile) as exc:  # not an npz archive (pickle refused, junk)
+        raise ValueError(f"{path}: not a readable .npz waveform file ({exc})") from exc
+    with z:
         missing = [k for k in _KEYS if k not in z.files]
         if missing:
             raise ValueError(f"{path}: waveform file lacks {', '.join(missing)}")

@@ -48,3 +48,19 @@ def test_terminal_table_shows_peak_for_fast_and_charge_for_long_captures():
     # the long capture's charge: I0 tau (1 - exp(-T/tau)) = 10 mA x 200 us x (1 - e^-4.5)
     # = 1.978 uC over the 0.9 ms after the trigger (integral of the textbook RC discharge)
     assert "1.98 µC" in text
+
+
+def test_running_median_equals_the_standard_library_median_at_every_step():
+    import statistics
+
+    from rig.runner.display import RunningMedian
+
+    rng = np.random.default_rng(21)
+    values = np.concatenate([rng.normal(5.0, 1.0, 300), np.full(40, 5.0), rng.integers(0, 4, 60)])
+    rm, seen = RunningMedian(), []
+    assert rm.median() is None and len(rm) == 0
+    for x in values.tolist():
+        rm.add(x)
+        seen.append(x)
+        assert rm.median() == statistics.median(seen)  # Python's statistics module
+    assert len(rm) == len(values)

@@ -13,6 +13,7 @@ FACES = {
     "rig.store": ("schema", "waveform", "runfolder"),
     "rig.analysis": ("metrics", "stats", "selfdischarge", "compare", "analyze", "measure", "runs"),
     "rig.report": ("page",),
+    "rig.dataset": ("catalog", "build", "query", "variance", "control", "cluster", "distribute"),
 }
 DRIVER_MODULES = ("clock", "metermode", "profile", "scope", "session", "supply", "switch")
 # module-level helpers that stay in their module on purpose (not part of the package API)

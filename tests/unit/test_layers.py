@@ -45,6 +45,7 @@ def test_the_tree_keeps_every_contract():
         ("rig/store/schema.py", "import rig.analysis.stats", "data flow runs one way"),
         ("rig/cli.py", "import drivers.sim.bench", "only through the bench opener"),
         ("rigbase/units.py", "import rig", "base layer stands alone"),
+        ("rig/dataset/query.py", "import rig.runner.cycle", "never reaches the runner"),
     ],
 )
 def test_a_planted_violation_breaks_its_contract(tmp_path, module, planted, contract):
