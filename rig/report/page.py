@@ -32,6 +32,8 @@ import numpy as np
 import pandas as pd
 
 from rig import __version__
+from rig.analysis.analyze import analysis_mismatch
+from rig.analysis.provenance import record_options
 from rig.analysis.stats import capture_roles
 from rig.report import figures as F
 
@@ -59,6 +61,7 @@ from rig.report.plots import (
 )
 from rig.report.tables import _section_flagged, _section_groups, _section_tested
 from rig.store.runfolder import read_manifest
+from rigbase.errors import RunFolderError
 
 __all__ = ["FLAG_TEXT", "SECTIONS", "write_report"]
 
@@ -94,6 +97,20 @@ _CAUTION = (
 )
 
 
+def _record_report(run: Path, path: Path, baseline_dir: str | Path | None) -> None:
+    """The report's options record: the baseline and the files it was made from."""
+    inputs: dict[str, str | Path] = {
+        n: run / n for n in ("metrics.parquet", "groups.csv", "selfdischarge.csv")
+    }
+    opts: dict[str, object] = {"baseline": None}
+    if baseline_dir is not None:
+        from rig.analysis.compare import compare_options, comparison_path
+
+        opts = {"baseline": str(Path(baseline_dir).resolve()), "compare": compare_options()}
+        inputs["compare"] = comparison_path(run, baseline_dir)
+    record_options(path, "report", opts, inputs)
+
+
 def write_report(
     run_dir: str | Path,
     baseline_dir: str | Path | None = None,
@@ -109,6 +126,11 @@ def write_report(
     run = Path(run_dir)
     rng = rng if rng is not None else np.random.default_rng(0)
     man = read_manifest(run)
+    stale = analysis_mismatch(run) if (run / "metrics.parquet").exists() else None
+    if stale:
+        raise RunFolderError(
+            f"{run}: {stale}; run `rig analyze {run}` (or `rig report`, which re-analyses) first"
+        )
     m = _load_metrics(run)
     g = _load_groups(run)
     out = run / FIGURES
@@ -160,7 +182,7 @@ def write_report(
     body["bounce"] = _section_bounce(mp, modes, colours, out)
     body["selfdischarge"] = _section_selfdischarge(run, mq, colours, out, charge_cap)
     body["flagged"] = _section_flagged(run, m, colours)
-    body["groups"] = _section_groups(g)
+    body["groups"] = _section_groups(g, m)
     if baseline_dir is not None:
         body["baseline"] = _section_baseline(run, m, Path(baseline_dir), modes, colours, out)
 
@@ -185,5 +207,6 @@ def write_report(
     )
     path = run / REPORT
     path.write_text(doc, encoding="utf-8")
+    _record_report(run, path, baseline_dir)
     log.info("report %s written in %.1f s", path, time.perf_counter() - t_start)
     return path
