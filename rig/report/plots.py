@@ -172,10 +172,11 @@ def _section_peaks(m, g, load, several, modes, colours, rng, out) -> str:
     )
 
 
-def _section_trends(m, g, load, several, modes, colours, rng, out) -> str:
+def _section_trends(m, g, load, several, modes, colours, rng, out, peak: bool = True) -> str:
     head, sfx = _load_title(load, several)
     gl = _at_zero_delay(g[g["load"].astype(str) == str(load)])
-    metrics = [(_peak_metric(g), "|Peak current|", "A"), ("charge_c", "Charge", "C")]
+    metrics = [(_peak_metric(g), "|Peak current|", "A")] if peak else []
+    metrics.append(("charge_c", "Charge", "C"))
     fig = F.fig_vs_voltage(gl, metrics, modes, colours, f"Against charge voltage · load {load}")
     return head + _img(
         F.render(fig, f"vs-voltage{sfx}", out),

@@ -151,6 +151,14 @@ def _section_tested(run: Path, man: dict[str, Any], m: pd.DataFrame) -> str:
     skip = {"name", "path", "meters", "operator_note", "volts", "loads", "limits"}
     skip |= {"captures", "scope_captures", "scope_grid"} if "capture" in m.columns else set()
     settings = [(k, v) for k, v in seq.items() if k not in skip]
+    if "capture" in m.columns and m["capture"].nunique() > 1:
+        # the captures' own timebases replace these (listed above under "Scope captures")
+        per_capture = {"sample_interval_s", "points", "trigger_offset_s", "bandwidth_hz"}
+        settings = [
+            (k, {a: b for a, b in v.items() if a not in per_capture} if k == "scope" else v)
+            for k, v in settings
+            if not (k == "scope" and not isinstance(v, dict))
+        ]
     if settings:
         parts.append("<h3>Sequence settings</h3>" + _kv(_with_units(settings)))
     return "".join(parts)

@@ -23,6 +23,7 @@ from rig.analysis.compare import compare_runs, compare_samples, tost_log, write_
 from rig.cli import main
 from rig.report.page import write_report
 from rigbase.errors import RunFolderError
+from rigbase.units import eng
 from tests.report_fixtures import DEFAULT_METERS, FakeMeter, build_run
 
 
@@ -275,3 +276,29 @@ def test_single_voltage_axis_starts_at_zero(tmp_path):
     fig = fig_vs_voltage(g, [("charge_c", "Charge", "C")], ["AC V"], colours, "t")
     lo, hi = fig.axes[0].get_xlim()
     assert lo == 0 and 600 < hi < 800  # not 570 .. 630 V
+
+
+def test_no_peak_quoted_from_a_capture_that_does_not_resolve_it(tmp_path):
+    """A run recorded with one slow capture only (as the self-discharge sweep is): its 50 ns
+    samples cannot resolve the fixture's few-nanosecond pulse, so neither the glance nor the
+    peak sections quote a peak current from it (the glance quoted 815 mA for a 26.6 A peak)."""
+    run = build_run(
+        tmp_path,
+        np.random.default_rng(37),
+        modes=("AC V",),
+        reps=5,
+        delays=(),
+        captures=(("slow", 50e-9, 8000, -20e-6),),
+    )
+    analyze_run(run)
+    m = pd.read_parquet(run / "metrics.parquet")
+    assert (m["rise_s"].median() / m["dt_s"].median()) < 3  # the rule's premise, from the data
+    page_html = write_report(run).read_text(encoding="utf-8")
+    glance = page_html.split("<section id='glance'>")[1].split("</section>")[0]
+    text = _flat(glance)
+    assert "not resolved" in text and "does not resolve the pulse" in text
+    for meter, peak in m.groupby("meter")["abs_peak_a"].median().items():
+        assert f"{meter}: {eng(peak, 'A')}" not in text
+    peaks = _flat(page_html.split("<section id='peaks'>")[1].split("</section>")[0])
+    assert peaks.startswith("Peak current per event Not measured")
+    assert not (run / "figures" / "peak-current.png").exists()

@@ -412,7 +412,7 @@ def fig_selfdischarge(events: pd.DataFrame, fits: pd.DataFrame, colours: dict[st
                 mpl_text(f"{mode}: diamonds mark the crossings (bar: to the upper 95 % bound)"),
                 loc="left",
             )
-            ax.legend(loc="upper right", fontsize=8.5)
+            ax.legend(loc="center right", fontsize=8.5)
         fig.suptitle("Self-discharge: charge left after a delay", fontweight="bold", fontsize=12.5)
     return fig
 
