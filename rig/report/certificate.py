@@ -283,8 +283,17 @@ def write_certificate(run_dir: str | Path, baseline_dir: str | Path | None = Non
                 [0.06, 0.16, 0.26, 0.36, 0.58, 0.82],
             )
             if baseline_dir is not None:
-                p.heading(f"Against the baseline run {Path(baseline_dir).name}")
+                p.heading("Against the baseline run (equivalence within ±10 %)")
+                p.para(f"Baseline: {Path(baseline_dir).name}", size=8)
                 crow = _compare_rows(run, Path(baseline_dir), str(meter))
+                same = crow and all(r[-1] == "group: equivalent" for r in crow)
+                p.para(
+                    "Equivalent to the baseline in every re-tested group"
+                    if same
+                    else "NOT equivalent to the baseline in every re-tested group",
+                    size=10,
+                    fontweight="bold",
+                )
                 for r in crow:
                     p.para(" · ".join(r), size=8)
                 if not crow:

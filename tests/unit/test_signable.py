@@ -302,3 +302,28 @@ def test_no_peak_quoted_from_a_capture_that_does_not_resolve_it(tmp_path):
     peaks = _flat(page_html.split("<section id='peaks'>")[1].split("</section>")[0])
     assert peaks.startswith("Peak current per event Not measured")
     assert not (run / "figures" / "peak-current.png").exists()
+
+
+def test_repair_check_certificate_carries_the_equivalence_verdict(pair):
+    """pdftotext (poppler-utils) reads the certificate of a re-test against its baseline."""
+    import shutil
+    import subprocess
+
+    from rig.analysis.compare import verdict_table
+    from rig.report.certificate import write_certificate
+
+    exe = shutil.which("pdftotext")
+    if exe is None:
+        pytest.skip("pdftotext not installed (Debian package poppler-utils)")
+    run, base = pair
+    text = subprocess.run(
+        [exe, "-layout", str(write_certificate(run, base)), "-"],
+        capture_output=True,
+        text=True,
+        check=True,
+    ).stdout
+    assert "Repair check certificate" in text and f"Baseline: {base.name}" in text
+    table = verdict_table(compare_runs(run, base))
+    same = (table["verdict"] == "equivalent").all()
+    assert ("NOT equivalent" not in text) is bool(same)
+    assert text.count("group: ") == len(table)
