@@ -132,27 +132,35 @@ def _finish(outcome: Any, run_dir: Path, report: bool) -> int:
     _out(outcome.safe.summary())
     if outcome.error:
         _out(f"error: {outcome.error}")
+    counts: dict[str, int] = {}
     if outcome.status == "complete" and report:
-        _analyse_and_report(run_dir, None)
+        counts = _analyse_and_report(run_dir, None)
     if outcome.status == "interrupted":
         _out(f"continue with: rig resume {run_dir}")
         return EXIT_INTERRUPTED
     if outcome.status != "complete":
         _out(f"continue with: rig resume {run_dir}")
         return EXIT_BENCH
-    return EXIT_OK if outcome.safe.reached else EXIT_BENCH
+    if not outcome.safe.reached:
+        return EXIT_BENCH
+    # a verdict against the sequence's limits that says no is exit 1 (README, "Exit codes")
+    return EXIT_NO if counts.get("fail", 0) else EXIT_OK
 
 
-def _analyse_and_report(run_dir: Path, baseline: Path | None) -> None:
+def _analyse_and_report(run_dir: Path, baseline: Path | None) -> dict[str, int]:
+    """Analyse, print the verdict counts, write the report and certificate; the counts."""
     from rig.analysis.analyze import analyze_run
 
     result = analyze_run(run_dir)
     for p in result.paths.values():
         _out(f"wrote {p}")
-    _print_verdicts(result.groups)
+    counts = _print_verdicts(result.groups)
+    from rig.report.certificate import write_certificate
     from rig.report.page import write_report
 
     _out(f"report: {write_report(run_dir, baseline)}")
+    _out(f"certificate: {write_certificate(run_dir, baseline)}")
+    return counts
 
 
 def _print_verdicts(groups: Any) -> dict[str, int]:
@@ -294,18 +302,38 @@ def cmd_analyze(args: argparse.Namespace) -> int:
 
 
 def cmd_compare(args: argparse.Namespace) -> int:
-    from rig.analysis.compare import all_equivalent, compare_runs, write_comparison
+    from rig.analysis import compare as C
 
-    kw = {"metrics": tuple(args.metric)} if args.metric else {}
-    df = compare_runs(args.run, args.baseline, tolerance=args.tolerance, **kw)
-    path = write_comparison(df, args.run, args.baseline)
+    metrics = tuple(args.metric) if args.metric else C.DEFAULT_METRICS
+    df = C.compare_runs(args.run, args.baseline, tolerance=args.tolerance, metrics=metrics)
+    opts = C.compare_options(args.tolerance, metrics)
+    path = C.write_comparison(df, args.run, args.baseline, opts)
+    lo, hi = C.equivalence_margins(args.tolerance)
+    if C.no_overlap(df):
+        _out(
+            f"no group of {args.run} matches a group of the baseline {args.baseline} "
+            "(same meter model, mode, capture, voltage, load and delay): nothing was compared"
+        )
+        _out(f"wrote {path}")
+        return EXIT_NO
+    table = C.verdict_table(df)
+    _out(
+        f"equivalence: geometric-mean ratio run / baseline within {lo:.3f} .. {hi:.3f} "
+        f"(--tolerance {args.tolerance:g}, symmetric on the log scale); ratios in brackets "
+        "are ratios of medians"
+    )
     with _pd_display():
-        _out(df.to_string(index=False))
-    _out(f"wrote {path}")
-    ok = all_equivalent(df)
-    untested = int((df["verdict"] == "only in baseline").sum()) if len(df) else 0
-    if untested:
-        _out(f"{untested} baseline group x metric rows were not re-tested (listed above)")
+        _out(table.to_string(index=False))
+        if args.wide:
+            _out(df.to_string(index=False))
+    untested = df.loc[df["verdict"] == "only in baseline", list(C.COMPARE_KEYS)].drop_duplicates()
+    if len(untested):
+        _out(f"{len(untested)} baseline group(s) not re-tested (listed in {path.name})")
+    alone = df.loc[df["verdict"] == "only in run", list(C.COMPARE_KEYS)].drop_duplicates()
+    if len(alone):
+        _out(f"{len(alone)} group(s) of this run have no baseline group: not equivalent")
+    _out(f"wrote {path}" + ("" if args.wide else " (all columns; --wide prints them)"))
+    ok = C.all_equivalent(df)
     _out("all groups equivalent" if ok else "not every group is equivalent")
     return EXIT_OK if ok else EXIT_NO
 
@@ -334,14 +362,20 @@ def cmd_measure(args: argparse.Namespace) -> int:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
+    from rig.analysis.analyze import analysis_mismatch, analyze_run, recorded_analysis_options
     from rig.report.page import write_report
 
     run = Path(args.run)
-    if not (run / "metrics.parquet").exists():
-        from rig.analysis.analyze import analyze_run
+    stale = analysis_mismatch(run)
+    if stale:  # recompute with the options the files were made with
+        opts = recorded_analysis_options(run) if (run / "groups.csv").exists() else {}
+        _out(f"analysing again: {stale}")
+        analyze_run(run, **opts)
+    from rig.report.certificate import write_certificate
 
-        analyze_run(run)
-    _out(f"report: {write_report(run, Path(args.baseline) if args.baseline else None)}")
+    base = Path(args.baseline) if args.baseline else None
+    _out(f"report: {write_report(run, base)}")
+    _out(f"certificate: {write_certificate(run, base)}")
     return EXIT_OK
 
 
@@ -587,8 +621,11 @@ def build_parser() -> argparse.ArgumentParser:
         "--tolerance",
         type=float,
         default=0.10,
-        help="equivalence margin on the ratio of medians (default 0.10 = +-10 %%)",
+        help="equivalence margin of the geometric-mean ratio run / baseline (the two "
+        "one-sided t tests run on log values), symmetric on the log scale: 0.10 (default) "
+        "means 1/1.1 .. 1.1",
     )
+    sp.add_argument("--wide", action="store_true", help="also print every column of the CSV")
     sp.add_argument(
         "--metric",
         action="append",
@@ -610,7 +647,12 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--dt", type=float, metavar="SECONDS", help="sample interval of a .npy file")
     sp.add_argument("--json", action="store_true", help="print JSON")
 
-    sp = add("report", cmd_report, "write report.html and figures/ for a run")
+    sp = add(
+        "report",
+        cmd_report,
+        "write report.html, figures/ and the printable certificate.pdf for a run "
+        "(analyses it again first when its analysis files are older than its data)",
+    )
     sp.add_argument("run", help="run folder")
     sp.add_argument("--baseline", help="baseline run folder to overlay and compare")
 

@@ -7,19 +7,28 @@ and single waveforms from elsewhere (`measure`). It reads run folders only, neve
 from rig.analysis.analyze import (
     METRIC_COLUMNS,
     AnalysisResult,
+    analysis_mismatch,
+    analysis_options,
     analyze_run,
     compute_metrics,
     find_setting,
     journal_frame,
+    recorded_analysis_options,
 )
 from rig.analysis.compare import (
     COMPARE_COLUMNS,
     COMPARE_KEYS,
     METRIC_CAPTURE_ROLE,
     all_equivalent,
+    compare_options,
     compare_runs,
     compare_samples,
+    comparison_inputs,
+    comparison_path,
+    equivalence_margins,
+    no_overlap,
     tost_log,
+    verdict_table,
     write_comparison,
 )
 from rig.analysis.measure import (
@@ -36,6 +45,14 @@ from rig.analysis.metrics import (
     event_metrics,
     quick_metrics,
 )
+from rig.analysis.provenance import (
+    DerivedRecord,
+    input_checksums,
+    mismatch,
+    read_options,
+    record_options,
+    sidecar_path,
+)
 from rig.analysis.runs import (
     group_waveforms,
     load_event_waveform,
@@ -46,6 +63,7 @@ from rig.analysis.selfdischarge import (
     SELFDISCHARGE_COLUMNS,
     SweepFit,
     delay_curve,
+    delay_to_reach,
     fit_self_discharge,
     has_delay_sweep,
     self_discharge,
@@ -67,6 +85,22 @@ from rig.analysis.stats import (
 )
 
 __all__ = [
+    "analysis_mismatch",
+    "analysis_options",
+    "recorded_analysis_options",
+    "compare_options",
+    "comparison_inputs",
+    "comparison_path",
+    "equivalence_margins",
+    "no_overlap",
+    "verdict_table",
+    "DerivedRecord",
+    "input_checksums",
+    "mismatch",
+    "read_options",
+    "record_options",
+    "sidecar_path",
+    "delay_to_reach",
     "AnalysisResult",
     "COMPARE_COLUMNS",
     "COMPARE_KEYS",

@@ -26,10 +26,13 @@ from rigbase.errors import RunFolderError
 __all__ = [
     "METRIC_COLUMNS",
     "AnalysisResult",
+    "analysis_mismatch",
+    "analysis_options",
     "analyze_run",
     "compute_metrics",
     "find_setting",
     "journal_frame",
+    "recorded_analysis_options",
 ]
 
 log = logging.getLogger(__name__)
@@ -187,6 +190,86 @@ def compute_metrics(
     return out
 
 
+def analysis_options(
+    confidence: float, coverage: float, seed: int, safe_residual_volts: float | None
+) -> dict[str, Any]:
+    """The options recorded beside groups.csv (rig.analysis.provenance); the report reads
+    them back with :func:`rig.analysis.provenance.read_options`."""
+    return {
+        "confidence": confidence,
+        "coverage": coverage,
+        "seed": seed,
+        "safe_residual_volts": safe_residual_volts,
+    }
+
+
+def _record(
+    run_dir: Path,
+    confidence: float,
+    coverage: float,
+    seed: int,
+    safe_volts: float | None,
+    sd_path: Path | None,
+) -> None:
+    from rig.analysis.provenance import record_options
+
+    opts = analysis_options(confidence, coverage, seed, safe_volts)
+    record_options(
+        run_dir / "metrics.parquet", "metrics", {}, {"journal.jsonl": run_dir / "journal.jsonl"}
+    )
+    inputs = {
+        "metrics.parquet": run_dir / "metrics.parquet",
+        "manifest.json": run_dir / "manifest.json",
+    }
+    record_options(run_dir / "groups.csv", "groups", opts, inputs)
+    if sd_path is not None:
+        record_options(sd_path, "selfdischarge", opts, inputs)
+
+
+def analysis_mismatch(run_dir: str | Path) -> str | None:
+    """Why the analysis files of a run folder do not match its data (one line), or None.
+
+    metrics.parquet must have been made from the journal as it is now, and groups.csv (and
+    selfdischarge.csv) from that metrics.parquet and manifest; files from before options
+    were recorded are accepted as they are."""
+    from rig.analysis.provenance import mismatch, read_options
+
+    run_dir = Path(run_dir)
+    checks = [
+        ("metrics.parquet", {"journal.jsonl": run_dir / "journal.jsonl"}),
+        (
+            "groups.csv",
+            {
+                "metrics.parquet": run_dir / "metrics.parquet",
+                "manifest.json": run_dir / "manifest.json",
+            },
+        ),
+    ]
+    if (run_dir / "selfdischarge.csv").exists():
+        checks.append(("selfdischarge.csv", checks[1][1]))
+    for name, inputs in checks:
+        path = run_dir / name
+        if not path.exists():
+            return f"{name} does not exist"
+        if read_options(path) is None:
+            continue  # written before options were recorded
+        why = mismatch(path, {}, inputs)
+        if why:
+            return why
+    return None
+
+
+def recorded_analysis_options(run_dir: str | Path) -> dict[str, Any]:
+    """The options groups.csv was made with (keyword arguments of :func:`analyze_run`), or {}."""
+    from rig.analysis.provenance import read_options
+
+    rec = read_options(Path(run_dir) / "groups.csv")
+    if rec is None:
+        return {}
+    keys = ("confidence", "coverage", "seed", "safe_residual_volts")
+    return {k: rec.options[k] for k in keys if rec.options.get(k) is not None}
+
+
 def analyze_run(
     run_dir: str | Path,
     *,
@@ -221,18 +304,23 @@ def analyze_run(
     groups_path = run_dir / "groups.csv"
     metrics.to_parquet(metrics_path, index=False)
     groups.to_csv(groups_path, index=False)
+    if safe_residual_volts is None:
+        bench_limits = (manifest.get("bench") or {}).get("limits") or {}
+        found = bench_limits.get("safe_residual_volts") if isinstance(bench_limits, dict) else None
+        if found is None:
+            found = find_setting(manifest, "safe_residual_volts")
+        safe_residual_volts = float(found) if found is not None else DEFAULT_SAFE_VOLTS
     sd, sd_path = None, None
     if has_delay_sweep(metrics):
-        if safe_residual_volts is None:
-            bench_limits = (manifest.get("bench") or {}).get("limits") or {}
-            found = (
-                bench_limits.get("safe_residual_volts") if isinstance(bench_limits, dict) else None
-            )
-            if found is None:
-                found = find_setting(manifest, "safe_residual_volts")
-            safe_residual_volts = float(found) if found is not None else DEFAULT_SAFE_VOLTS
-        sd = self_discharge(metrics, safe_residual_volts=safe_residual_volts, confidence=confidence)
+        hazard = find_setting(manifest, "hazardous_live_volts")
+        sd = self_discharge(
+            metrics,
+            safe_residual_volts=safe_residual_volts,
+            confidence=confidence,
+            hazard_volts=float(hazard) if hazard is not None else DEFAULT_SAFE_VOLTS,
+        )
         sd_path = run_dir / "selfdischarge.csv"
         sd.to_csv(sd_path, index=False)
+    _record(run_dir, confidence, coverage, seed, safe_residual_volts, sd_path)
     log.info("analysis of %s written", run_dir)
     return AnalysisResult(metrics, groups, sd, metrics_path, groups_path, sd_path)

@@ -9,7 +9,9 @@ energy_j):
 - ratio of medians (run / baseline) with a percentile-bootstrap interval (seeded);
 - Mann-Whitney U rank test, two-sided (scipy.stats.mannwhitneyu);
 - equivalence by two one-sided Welch t tests (TOST) on the log values: the ratio of the
-  geometric means lies within [1 - tolerance, 1 + tolerance];
+  geometric means (run / baseline) lies within [1 / (1 + tolerance), 1 + tolerance], margins
+  symmetric on the log scale (+-log(1 + tolerance)), so that swapping run and baseline gives
+  the same verdict (10 %: 0.909 .. 1.1);
 - verdict: "equivalent" when TOST rejects non-equivalence at level 1 - confidence,
   else "different" when the rank test rejects equality at that level, else "inconclusive".
   A group in one run only is "only in run" or "only in baseline".
@@ -36,8 +38,14 @@ __all__ = [
     "METRIC_CAPTURE_ROLE",
     "all_equivalent",
     "compare_runs",
+    "compare_options",
     "compare_samples",
+    "comparison_inputs",
+    "comparison_path",
+    "equivalence_margins",
+    "no_overlap",
     "tost_log",
+    "verdict_table",
     "write_comparison",
 ]
 
@@ -75,16 +83,24 @@ COMPARE_COLUMNS: tuple[str, ...] = (
 DEFAULT_METRICS: tuple[str, ...] = ("peak_a", "charge_c")
 
 
+def equivalence_margins(tolerance: float) -> tuple[float, float]:
+    """(lower, upper) margins of the geometric-mean ratio: 1 / (1 + tolerance), 1 + tolerance.
+
+    Symmetric on the log scale (+-log(1 + tolerance)): a run 10 % above its baseline is as far
+    from it as the baseline is from the run, whichever is called the baseline."""
+    return 1.0 / (1.0 + tolerance), 1.0 + tolerance
+
+
 def tost_log(run: np.ndarray, base: np.ndarray, tolerance: float = 0.10) -> float:
     """p-value of the two one-sided Welch t tests that the geometric-mean ratio run/base lies
-    within [1 - tolerance, 1 + tolerance] (the larger of the two one-sided p-values).
+    within :func:`equivalence_margins` (the larger of the two one-sided p-values).
 
     Values must be positive; NaN with fewer than two values on either side.
     """
     a, b = np.log(np.asarray(run, float)), np.log(np.asarray(base, float))
     if a.size < 2 or b.size < 2:
         return math.nan
-    lo, hi = math.log(1.0 - tolerance), math.log(1.0 + tolerance)
+    lo, hi = (math.log(x) for x in equivalence_margins(tolerance))
     if a.var() == 0 and b.var() == 0:  # no scatter (e.g. clipped peaks): decide by the means
         return 0.0 if lo < a.mean() - b.mean() < hi else 1.0
     p_lower = sps.ttest_ind(a - lo, b, equal_var=False, alternative="greater").pvalue
@@ -144,7 +160,11 @@ def compare_samples(
     return out
 
 
-def _load_metrics(run_dir: Path) -> pd.DataFrame:
+def _load_metrics(run_dir: Path, what: str = "run") -> pd.DataFrame:
+    if not run_dir.is_dir():
+        raise RunFolderError(f"{run_dir}: {what} folder not found")
+    if not (run_dir / "manifest.json").exists():
+        raise RunFolderError(f"{run_dir}: not a run folder (no manifest.json) given as {what}")
     path = run_dir / "metrics.parquet"
     if path.exists():
         return with_capture(pd.read_parquet(path))
@@ -178,13 +198,14 @@ def compare_runs(
     longest record; the other pairings measure the wrong thing (a 5 MHz record's peak of a
     nanosecond pulse) and are left out.
 
-    tolerance: equivalence margin on the ratio (0.10: within -10 % .. +10 %).
+    tolerance: equivalence margin of the geometric-mean ratio, symmetric on the log scale
+        (0.10: within 1/1.1 .. 1.1, see :func:`equivalence_margins`).
     metrics: metric columns to compare (by magnitude). seed: bootstrap generator seed.
     """
     run_dir, baseline_dir = Path(run_dir), Path(baseline_dir)
     if not 0 < tolerance < 1:
         raise ValueError(f"tolerance must lie between 0 and 1, got {tolerance!r}")
-    run, base = _load_metrics(run_dir), _load_metrics(baseline_dir)
+    run, base = _load_metrics(run_dir), _load_metrics(baseline_dir, "baseline")
     for name, frame, where in (
         (m, f, d) for m in metrics for f, d in ((run, run_dir), (base, baseline_dir))
     ):
@@ -257,13 +278,89 @@ def _run_id(run_dir: Path) -> str:
     return str(rid) if rid else run_dir.resolve().name
 
 
-def write_comparison(df: pd.DataFrame, run_dir: str | Path, baseline_dir: str | Path) -> Path:
+def compare_options(
+    tolerance: float = 0.10,
+    metrics: Sequence[str] = DEFAULT_METRICS,
+    *,
+    confidence: float = 0.95,
+    seed: int = 0,
+    n_boot: int = 2000,
+) -> dict[str, object]:
+    """The options of :func:`compare_runs` as recorded beside compare-<id>.csv (the report
+    asks for the same dictionary and reuses the file only when they match)."""
+    return {
+        "tolerance": tolerance,
+        "metrics": list(metrics),
+        "confidence": confidence,
+        "seed": seed,
+        "n_boot": n_boot,
+    }
+
+
+def comparison_inputs(run_dir: str | Path, baseline_dir: str | Path) -> dict[str, Path]:
+    """The files a comparison is made from (their checksums go into its options record)."""
+    run, base = Path(run_dir), Path(baseline_dir)
+    return {
+        "metrics.parquet": run / "metrics.parquet",
+        "journal.jsonl": run / "journal.jsonl",
+        "baseline/metrics.parquet": base / "metrics.parquet",
+        "baseline/journal.jsonl": base / "journal.jsonl",
+    }
+
+
+def comparison_path(run_dir: str | Path, baseline_dir: str | Path) -> Path:
+    """``<run>/compare-<baseline-run-id>.csv``."""
+    return Path(run_dir) / f"compare-{_run_id(Path(baseline_dir))}.csv"
+
+
+def write_comparison(
+    df: pd.DataFrame,
+    run_dir: str | Path,
+    baseline_dir: str | Path,
+    options: dict[str, object] | None = None,
+) -> Path:
     """Write a comparison (from :func:`compare_runs`) as ``compare-<baseline-run-id>.csv``
-    into the run folder; returns its path."""
-    path = Path(run_dir) / f"compare-{_run_id(Path(baseline_dir))}.csv"
+    into the run folder, with the options that made it (default: :func:`compare_options`'s
+    defaults) and its inputs' checksums beside it (rig.analysis.provenance); returns its path."""
+    from rig.analysis.provenance import record_options
+
+    path = comparison_path(run_dir, baseline_dir)
     df.to_csv(path, index=False)
+    opts = dict(options if options is not None else compare_options())
+    opts["baseline"] = str(Path(baseline_dir).resolve())
+    record_options(path, "compare", opts, comparison_inputs(run_dir, baseline_dir))
     log.info("wrote %s", path)
     return path
+
+
+def no_overlap(df: pd.DataFrame) -> bool:
+    """True when no group of the run has a matching baseline group (nothing was compared)."""
+    return not len(df) or df["verdict"].isin(["only in run", "only in baseline"]).all()
+
+
+def verdict_table(df: pd.DataFrame) -> pd.DataFrame:
+    """One line per re-tested group (meter, mode, voltage, load, delay present in both runs;
+    the captures of a group share its line): the verdict per metric with its ratio of
+    medians, and the group's overall verdict (equivalent only when every metric is)."""
+    both = df[~df["verdict"].isin(["only in run", "only in baseline"])] if len(df) else df
+    keys = [k for k in COMPARE_KEYS if k in df.columns and k != "capture"]
+    metrics = list(dict.fromkeys(both["metric"])) if len(both) else []
+    rows = []
+    for key, g in both.groupby(keys, dropna=False, sort=False):
+        row: dict[str, object] = dict(zip(keys, key, strict=True))
+        for name in metrics:
+            row[name] = ""
+        for r in g.itertuples():
+            ratio = f"{r.ratio:.3f}" if r.ratio == r.ratio else "-"
+            row[str(r.metric)] = f"{r.verdict} ({ratio})"
+        v = set(g["verdict"])
+        row["verdict"] = (
+            "equivalent"
+            if v == {"equivalent"}
+            else ("different" if "different" in v else "inconclusive")
+        )
+        rows.append(row)
+    return pd.DataFrame(rows, columns=[*keys, *metrics, "verdict"])
 
 
 def all_equivalent(df: pd.DataFrame) -> bool:

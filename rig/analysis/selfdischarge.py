@@ -10,7 +10,13 @@ is the textbook RC discharge q = CV exp(-t / RC)).
 The safe threshold is, by default, the charge that would hold the input at the safe residual
 voltage: Q_safe = C_equiv(delay 0) x safe_residual_volts, with C_equiv the median equivalent
 capacitance of the events at delay 0 (or, without such events, the fit's Q0 over the charge
-voltage). The delay to safe is tau x ln(Q0 / Q_safe), zero when Q0 is already below it.
+voltage). The delay to safe is tau x ln(Q0 / Q_safe), zero when Q0 is already below it;
+``delay_to_safe_upper_s`` is where the one-sided upper confidence bound of the fitted line
+(the mean response's band of least-squares regression, e.g. Montgomery, Peck & Vining,
+Introduction to Linear Regression Analysis, section 2.4.2 (from memory)) falls below Q_safe.
+The same two figures are given for the hazardous-live voltage (the charge that would hold the
+input at it) and for the 45 uC stored-charge figure of IEC 61010-1. ``max_delay_s`` is the
+longest delay measured: a delay to safe beyond it is an extrapolation of the fit.
 """
 
 from __future__ import annotations
@@ -21,6 +27,7 @@ import math
 import numpy as np
 import pandas as pd
 from scipy import stats as sps
+from scipy.optimize import brentq
 
 from rig.analysis.stats import GROUP_KEYS, with_capture
 
@@ -29,6 +36,7 @@ __all__ = [
     "SELFDISCHARGE_COLUMNS",
     "SweepFit",
     "delay_curve",
+    "delay_to_reach",
     "fit_self_discharge",
     "has_delay_sweep",
     "self_discharge",
@@ -49,7 +57,19 @@ SELFDISCHARGE_COLUMNS: tuple[str, ...] = (
     "safe_charge_c",
     "delay_to_safe_s",
     "n_delays",
+    "q0_c",
+    "safe_volts",
+    "delay_to_safe_upper_s",
+    "max_delay_s",
+    "hazard_volts",
+    "hazard_charge_c",
+    "delay_to_hazard_s",
+    "delay_to_hazard_upper_s",
+    "delay_to_45uc_s",
+    "delay_to_45uc_upper_s",
 )
+#: IEC 61010-1 stored-charge figure, C (the same value as rig.analysis.metrics uses).
+IEC61010_CHARGE_C = 45e-6
 
 
 class SweepFit(tuple):
@@ -64,6 +84,54 @@ class SweepFit(tuple):
     tau_ci_low = property(lambda self: self[1])
     tau_ci_high = property(lambda self: self[2])
     q0_c = property(lambda self: self[3])
+
+
+def _line(d: np.ndarray, q: np.ndarray) -> tuple[float, float, float, float, int, int] | None:
+    """Least squares of log q on d: (slope, intercept, residual sd, mean d, sxx, n), or None."""
+    use = np.isfinite(d) & np.isfinite(q) & (q > 0)
+    d, q = d[use], q[use]
+    if d.size < 3 or np.unique(d).size < 2:
+        return None
+    y = np.log(q)
+    dm = float(d.mean())
+    sxx = float(((d - dm) ** 2).sum())
+    slope = float(((d - dm) * (y - y.mean())).sum() / sxx)
+    icpt = float(y.mean() - slope * dm)
+    resid = y - (icpt + slope * d)
+    sd = math.sqrt(float((resid**2).sum()) / (d.size - 2))
+    return slope, icpt, sd, dm, sxx, int(d.size)
+
+
+def delay_to_reach(
+    delay_s: np.ndarray,
+    charge_c: np.ndarray,
+    threshold_c: float,
+    *,
+    confidence: float = 0.95,
+) -> tuple[float, float]:
+    """(fitted delay, upper confidence bound of the delay) after which |Q| is below
+    ``threshold_c``: where the fitted line of log |Q|, and where its one-sided upper confidence
+    bound for the mean response, cross log threshold (seconds; 0 when already below at delay 0,
+    +inf when the fit does not exclude a charge that never decays; NaN without a fit)."""
+    fit = _line(np.asarray(delay_s, float), np.abs(np.asarray(charge_c, float)))
+    if fit is None or not (threshold_c > 0):
+        return math.nan, math.nan
+    slope, icpt, sd, dm, sxx, n = fit
+    level = math.log(threshold_c)
+    k = float(sps.t.ppf(confidence, n - 2)) * sd
+
+    def upper(d: float) -> float:
+        return icpt + slope * d + k * math.sqrt(1.0 / n + (d - dm) ** 2 / sxx) - level
+
+    best = 0.0 if icpt <= level else (math.inf if slope >= 0 else (level - icpt) / slope)
+    if upper(0.0) <= 0:
+        return best, 0.0
+    if slope + k / math.sqrt(sxx) >= 0:  # the bound's asymptotic slope: it never comes down
+        return best, math.inf
+    hi = max(dm, 1e-9)
+    while upper(hi) > 0:
+        hi *= 2.0
+    return best, float(brentq(upper, 0.0, hi, xtol=1e-12 * hi + 1e-15))
 
 
 def fit_self_discharge(
@@ -133,11 +201,13 @@ def self_discharge(
     safe_residual_volts: float = DEFAULT_SAFE_VOLTS,
     safe_charge_c: float | None = None,
     confidence: float = 0.95,
+    hazard_volts: float = DEFAULT_SAFE_VOLTS,
 ) -> pd.DataFrame:
     """selfdischarge.csv (columns SELFDISCHARGE_COLUMNS) for every group with >= 2 delays.
 
     safe_residual_volts: residual voltage counted as safe, V (sets Q_safe per group).
     safe_charge_c: a fixed threshold in coulombs instead (e.g. 45e-6, IEC 61010-1).
+    hazard_volts: the hazardous-live voltage, V (the bench's ``hazardous_live_volts``).
     """
     m = _captured(metrics)
     rows = []
@@ -161,6 +231,8 @@ def self_discharge(
             delay = max(0.0, fit.tau_s * math.log(fit.q0_c / q_safe)) if fit.q0_c > q_safe else 0.0
         else:
             delay = math.nan
+        c_per_volt = q_safe / safe_residual_volts if safe_charge_c is None else math.nan
+        q_hazard = c_per_volt * hazard_volts
         rows.append(
             {
                 **dict(zip(SWEEP_KEYS, key, strict=True)),
@@ -170,6 +242,28 @@ def self_discharge(
                 "safe_charge_c": q_safe,
                 "delay_to_safe_s": delay,
                 "n_delays": n_delays,
+                "q0_c": fit.q0_c,
+                "safe_volts": safe_residual_volts if safe_charge_c is None else math.nan,
+                "delay_to_safe_upper_s": delay_to_reach(delays, q, q_safe, confidence=confidence)[
+                    1
+                ],
+                "max_delay_s": float(np.nanmax(delays)),
+                "hazard_volts": hazard_volts,
+                "hazard_charge_c": q_hazard,
+                **dict(
+                    zip(
+                        ("delay_to_hazard_s", "delay_to_hazard_upper_s"),
+                        delay_to_reach(delays, q, q_hazard, confidence=confidence),
+                        strict=True,
+                    )
+                ),
+                **dict(
+                    zip(
+                        ("delay_to_45uc_s", "delay_to_45uc_upper_s"),
+                        delay_to_reach(delays, q, IEC61010_CHARGE_C, confidence=confidence),
+                        strict=True,
+                    )
+                ),
             }
         )
     log.info("self-discharge fitted for %s group(s)", len(rows))

@@ -3,6 +3,10 @@ the judgements at a glance (`glance`), the detail tables (`tables`), the figures
 `plots`), the HTML pieces and style (`html`), and the page assembly (`page`).
 """
 
+from rig.report.certificate import (
+    CERTIFICATE,
+    write_certificate,
+)
 from rig.report.page import (
     FLAG_TEXT,
     SECTIONS,
@@ -10,7 +14,9 @@ from rig.report.page import (
 )
 
 __all__ = [
+    "CERTIFICATE",
     "FLAG_TEXT",
     "SECTIONS",
+    "write_certificate",
     "write_report",
 ]

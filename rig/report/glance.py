@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from rig.analysis.stats import capture_roles
+from rig.report.captures import MIN_RISE_SAMPLES, measures
 from rig.report.data import (
     _at_zero_delay,
     _capture_text,
@@ -27,84 +28,50 @@ from rigbase.units import eng, metric_label, metric_unit
 
 
 def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
-    """Per mode and load: each meter's medians at the highest common voltage; which is lower."""
+    """Per mode, load and charge voltage: each meter's medians, which is lower, and the
+    verdicts of the checks at that voltage; led by a sentence a buyer can act on."""
     mz = _at_zero_delay(m[m["file"].notna()])
     gz = _at_zero_delay(g)
     meters = list(dict.fromkeys(mz["meter"]))
     peak_metric = _peak_metric(g)
-    # |peak| from the finest capture, charge from the longest (see capture_roles)
+    # |peak| from the finest capture, charge from the longest (see capture_roles), and the
+    # peak only from a capture that resolves the pulse (rig.report.captures)
     peak_cap, charge_cap = capture_roles(mz)
+    peak_ok = "fast" in measures(mz).get(peak_cap, {"fast"})
     source = {"abs_peak_a": peak_cap, "charge_c": charge_cap}
     rows = []
+    winners_all: list[list[tuple[str, bool]]] = []
     summary: dict[tuple[str, bool], list[str]] = {}
     for (mode, load), d_all in mz.groupby(["mode", "load"], sort=False):
         d = d_all[d_all["capture"] == peak_cap]  # the peak's events (clip notes)
         per = d_all.groupby("meter")["volts"].apply(set)
         common = set.intersection(*per.tolist()) if len(per) else set()
-        if not common:
-            continue
-        v = max(common)
-        cells = {}
-        for metric, unit in (("abs_peak_a", "A"), ("charge_c", "C")):
-            stats = {}
-            dm = d_all[d_all["capture"] == source[metric]]
-            for meter in meters:
-                x = dm[(dm["meter"] == meter) & (dm["volts"] == v)][metric].dropna()
-                if x.empty:
-                    continue
-                sel = gz[
-                    (gz["meter"] == meter)
-                    & (gz["mode"] == mode)
-                    & (gz["capture"] == source[metric])
-                    & (gz["volts"] == v)
-                    & (gz["load"] == load)
-                    & (gz["metric"] == (peak_metric if metric == "abs_peak_a" else metric))
-                ]
-                lo = (
-                    float(sel["median_ci_low"].iloc[0])
-                    if "median_ci_low" in sel and len(sel)
-                    else np.nan
-                )
-                hi = (
-                    float(sel["median_ci_high"].iloc[0])
-                    if "median_ci_high" in sel and len(sel)
-                    else np.nan
-                )
-                stats[meter] = (float(x.median()), lo, hi, x.size)
-            cells[metric] = (stats, unit)
-        row = [esc(mode), esc(load), f"<span class='nw'>{esc(eng(v, 'V'))}</span>"]
-        winners = []
-        for metric in ("abs_peak_a", "charge_c"):
-            stats, unit = cells[metric]
-            row.append(
-                "<br>".join(
-                    f"<span class='nw'>{esc(k)}: {esc(eng(s[0], unit))} <span class='n'>(n={s[3]})"
-                    f"</span></span>{_clip_note(d, k, v) if metric == 'abs_peak_a' else ''}"
-                    for k, s in stats.items()
-                )
+        for v in sorted(common):
+            row, winners, n_stats = _glance_row(
+                d_all, d, gz, meters, mode, load, v, source, peak_metric, peak_ok
             )
-            w, text = _lower(stats)
-            if metric == "abs_peak_a" and any(_clip_note(d, k, v) for k in stats):
-                w = ("?", False)  # a clipped peak is a lower bound: no ranking on peaks
-                text = "<span class='warn'>not ranked: clipped peaks</span>"
-            winners.append(w)
-            row.append(text)
-        if len(stats) < 2:
-            verdict = "single meter: no comparison"
-        elif winners[0][0] == "?":
-            lower_q = winners[1][0]
-            verdict = f"peaks clipped; lower charge: <b>{esc(lower_q)}</b>" if lower_q else "–"
-            summary.setdefault(("?" + lower_q, winners[1][1]), []).append(f"{mode} ({load})")
-        elif winners[0][0] and winners[0][0] == winners[1][0]:
-            clear = winners[0][1] and winners[1][1]
-            how = "clearly" if clear else "not clearly (CIs overlap)"
-            verdict = f"<b>{esc(winners[0][0])}</b>, {how}"
-            summary.setdefault((winners[0][0], clear), []).append(f"{mode} ({load})")
-        else:
-            verdict = "mixed: neither is lower on both"
-            summary.setdefault(("", False), []).append(f"{mode} ({load})")
-        row.append(verdict)
-        rows.append(row)
+            winners_all.append(winners)
+            if n_stats < 2:
+                verdict = "single meter: no comparison"
+            elif winners[0][0] == "?":
+                lower_q = winners[1][0]
+                verdict = f"peaks clipped; lower charge: <b>{esc(lower_q)}</b>" if lower_q else "–"
+                summary.setdefault(("?" + lower_q, winners[1][1]), []).append(
+                    f"{mode} ({load}, {eng(v, 'V')})"
+                )
+            elif winners[0][0] and winners[0][0] == winners[1][0]:
+                clear = winners[0][1] and winners[1][1]
+                how = "clearly" if clear else "not clearly (CIs overlap)"
+                verdict = f"<b>{esc(winners[0][0])}</b>, {how}"
+                summary.setdefault((winners[0][0], clear), []).append(
+                    f"{mode} ({load}, {eng(v, 'V')})"
+                )
+            else:
+                verdict = "neither"
+                summary.setdefault(("", False), []).append(f"{mode} ({load}, {eng(v, 'V')})")
+            row.append(verdict)
+            row.append(_verdict_list(gz, meters, mode, load, v))
+            rows.append(row)
     if not rows:
         return "<p>No mode was tested at a voltage common to all meters.</p>"
     said = []
@@ -121,12 +88,29 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
         else:
             how = "clearly lower" if clear else "lower, within the uncertainty,"
             said.append(f"<b>{esc(meter)}</b> is {how} on both peak current and charge in {modes}")
-    lead = f"<p class='lead'>In short: {'; '.join(said)}.</p>" if said else ""
+    lower = {
+        "peak": {w[0][0] for w in winners_all},
+        "charge": {w[1][0] for w in winners_all},
+    }
+    if (
+        winners_all
+        and len(summary) == 1
+        and ("", False) in summary
+        and all(len(v) == 1 and not ({"", "?"} & v) for v in lower.values())
+    ):
+        (p_w,), (q_w,) = lower["peak"], lower["charge"]
+        said = [
+            f"<b>{esc(p_w)}</b> has the lower peak current and <b>{esc(q_w)}</b> the lower "
+            "charge in every mode and at every voltage: neither is lower on both"
+        ]
+    buyer = _buyer_sentence(gz, meters)
+    lead = f"<div class='buyer'><p class='lead'>{buyer}</p></div>" if buyer else ""
+    lead += f"<p>In short: {'; '.join(said)}.</p>" if said else ""
     intro = (
-        "<p>Per mode: each meter's median |peak current| and median charge at the highest "
-        "charge voltage tested by every meter (shortest delay). The lower meter dumps less "
-        "into the next circuit its probes touch. “Clear” means the 95 % confidence "
-        "intervals of the medians do not overlap.</p>"
+        "<p>Per mode and charge voltage: each meter's median |peak current| and median charge "
+        "(shortest delay), which is lower, and the verdicts of the sequence's limits at that "
+        "voltage. The lower meter dumps less into the next circuit its probes touch. “Clear” "
+        "means the 95 % confidence intervals of the medians do not overlap.</p>"
     )
     several = _several_captures(mz)
     if several:
@@ -134,6 +118,12 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
             f"<p>|Peak current| from {esc(_capture_text(mz, peak_cap))} (the finest sample "
             f"interval); charge from {esc(_capture_text(mz, charge_cap))} (the longest "
             "record, which holds the slow tail that carries most of the charge).</p>"
+        )
+    if not peak_ok:
+        intro += (
+            f"<p class='n'>No peak current: {esc(_capture_text(mz, peak_cap))} does not "
+            "resolve the pulse (its 10-90 % rise spans fewer than "
+            f"{MIN_RISE_SAMPLES:g} samples); add a fast capture to measure it.</p>"
         )
     tag = {k: f" · capture {esc(c)}" if several else "" for k, c in source.items()}
     return (
@@ -149,11 +139,127 @@ def _section_glance(m: pd.DataFrame, g: pd.DataFrame) -> str:
                 f"Median charge{tag['charge_c']}",
                 "Lower charge",
                 "Lower on both",
+                "Verdicts at this voltage",
             ],
             rows,
             "glance",
         )
     )
+
+
+def _glance_row(d_all, d, gz, meters, mode, load, v, source, peak_metric, peak_ok):
+    """(cells up to "Lower charge", winners per metric, meters with numbers) of one row."""
+    row = [esc(mode), esc(load), f"<span class='nw'>{esc(eng(v, 'V'))}</span>"]
+    winners = []
+    n_stats = 0
+    for metric, unit in (("abs_peak_a", "A"), ("charge_c", "C")):
+        if metric == "abs_peak_a" and not peak_ok:
+            row += ["<span class='n'>not resolved</span>", "–"]
+            winners.append(("", False))
+            continue
+        stats = {}
+        dm = d_all[d_all["capture"] == source[metric]]
+        for meter in meters:
+            x = dm[(dm["meter"] == meter) & (dm["volts"] == v)][metric].dropna()
+            if x.empty:
+                continue
+            sel = gz[
+                (gz["meter"] == meter)
+                & (gz["mode"] == mode)
+                & (gz["capture"] == source[metric])
+                & (gz["volts"] == v)
+                & (gz["load"] == load)
+                & (gz["metric"] == (peak_metric if metric == "abs_peak_a" else metric))
+            ]
+            lo = float(sel["median_ci_low"].iloc[0]) if len(sel) else np.nan
+            hi = float(sel["median_ci_high"].iloc[0]) if len(sel) else np.nan
+            stats[meter] = (float(x.median()), lo, hi, x.size)
+        n_stats = max(n_stats, len(stats))
+        row.append(
+            "<br>".join(
+                f"<span class='nw'>{esc(k)}: {esc(eng(s[0], unit))} <span class='n'>(n={s[3]})"
+                f"</span></span>{_clip_note(d, k, v) if metric == 'abs_peak_a' else ''}"
+                for k, s in stats.items()
+            )
+        )
+        w, text = _lower(stats)
+        if metric == "abs_peak_a" and any(_clip_note(d, k, v) for k in stats):
+            w = ("?", False)  # a clipped peak is a lower bound: no ranking on peaks
+            text = "<span class='warn'>not ranked: clipped peaks</span>"
+        winners.append(w)
+        row.append(text)
+    return row, winners, n_stats
+
+
+def _checks(gz: pd.DataFrame, meter: str, v: float | None = None, upto: bool = False):
+    """The group x metric checks (rows with a verdict) of one meter, at one voltage or up to it."""
+    sel = gz[(gz["meter"] == meter) & (gz["verdict"] != "")]
+    if v is not None:
+        sel = sel[sel["volts"] <= v] if upto else sel[sel["volts"] == v]
+    return sel
+
+
+def _failed(sel: pd.DataFrame) -> pd.DataFrame:
+    return sel[~sel["verdict"].str.lower().isin(["pass", "passed", "ok"])]
+
+
+def _verdict_list(gz: pd.DataFrame, meters: list[str], mode: str, load: str, v: float) -> str:
+    """Per meter: pass, or the worst verdict with the metrics that did not pass."""
+    out = []
+    for meter in meters:
+        sel = _checks(gz, meter, v)
+        sel = sel[(sel["mode"] == mode) & (sel["load"] == load)]
+        if sel.empty:
+            continue
+        bad = _failed(sel)
+        if bad.empty:
+            out.append(f"{esc(meter)}: {_verdict_cell('pass')}")
+            continue
+        worst = "fail" if (bad["verdict"].str.lower() == "fail").any() else bad["verdict"].iloc[0]
+        what = ", ".join(dict.fromkeys(metric_label(x) for x in bad["metric"].astype(str)))
+        out.append(f"{esc(meter)}: {_verdict_cell(worst)} <span class='n'>{esc(what)}</span>")
+    return "<br>".join(out) or "<span class='n'>no limits</span>"
+
+
+def _buyer_sentence(gz: pd.DataFrame, meters: list[str]) -> str:
+    """One sentence per decision: up to which charge voltage each meter passes every check."""
+    if gz.empty or not (gz["verdict"] != "").any():
+        return ""
+    volts = sorted(gz.loc[gz["verdict"] != "", "volts"].dropna().unique())
+    parts = []
+    for v in volts:
+        ok = [
+            k
+            for k in meters
+            if len(_checks(gz, k, v, True)) and _failed(_checks(gz, k, v, True)).empty
+        ]
+        fails = {
+            k: _failed(_checks(gz, k, v)) for k in meters if k not in ok and len(_checks(gz, k, v))
+        }
+        why = "; ".join(
+            f"{esc(k)} fails "
+            + esc(
+                ", ".join(
+                    dict.fromkeys(f"{metric_label(r.metric)} in {r.mode}" for r in f.itertuples())
+                )
+            )
+            for k, f in fails.items()
+            if not f.empty
+        )
+        v_text = esc(eng(v, "V"))
+        if ok and not fails:
+            who = " and ".join(f"<b>{esc(k)}</b>" for k in ok)
+            parts.append(f"Up to {v_text}, {who} pass{'es' if len(ok) == 1 else ''} every check")
+        elif ok:
+            who = " and ".join(f"<b>{esc(k)}</b>" for k in ok)
+            parts.append(
+                f"For work up to {v_text}, choose {who}: "
+                f"{'it passes' if len(ok) == 1 else 'they pass'} every check in every mode "
+                f"tested ({why})"
+            )
+        else:
+            parts.append(f"At {v_text}, no meter passes every check ({why})")
+    return ". ".join(parts) + ". <span class='n'>(Checks: the sequence's limits, see below.)</span>"
 
 
 def _clip_note(d: pd.DataFrame, meter: str, volts: float) -> str:

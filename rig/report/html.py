@@ -110,7 +110,8 @@ border-bottom:2px solid var(--ink);padding-bottom:3px}h3{font-size:1.05em;margin
 table{border-collapse:collapse;margin:.5em 0 1em;font-size:.88em}
 th,td{border-bottom:1px solid var(--rule);padding:4px 8px;text-align:left;vertical-align:top}
 th{background:var(--head);font-weight:600}
-.wide{overflow-x:auto}table.groups td,table.flagged td,.nw{white-space:nowrap}.n{color:var(--mute);font-size:.9em}
+.wide{overflow-x:auto}table.flagged td,.nw{white-space:nowrap}table.groups{font-size:.8em}
+table.glance{width:100%}table.glance td{overflow-wrap:anywhere}.n{color:var(--mute);font-size:.9em}
 .v{font-weight:700;padding:1px 6px;border-radius:3px;white-space:nowrap}
 .v.pass{color:var(--pass);background:var(--pass-bg)}
 .v.fail{color:var(--paper);background:var(--fail)}
@@ -122,6 +123,20 @@ figure{margin:.6em 0 1.4em}figure img{max-width:100%;height:auto;border:1px soli
 figcaption{font-size:.88em;color:var(--mute)}.lead{font-size:1.05em}
 nav{font-size:.9em;color:var(--mute)}nav a{color:inherit}
 svg.spark{display:block;background:var(--bg)}
+.buyer{border-left:6px solid var(--pass);background:var(--pass-bg);padding:4px 14px}
+@page{size:A4;margin:14mm 12mm}
+@media print{
+body{font-size:10.5pt;background:var(--paper)}main{max-width:none;padding:0}nav{display:none}
+h2{break-after:avoid;page-break-after:avoid}h3{break-after:avoid}
+figure,tr,.caution,.buyer,dl.kv{break-inside:avoid;page-break-inside:avoid}
+thead{display:table-header-group}
+.wide{overflow:visible}table{font-size:8pt}table.groups{font-size:6.8pt}
+th,td{padding:2px 4px}figure img{max-width:100%;border:0}
+section#glance,section#verdicts{break-before:page}
+a{color:inherit;text-decoration:none}
+.v.fail{-webkit-print-color-adjust:exact;print-color-adjust:exact}
+.v.pass,.caution,.buyer{-webkit-print-color-adjust:exact;print-color-adjust:exact}
+}
 """
 
 

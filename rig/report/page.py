@@ -32,18 +32,22 @@ import numpy as np
 import pandas as pd
 
 from rig import __version__
+from rig.analysis.analyze import analysis_mismatch
+from rig.analysis.provenance import record_options
 from rig.analysis.stats import capture_roles
 from rig.report import figures as F
 
 # FLAG_TEXT lives with the loading, which derives the ``flagged`` column from it; both it and
 # _GROUP_KEYS (the group keys of rig.analysis.stats) stay importable from here.
 from rig.report.calibration import section_calibration
+from rig.report.captures import MIN_RISE_SAMPLES, measures
 from rig.report.data import (
     _GROUP_KEYS,  # noqa: F401
     FLAG_TEXT,
     _capture_text,
     _load_groups,
     _load_metrics,
+    _peak_metric,
     _several_captures,
 )
 from rig.report.glance import _limits_table, _section_glance, _section_verdicts
@@ -60,6 +64,7 @@ from rig.report.plots import (
 )
 from rig.report.tables import _section_flagged, _section_groups, _section_tested
 from rig.store.runfolder import read_manifest
+from rigbase.errors import RunFolderError
 
 __all__ = ["FLAG_TEXT", "SECTIONS", "write_report"]
 
@@ -96,6 +101,30 @@ _CAUTION = (
 )
 
 
+def _record_report(run: Path, path: Path, baseline_dir: str | Path | None) -> None:
+    """The report's options record: the baseline and the files it was made from."""
+    inputs: dict[str, str | Path] = {
+        n: run / n for n in ("metrics.parquet", "groups.csv", "selfdischarge.csv")
+    }
+    opts: dict[str, object] = {"baseline": None}
+    if baseline_dir is not None:
+        from rig.analysis.compare import compare_options, comparison_path
+
+        opts = {"baseline": str(Path(baseline_dir).resolve()), "compare": compare_options()}
+        inputs["compare"] = comparison_path(run, baseline_dir)
+    record_options(path, "report", opts, inputs)
+
+
+def _trend_charge_only(m, g, loads, modes, colours, rng, out) -> str:
+    """The trends section with the charge only (the peak of an unresolved pulse is left out)."""
+    g = g[g["metric"].astype(str) != _peak_metric(g)]
+    g = g[g["metric"].astype(str) != "peak_a"]
+    return "".join(
+        _section_trends(m, g, ld, len(loads) > 1, modes, colours, rng, out, peak=False)
+        for ld in loads
+    )
+
+
 def write_report(
     run_dir: str | Path,
     baseline_dir: str | Path | None = None,
@@ -111,6 +140,11 @@ def write_report(
     run = Path(run_dir)
     rng = rng if rng is not None else np.random.default_rng(0)
     man = read_manifest(run)
+    stale = analysis_mismatch(run) if (run / "metrics.parquet").exists() else None
+    if stale:
+        raise RunFolderError(
+            f"{run}: {stale}; run `rig analyze {run}` (or `rig report`, which re-analyses) first"
+        )
     m = _load_metrics(run)
     g = _load_groups(run)
     out = run / FIGURES
@@ -138,32 +172,49 @@ def write_report(
     )
     frames = {"peaks": (mp, g), "trends": (m, g_trend), "iec-charge": (mq, g)}
     loads = list(m["load"].value_counts().index)  # most events first
+    fast_ok = "fast" in measures(m).get(peak_cap, {"fast"})
     for key, fn in (
         ("peaks", _section_peaks),
         ("trends", _section_trends),
         ("iec-charge", _section_iec),
     ):
+        if not fast_ok and key != "iec-charge":
+            continue  # drawn below without the peak
         fm, fg = frames[key]
         body[key] = "".join(
             fn(fm, fg, ld, len(loads) > 1, modes, colours, rng, out) for ld in loads
         )
     body["iec-charge"] = _IEC_NOTE + body["iec-charge"]
-    if _several_captures(m):
-        p_text, q_text = esc(_capture_text(m, peak_cap)), esc(_capture_text(m, charge_cap))
+    if _several_captures(m) and fast_ok:
+        p_text = esc(_capture_text(m, peak_cap))
         body["peaks"] = (
             f"<p class='n'>From {p_text} (the finest sample interval).</p>" + (body["peaks"])
         )
         body["trends"] = (
-            f"<p class='n'>|Peak current| from {p_text}; charge from {q_text}.</p>" + body["trends"]
+            f"<p class='n'>|Peak current| from {p_text}; charge from "
+            f"{esc(_capture_text(m, charge_cap))}.</p>" + body["trends"]
         )
+    if _several_captures(m):
+        q_text = esc(_capture_text(m, charge_cap))
         body["iec-charge"] = (
             f"<p class='n'>From {q_text} (the longest record: the tail holds most of the "
             "charge).</p>" + body["iec-charge"]
         )
-    body["bounce"] = _section_bounce(mp, modes, colours, out)
+    if fast_ok:
+        body["bounce"] = _section_bounce(mp, modes, colours, out)
+    else:
+        # no capture resolves the pulse: no peak or bounce figure from smoothed records
+        why = (
+            f"<p>Not measured: {esc(_capture_text(m, peak_cap))} does not resolve the pulse "
+            "(its 10-90 % rise spans fewer than "
+            f"{MIN_RISE_SAMPLES:g} samples). Add a capture with a fine sample interval to "
+            "measure the peak current and the contact bounce.</p>"
+        )
+        body["peaks"] = body["bounce"] = why
+        body["trends"] = _trend_charge_only(m, g_trend, loads, modes, colours, rng, out)
     body["selfdischarge"] = _section_selfdischarge(run, mq, colours, out, charge_cap)
     body["flagged"] = _section_flagged(run, m, colours)
-    body["groups"] = _section_groups(g)
+    body["groups"] = _section_groups(g, m)
     if baseline_dir is not None:
         body["baseline"] = _section_baseline(run, m, Path(baseline_dir), modes, colours, out)
 
@@ -188,5 +239,6 @@ def write_report(
     )
     path = run / REPORT
     path.write_text(doc, encoding="utf-8")
+    _record_report(run, path, baseline_dir)
     log.info("report %s written in %.1f s", path, time.perf_counter() - t_start)
     return path

@@ -15,6 +15,7 @@ import pandas as pd
 
 from rig.analysis.stats import capture_roles, with_capture
 from rig.report import figures as F
+from rig.report.captures import measures
 from rig.report.data import (
     _at_zero_delay,
     _capture_text,
@@ -120,7 +121,13 @@ def _section_waveforms(run: Path, m: pd.DataFrame, modes: list[str], colours, ou
                 parts.append(f"{head}<p>{esc(what)}: no captured waveform.</p>")
                 head = ""
                 continue
-            fig = F.fig_waveforms(rows, f"Discharge current · {what}")
+            fast = "fast" in measures(m).get(capture, {"fast"})
+            fig = F.fig_waveforms(
+                rows,
+                f"Discharge current · {what}",
+                "peak (linear time)" if fast else "start, peak not resolved (linear time)",
+                "tail (log time)" if fast else "whole record: the tail (log time)",
+            )
             sfx = f"-{_slug(capture)}" if several else ""
             r = F.render(fig, f"waveforms-{_slug(mode)}{sfx}", out)
             caption = f"Discharge current in mode {esc(mode)}" + (
@@ -165,10 +172,11 @@ def _section_peaks(m, g, load, several, modes, colours, rng, out) -> str:
     )
 
 
-def _section_trends(m, g, load, several, modes, colours, rng, out) -> str:
+def _section_trends(m, g, load, several, modes, colours, rng, out, peak: bool = True) -> str:
     head, sfx = _load_title(load, several)
     gl = _at_zero_delay(g[g["load"].astype(str) == str(load)])
-    metrics = [(_peak_metric(g), "|Peak current|", "A"), ("charge_c", "Charge", "C")]
+    metrics = [(_peak_metric(g), "|Peak current|", "A")] if peak else []
+    metrics.append(("charge_c", "Charge", "C"))
     fig = F.fig_vs_voltage(gl, metrics, modes, colours, f"Against charge voltage · load {load}")
     return head + _img(
         F.render(fig, f"vs-voltage{sfx}", out),
@@ -225,26 +233,74 @@ def _section_selfdischarge(
     if sd.empty:
         return "<p>No delay sweep in this run (no selfdischarge.csv).</p>"
     fig = F.fig_selfdischarge(m, sd, colours)
-    rows = [
-        [
-            esc(r.meter),
-            esc(r.mode),
-            esc(eng(r.volts, "V")),
-            esc(r.load),
-            esc(f"{eng(r.tau_s, 's')} ({eng(r.tau_ci_low, 's')} – {eng(r.tau_ci_high, 's')})"),
-            esc(eng(r.safe_charge_c, "C")),
-            esc(eng(r.delay_to_safe_s, "s")),
-            esc(r.n_delays),
-        ]
-        for r in sd.itertuples()
+    rows = []
+    for r in sd.itertuples():
+        rows.append(
+            [
+                esc(r.meter),
+                esc(r.mode),
+                esc(eng(r.volts, "V")),
+                esc(r.load),
+                esc(f"{eng(r.tau_s, 's')} ({eng(r.tau_ci_low, 's')} – {eng(r.tau_ci_high, 's')})"),
+                _sd_cross(r, "safe_charge_c", "delay_to_safe_s", "delay_to_safe_upper_s"),
+                _sd_cross(r, "hazard_charge_c", "delay_to_hazard_s", "delay_to_hazard_upper_s"),
+                _sd_cross(r, None, "delay_to_45uc_s", "delay_to_45uc_upper_s"),
+                esc(f"{r.n_delays}, up to {eng(getattr(r, 'max_delay_s', float('nan')), 's')}"),
+            ]
+        )
+    r0 = sd.iloc[0]
+    safe_v = r0.get("safe_volts", float("nan"))
+    hz_v = r0.get("hazard_volts", float("nan"))
+    named = (
+        f"<p><b>Safe</b> here means the input's charge is below what would hold it at the "
+        f"bench's safe residual voltage of <b>{esc(eng(safe_v, 'V'))}</b> (bench file, "
+        "<code>limits.safe_residual_volts</code>), that is the equivalent capacitance at delay 0 "
+        f"× {esc(eng(safe_v, 'V'))}. The table also gives the delay to fall below the "
+        f"hazardous-live voltage ({esc(eng(hz_v, 'V'))} d.c.) and below the 45 µC "
+        "stored-charge figure of IEC 61010-1. Each delay is the fit's value, then, in "
+        "brackets, the one-sided 95 % upper confidence bound of the fitted line: wait at "
+        "least that long. <i>Extrapolated</i>: beyond the longest delay measured, drawn "
+        "dashed in the figure; extend the sweep to measure it.</p>"
+        if "safe_volts" in sd.columns
+        else "<p>Safe: below the charge that would hold the input at the safe residual "
+        "voltage (selfdischarge.csv from an older version names no more).</p>"
+    )
+    header = [
+        "Meter",
+        "Mode",
+        "Voltage",
+        "Load",
+        "τ (95 % CI)",
+        f"Delay to safe ({esc(eng(safe_v, 'V'))})",
+        f"Delay to below {esc(eng(hz_v, 'V'))}",
+        "Delay to below 45 µC",
+        "Delays measured",
     ]
-    header = ["Meter", "Mode", "Voltage", "Load", "τ (95 % CI)", "Safe charge", "Delay to safe"]
-    return _img(
-        F.render(fig, "selfdischarge", out),
-        "Self-discharge",
-        "Charge delivered after each delay, with the fitted exponential (τ from "
-        "selfdischarge.csv).",
-    ) + _table(header + ["Delays"], rows)
+    return (
+        named
+        + _img(
+            F.render(fig, "selfdischarge", out),
+            "Self-discharge",
+            "Charge delivered after each delay, with the fitted exponential (τ from "
+            "selfdischarge.csv): solid over the measured delays, dashed where extrapolated.",
+        )
+        + _table(header, rows)
+    )
+
+
+def _sd_cross(r, charge: str | None, fit: str, upper: str) -> str:
+    """One crossing cell: threshold charge, fitted delay (upper bound), extrapolated or not."""
+    t = getattr(r, fit, float("nan"))
+    if t != t:
+        return "–"
+    hi = getattr(r, upper, float("nan"))
+    q = 45e-6 if charge is None else getattr(r, charge, float("nan"))
+    text = f"{eng(t, 's')}" + (f" (≤ {eng(hi, 's')})" if hi == hi else "")
+    extra = ""
+    longest = getattr(r, "max_delay_s", float("nan"))
+    if longest == longest and max(t, hi if hi == hi else t) > longest:
+        extra = " <span class='warn'>extrapolated</span>"
+    return f"<span class='nw'>{esc(text)}</span>{extra}<br><span class='n'>at {esc(eng(q, 'C'))}</span>"
 
 
 def _section_baseline(

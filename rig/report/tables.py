@@ -15,8 +15,15 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from rig.analysis.compare import compare_runs
+from rig.analysis.compare import (
+    compare_options,
+    compare_runs,
+    comparison_inputs,
+    comparison_path,
+)
+from rig.analysis.provenance import mismatch
 from rig.report import figures as F
+from rig.report.captures import shown_groups
 from rig.report.data import FLAG_TEXT, _capture_text, _several_captures
 from rig.report.html import _dict, _kv, _plain, _short, _table, _verdict_cell, esc, group_cells
 from rig.store.waveform import load_waveform
@@ -139,12 +146,58 @@ def _section_tested(run: Path, man: dict[str, Any], m: pd.DataFrame) -> str:
     shown = [(k, v) for k, v in bench.items() if k not in skip]
     shown += [(f"limits.{k}", v) for k, v in _dict(bench.get("limits")).items()]
     if shown:
-        parts.append("<h3>Bench</h3>" + _kv(shown))
+        parts.append("<h3>Bench</h3>" + _kv(_with_units(shown)))
+    # captures are listed above with their sample interval and span
     skip = {"name", "path", "meters", "operator_note", "volts", "loads", "limits"}
+    skip |= {"captures", "scope_captures", "scope_grid"} if "capture" in m.columns else set()
     settings = [(k, v) for k, v in seq.items() if k not in skip]
+    if "capture" in m.columns and m["capture"].nunique() > 1:
+        # the captures' own timebases replace these (listed above under "Scope captures")
+        per_capture = {"sample_interval_s", "points", "trigger_offset_s", "bandwidth_hz"}
+        settings = [
+            (k, {a: b for a, b in v.items() if a not in per_capture} if k == "scope" else v)
+            for k, v in settings
+            if not (k == "scope" and not isinstance(v, dict))
+        ]
     if settings:
-        parts.append("<h3>Sequence settings</h3>" + _kv(settings))
+        parts.append("<h3>Sequence settings</h3>" + _kv(_with_units(settings)))
     return "".join(parts)
+
+
+_SUFFIX_UNITS = (
+    ("_volts", "V"),
+    ("_amps", "A"),
+    ("_ohms", "Ω"),
+    ("_hz", "Hz"),
+    ("_farads", "F"),
+    ("_henry", "H"),
+    ("_s", "s"),
+    ("_c", "C"),
+    ("_f", "F"),
+)
+
+
+def _unit_of(key: str) -> str:
+    """The unit a key's name carries (``stored_charge_limit_c`` -> C), or ""."""
+    return next((u for sfx, u in _SUFFIX_UNITS if key.endswith(sfx) or key == sfx[1:]), "")
+
+
+def _with_units(items: list[tuple[str, Any]]) -> list[tuple[str, Any]]:
+    """Numbers whose key names a unit as engineering text (4.5e-05 under ``..._c`` -> 45 µC),
+    also one level down in tables (``sense.ohms``)."""
+
+    def one(key: str, v: Any) -> Any:
+        if isinstance(v, bool) or not isinstance(v, int | float):
+            return v
+        unit = _unit_of(key)
+        return eng(v, unit) if unit else v
+
+    out = []
+    for k, v in items:
+        if isinstance(v, dict):
+            v = {kk: one(str(kk), vv) for kk, vv in v.items()}
+        out.append((k, one(k.split(".")[-1], v)))
+    return out
 
 
 MAX_THUMBNAILS = 60
@@ -201,7 +254,14 @@ def _section_flagged(run: Path, m: pd.DataFrame, colours: dict[str, str]) -> str
     )
 
 
-def _section_groups(g: pd.DataFrame) -> str:
+def _section_groups(g: pd.DataFrame, m: pd.DataFrame | None = None) -> str:
+    """groups.csv as a table, without the rows its capture cannot measure (see
+    rig.report.captures) and without repeating the peak as signed and absolute."""
+    note = ""
+    if m is not None:
+        g, note = shown_groups(g, m)
+    one_delay = g["delay_s"].nunique(dropna=False) <= 1
+    one_capture = g["capture"].nunique(dropna=False) <= 1
     rows = []
     for r in g.itertuples():
         u = metric_unit(str(r.metric))
@@ -212,27 +272,25 @@ def _section_groups(g: pd.DataFrame) -> str:
         conf = getattr(r, "utl_confidence", np.nan)
         cov = getattr(r, "utl_coverage", np.nan)
         share = getattr(r, "share_over_limit", np.nan)
+        serial = r.serial if r.serial == r.serial else ""
         rows.append(
             [
-                esc(r.meter),
-                esc(r.serial if r.serial == r.serial else ""),
+                esc(r.meter) + (f"<br><span class='n'>{esc(serial)}</span>" if serial else ""),
                 esc(r.mode),
-                esc(r.capture),
+                "" if one_capture else esc(r.capture),
                 esc(eng(r.volts, "V")),
                 esc(r.load),
-                esc(eng(r.delay_s, "s")),
+                "" if one_delay else esc(eng(r.delay_s, "s")),
                 esc(metric_label(str(r.metric))),
                 f"{esc(getattr(r, 'n_captured', ''))} / {esc(getattr(r, 'n_planned', ''))}",
-                e("mean"),
-                e("std"),
-                e("median"),
-                f"{e('median_ci_low')} – {e('median_ci_high')}",
-                e("p95"),
-                e("p99"),
+                f"{e('mean')}<br><span class='n'>± {e('std')}</span>",
+                f"{e('median')}<br><span class='n'>{e('median_ci_low')} – "
+                f"{e('median_ci_high')}</span>",
+                f"{e('p95')}<br><span class='n'>{e('p99')}</span>",
                 e("max"),
                 e("utl")
                 + (
-                    f" <span class='n'>({conf:.0%}/{cov:.0%})</span>"
+                    f"<br><span class='n'>({conf:.0%}/{cov:.0%})</span>"
                     if conf == conf and cov == cov
                     else ""
                 ),
@@ -242,12 +300,14 @@ def _section_groups(g: pd.DataFrame) -> str:
             ]
         )
     return (
-        "<p>Every group × metric of groups.csv. utl: one-sided normal upper tolerance bound "
-        "(confidence / coverage in brackets).</p><div class='wide'>"
+        "<p>Every group × metric of groups.csv that its capture can measure. Mean ± standard "
+        "deviation; median with its 95 % confidence interval below; p95 with p99 below; utl: "
+        "one-sided normal upper tolerance bound (confidence / coverage below).</p>"
+        + (f"<p class='n'>{esc(note)}</p>" if note else "")
+        + "<div class='wide'>"
         + _table(
             [
                 "Meter",
-                "Serial",
                 "Mode",
                 "Capture",
                 "Voltage",
@@ -256,11 +316,8 @@ def _section_groups(g: pd.DataFrame) -> str:
                 "Metric",
                 "n",
                 "Mean",
-                "Std",
                 "Median",
-                "Median 95 % CI",
-                "p95",
-                "p99",
+                "p95 / p99",
                 "Max",
                 "utl",
                 "Limit",
@@ -327,14 +384,25 @@ def _compare_cell(col: str, r: pd.Series, unit: str) -> str:
     return esc(val)
 
 
+def _compare_kwargs(opts: dict[str, Any]) -> dict[str, Any]:
+    """compare_options() back as keyword arguments of compare_runs."""
+    return {**opts, "metrics": tuple(opts["metrics"])}
+
+
 def _compare_table(run: Path, base: Path, base_man: dict[str, Any]) -> str:
     """The equivalence verdicts: compare-<baseline-id>.csv if the run has it, else computed now
     with rig.analysis.compare.compare_runs (not written: the report only writes its own files)."""
-    ids = [str(base_man.get("run_id") or base_man.get("id") or ""), base.name]
-    path = next(
-        (run / f"compare-{i}.csv" for i in ids if i and (run / f"compare-{i}.csv").exists()), None
+    opts = compare_options()
+    path = comparison_path(run, base)
+    want = {**opts, "baseline": str(base.resolve())}
+    why = mismatch(path, want, comparison_inputs(run, base))
+    c = pd.read_csv(path) if why is None else compare_runs(run, base, **_compare_kwargs(opts))
+    recomputed = (
+        ""
+        if why is None or not path.exists()
+        else f"<p class='warn'>Not taken from disk: {esc(why)}; this report recomputed the "
+        "comparison with the default options (peak current and charge, ±10 %).</p>"
     )
-    c = pd.read_csv(path) if path is not None else compare_runs(run, base)
     if c.empty:
         return "<p>The comparison holds no group.</p>"
     cols = [k for k in _COMPARE_SHOWN if k in c.columns]
@@ -344,9 +412,7 @@ def _compare_table(run: Path, base: Path, base_man: dict[str, Any]) -> str:
         for _, r in c.iterrows()
     ]
     source = (
-        path.name
-        if path is not None
-        else "rig.analysis.compare.compare_runs (computed for this report)"
+        path.name if why is None else "rig.analysis.compare.compare_runs (computed for this report)"
     )
     counts = (
         ", ".join(f"{n} {esc(k)}" for k, n in c["verdict"].fillna("–").value_counts().items())
@@ -354,10 +420,11 @@ def _compare_table(run: Path, base: Path, base_man: dict[str, Any]) -> str:
         else ""
     )
     return (
-        f"<p class='lead'>{len(c)} group × metric comparisons: {counts}.</p>"
+        recomputed + f"<p class='lead'>{len(c)} group × metric comparisons: {counts}.</p>"
         f"<p class='n'>From {esc(source)}. Ratio: median of this run over the baseline's, with "
-        "its confidence interval. Equivalent: the two one-sided tests (TOST) place the ratio "
-        "within the tolerance.</p><div class='wide'>"
+        "its confidence interval. Equivalent: the two one-sided t tests (TOST) on the log "
+        "values place the ratio of the geometric means within 1/(1 + tolerance) .. "
+        "1 + tolerance (symmetric on the log scale).</p><div class='wide'>"
         + _table([esc(_COMPARE_SHOWN.get(k, k)) for k in cols], rows, "groups")
         + "</div>"
     )

@@ -11,8 +11,17 @@ FACES = {
     "rig.planning": ("benchfile", "sequence", "plan"),
     "rig.runner": ("cycle", "interlocks", "opener", "display"),
     "rig.store": ("schema", "waveform", "runfolder"),
-    "rig.analysis": ("metrics", "stats", "selfdischarge", "compare", "analyze", "measure", "runs"),
-    "rig.report": ("page",),
+    "rig.analysis": (
+        "metrics",
+        "stats",
+        "selfdischarge",
+        "compare",
+        "analyze",
+        "measure",
+        "runs",
+        "provenance",
+    ),
+    "rig.report": ("page", "certificate"),
     "rig.dataset": ("catalog", "build", "query", "variance", "control", "cluster", "distribute"),
 }
 DRIVER_MODULES = ("clock", "metermode", "profile", "scope", "session", "supply", "switch")

@@ -191,6 +191,8 @@ def fig_vs_voltage(
                     )
                 top = np.nanmax(vals) * factor if np.isfinite(vals).any() else 1.0
                 ax.set_ylim(0, 1.08 * top)
+                # from 0 V, so that a run at one voltage gets a readable axis (not 570-630 V)
+                ax.set_xlim(0, 1.12 * vmax)
                 if r == len(metrics) - 1:
                     ax.set_xlabel("Charge voltage (V)")
                 if c == 0:
@@ -323,11 +325,14 @@ def fig_selfdischarge(events: pd.DataFrame, fits: pd.DataFrame, colours: dict[st
 
     ``fits`` are selfdischarge.csv rows; ``events`` the metrics rows of those groups. The
     fitted tau comes from the file; q0 is the least-squares amplitude for that tau, so the
-    curve is drawn through the points it was fitted to.
+    curve is drawn through the points it was fitted to. The curve is solid over the measured
+    delays and dashed beyond the longest one (an extrapolation). Horizontal lines mark the
+    thresholds the file names (safe residual, hazardous-live voltage, 45 uC); a marker with an
+    error bar shows where the fit crosses each, up to its upper confidence bound.
     """
     modes = list(dict.fromkeys(fits["mode"]))
     with house_style():
-        fig = new_figure(min(3.0 + 4.0 * len(modes), 13), 4.4)
+        fig = new_figure(min(3.0 + 5.0 * len(modes), 13), 4.8)
         axes = fig.subplots(1, len(modes), squeeze=False)[0]
         for ax, mode in zip(axes, modes, strict=True):
             for _, f in fits[fits["mode"] == mode].iterrows():
@@ -341,14 +346,24 @@ def fig_selfdischarge(events: pd.DataFrame, fits: pd.DataFrame, colours: dict[st
                 colour = colours.get(f["meter"], GREY)
                 x, y = d["delay_s"].to_numpy(float), d["charge_c"].to_numpy(float)
                 ok = y > 0
-                ax.scatter(x[ok], y[ok], s=18, color=colour, alpha=0.8, linewidths=0, zorder=3)
+                ax.scatter(
+                    x[ok],
+                    y[ok],
+                    s=18,
+                    color=colour,
+                    alpha=0.8,
+                    linewidths=0,
+                    zorder=3,
+                    label=mpl_text(f"{f['meter']}: measured"),
+                )
                 tau = float(f["tau_s"])
+                marks = _sd_thresholds(f)
                 if ok.any() and tau > 0 and np.isfinite(tau):
                     e = np.exp(-x[ok] / tau)
                     q0 = float((y[ok] * e).sum() / (e * e).sum())
-                    xs = np.linspace(
-                        0, max(float(x.max()), float(f.get("delay_to_safe_s", 0) or 0)), 200
-                    )
+                    xmax = float(x.max())
+                    far = max([xmax] + [m[2] for m in marks if np.isfinite(m[2])])
+                    xs = np.linspace(0, xmax, 100)
                     ci = ""
                     if np.isfinite(f.get("tau_ci_low", np.nan)):
                         ci = f" ({eng(f['tau_ci_low'], 's')}–{eng(f['tau_ci_high'], 's')})"
@@ -356,30 +371,76 @@ def fig_selfdischarge(events: pd.DataFrame, fits: pd.DataFrame, colours: dict[st
                         xs,
                         q0 * np.exp(-xs / tau),
                         color=colour,
-                        label=mpl_text(f"{f['meter']}: τ = {eng(tau, 's')}{ci}"),
+                        label=mpl_text(f"fit τ = {eng(tau, 's')}{ci}"),
                     )
-                dts = float(f.get("delay_to_safe_s", np.nan))
-                if np.isfinite(dts) and dts > 0:
-                    ax.axvline(dts, color=colour, linestyle=":", linewidth=1.3)
-                safe = float(f.get("safe_charge_c", np.nan))
-                if np.isfinite(safe):
-                    # the safe charge is the meter's own (its capacitance at the safe voltage)
-                    ax.axhline(safe, color=colour, linestyle="-.", linewidth=1.0)
+                    if far > xmax:
+                        xe = np.linspace(xmax, 1.05 * far, 100)
+                        ax.plot(
+                            xe,
+                            q0 * np.exp(-xe / tau),
+                            color=colour,
+                            linestyle="--",
+                            label="fit, extrapolated beyond the longest delay",
+                        )
+                for name, level, t_fit, t_hi, style in marks:
+                    ax.axhline(level, color=REF, linestyle=style, linewidth=0.9)
                     ax.annotate(
-                        f"safe charge {eng(safe, 'C')}",
-                        (0, safe),
+                        mpl_text(f"{name} {eng(level, 'C')}"),
+                        (0, level),
                         xytext=(4, 3),
                         textcoords="offset points",
                         fontsize=8.5,
-                        color=colour,
+                        color=REF,
                     )
+                    if np.isfinite(t_fit) and t_fit > 0:
+                        err = [[0.0], [t_hi - t_fit if np.isfinite(t_hi) else 0.0]]
+                        ax.errorbar(
+                            [t_fit],
+                            [level],
+                            xerr=err,
+                            fmt="D",
+                            color=colour,
+                            markersize=5,
+                            capsize=3,
+                            zorder=4,
+                        )
             ax.set_yscale("log")
             eng_ticks(ax, "y", "C")
             ax.set_xlabel("Delay between charge and discharge (s)")
             ax.set_ylabel("Charge delivered (C, log)")
             ax.set_title(
-                mpl_text(f"{mode} (dash-dot: safe charge; dotted: delay to reach it)"), loc="left"
+                mpl_text(f"{mode}: diamonds mark the crossings (bar: to the upper 95 % bound)"),
+                loc="left",
             )
-            ax.legend(loc="upper right")
+            ax.legend(loc="center right", fontsize=8.5)
         fig.suptitle("Self-discharge: charge left after a delay", fontweight="bold", fontsize=12.5)
     return fig
+
+
+def _sd_thresholds(f: pd.Series) -> list[tuple[str, float, float, float, str]]:
+    """(label, charge C, delay s, upper delay s, line style) of each threshold a fit row names."""
+    out = []
+    for name, charge, t_fit, t_hi, style in (
+        (
+            f"safe ({eng(f.get('safe_volts', np.nan), 'V')})",
+            "safe_charge_c",
+            "delay_to_safe_s",
+            "delay_to_safe_upper_s",
+            "-.",
+        ),
+        (
+            f"hazardous live ({eng(f.get('hazard_volts', np.nan), 'V')})",
+            "hazard_charge_c",
+            "delay_to_hazard_s",
+            "delay_to_hazard_upper_s",
+            ":",
+        ),
+        ("IEC 61010-1", None, "delay_to_45uc_s", "delay_to_45uc_upper_s", (0, (5, 1))),
+    ):
+        level = 45e-6 if charge is None else float(f.get(charge, np.nan))
+        if charge is not None and not np.isfinite(f.get(charge, np.nan)):
+            continue
+        if charge is None and t_fit not in f:
+            continue
+        out.append((name, level, float(f.get(t_fit, np.nan)), float(f.get(t_hi, np.nan)), style))
+    return out

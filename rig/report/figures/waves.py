@@ -172,11 +172,16 @@ class Series:
 
 
 def fig_waveforms(
-    rows: Sequence[tuple[str, Sequence[Series], tuple[float, float]]], title: str
+    rows: Sequence[tuple[str, Sequence[Series], tuple[float, float]]],
+    title: str,
+    left: str = "peak (linear time)",
+    right: str = "tail (log time)",
 ) -> Figure:
     """Median traces with 5-95 % bands: one row per (title, series, linear window).
 
     Left: linear time around the peak. Right: log time and log |current| for the tail.
+    ``left``, ``right``: the panel titles (a capture that does not resolve the peak is not
+    titled "peak").
     """
     with house_style():
         fig = new_figure(10.5, 0.7 + 2.9 * len(rows))
@@ -216,7 +221,7 @@ def fig_waveforms(
             ax_l.axhline(0, color=GREY, linewidth=0.8)
             ax_l.set_xlabel(axis_label("Time after trigger", "s", tunit[:-1]))
             ax_l.set_ylabel(axis_label("Current", "A", yunit[:-1]))
-            ax_l.set_title(mpl_text(row_title) + " · peak (linear time)", loc="left")
+            ax_l.set_title(mpl_text(row_title) + " · " + left, loc="left")
             ax_r.set_xscale("log")
             ax_r.set_yscale("log")
             if top > 0 and np.isfinite(floor) and floor > 0:
@@ -225,7 +230,7 @@ def fig_waveforms(
             eng_ticks(ax_r, "y", "A")
             ax_r.set_xlabel("Time after trigger (s, log)")
             ax_r.set_ylabel("|Current| (A, log)")
-            ax_r.set_title("tail (log time)", loc="left")
+            ax_r.set_title(right, loc="left")
             ax_l.legend(loc="upper right", title="median, band 5–95 %", title_fontsize=8.5)
     return fig
 
