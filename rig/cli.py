@@ -389,7 +389,10 @@ def cmd_demo(args: argparse.Namespace) -> int:
         quiet=args.quiet,
         no_report=False,
     )
-    return cmd_run(ns)
+    code = cmd_run(ns)
+    # The demo's limits are set so that one candidate fails on purpose: the demonstration has
+    # succeeded when it ran, analysed and reported (README, "Exit codes"). Errors keep their code.
+    return EXIT_OK if code == EXIT_NO else code
 
 
 def cmd_sim_serve(args: argparse.Namespace) -> int:

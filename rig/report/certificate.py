@@ -134,6 +134,22 @@ def _recorded(man: dict[str, Any], *keys: str) -> Any:
     return None
 
 
+def _operator_lines(operator: Any) -> list[str]:
+    """The operator block the run recorded (name, sign-off line, accepted lapses) as lines."""
+    if not operator:
+        return ["Operator: not recorded"]
+    if not isinstance(operator, dict):
+        return [f"Operator: {'; '.join(_lines(operator))}"]
+    out = [f"Operator: {_plain(operator.get('name')) or 'not recorded'}"]
+    if operator.get("sign_off"):
+        out.append(f"Sign-off line recorded at the start: {_plain(operator['sign_off'])}")
+    if operator.get("overdue_accepted"):
+        out.append(
+            "Overdue calibrations accepted: " + ", ".join(map(str, operator["overdue_accepted"]))
+        )
+    return out
+
+
 def _lines(value: Any) -> list[str]:
     """A recorded value (text, table or list of tables) as readable lines."""
     if isinstance(value, list):
@@ -219,6 +235,8 @@ def write_certificate(run_dir: str | Path, baseline_dir: str | Path | None = Non
     kind = "Repair check" if baseline_dir is not None else "Qualification"
     operator = _recorded(man, "operator", "operator_name")
     calibrations = _recorded(man, "calibrations", "calibration")
+    if isinstance(calibrations, dict):  # a bench table without records
+        calibrations = [r for r in calibrations.get("records", []) if r] or None
     sd_path = run / "selfdischarge.csv"
     sd = pd.read_csv(sd_path) if sd_path.exists() else pd.DataFrame()
     decl = {
@@ -259,7 +277,8 @@ def write_certificate(run_dir: str | Path, baseline_dir: str | Path | None = Non
                 + f"; modes {', '.join(map(str, dict.fromkeys(mu['mode'])))}; "
                 f"{int(mu['file'].notna().sum())} of {len(mu)} events captured."
             )
-            p.para(f"Operator: {'; '.join(_lines(operator)) if operator else 'not recorded'}")
+            for line in _operator_lines(operator):
+                p.para(line)
             p.para("Calibrations: " + ("" if calibrations else "not recorded"))
             for line in _lines(calibrations) if calibrations else []:
                 p.para("  " + line, size=8)

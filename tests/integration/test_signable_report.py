@@ -193,7 +193,10 @@ def test_certificate_pdf_renders_and_reads(small_qualification, tmp_path):
         assert 1 <= len(own) <= 2, meter
         body = "\n".join(own)
         assert meter["model"] in body and meter["rating"] in body
-        assert "Operator: not recorded" in body and "Calibrations: not recorded" in body
+        # The run records who started it (on the simulated bench "(simulated bench)").
+        operator = (man.get("operator") or {}).get("name")
+        assert (f"Operator: {operator}" if operator else "Operator: not recorded") in body
+        assert "Calibrations: not recorded" in body
         assert "HIGH VOLTAGE CAN INJURE OR KILL" in body
         assert "Tested by (name)" in body and "Reviewed by (name)" in body
         g = pd.read_csv(run / "groups.csv")

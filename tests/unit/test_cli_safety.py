@@ -70,3 +70,15 @@ def test_measure_command_on_a_textbook_rc_discharge(tmp_path, capsys):
     assert out["charge_c"] == pytest.approx(100e-9, rel=0.01)
     assert out["tau_s"] == pytest.approx(150e-9, rel=0.01)
     assert out["c_equiv_f"] == pytest.approx(100e-12, rel=0.01)
+
+
+@pytest.mark.parametrize(("run_code", "demo_code"), [(0, 0), (1, 0), (2, 2), (3, 3), (130, 130)])
+def test_demo_exit_code_follows_the_readme(monkeypatch, run_code, demo_code):
+    """README, "Exit codes": the demo's failing verdicts are the demonstration (exit 0 once it
+    ran); bad input, bench trouble and interruptions keep their codes."""
+    import argparse
+
+    from rig import cli
+
+    monkeypatch.setattr(cli, "cmd_run", lambda ns: run_code)
+    assert cli.cmd_demo(argparse.Namespace(results="results", quiet=True)) == demo_code
