@@ -218,6 +218,10 @@ def assemble(parts: Sequence[Part], ground: str = "0", vt: float = VT_300K) -> S
             extra += [Part(f"Rgmin:{n}", "R", n, ground, GMIN_OHMS) for n in sorted(g)]
     lin = lin + extra
     dyn_set = {n for p in lin if p.kind == "C" for n in (p.a, p.b)} - {ground}
+    # an algebraic node whose resistive group reaches neither ground nor a capacitive node
+    for g in _groups(all_nodes + [ground], [p for p in lin if p.kind == "R"]):
+        if ground not in g and not (g & dyn_set):
+            lin += [Part(f"Rgmin:{n}", "R", n, ground, GMIN_OHMS) for n in sorted(g)]
     dyn = [n for n in all_nodes if n in dyn_set]
     alg = [n for n in all_nodes if n not in dyn_set]
     nodes = dyn + alg
