@@ -35,7 +35,10 @@ from pathlib import Path
 from rigbase.nonlinear import VT_300K, DiodeParams, Part
 from rigbase.tomlcheck import Table, parse_si, read_toml
 
-__all__ = ["LoadModel", "load_from_spec", "read_load"]
+__all__ = ["BUNDLED_LOADS", "LoadModel", "load_from_spec", "read_load"]
+
+# the demo load files that ship with the project; a bare file name is looked up here last
+BUNDLED_LOADS = Path(__file__).resolve().parents[1] / "sequences" / "loads"
 
 _KEYS = {
     "R": ("ohms",),
@@ -170,11 +173,14 @@ def read_load(path: str | Path) -> LoadModel:
 
 def load_from_spec(spec: str, base: Path | None = None) -> LoadModel:
     """A load from a command-line or sequence string: a ``.toml`` path (relative to ``base``)
-    or a resistance such as ``"10"``, ``"100 ohm"``, ``"1k"``. ValueError otherwise."""
+    (else a bundled one of ``BUNDLED_LOADS``) or a resistance such as ``"10"``, ``"100 ohm"``,
+    ``"1k"``. FileFormatError for a bad file, ValueError for anything else."""
     if spec.endswith(".toml"):
         p = Path(spec)
         if not p.is_absolute() and base is not None:
             p = base / p
+        if not p.exists() and (BUNDLED_LOADS / spec).exists():
+            p = BUNDLED_LOADS / spec
         return read_load(p)
     try:
         ohms = parse_si(spec, "load_ohms")

@@ -57,6 +57,7 @@ from rig.report.plots import (
     _section_trends,
     _section_waveforms,
 )
+from rig.report.predicted import section_predicted
 from rig.report.tables import _section_flagged, _section_groups, _section_tested
 from rig.store.runfolder import read_manifest
 
@@ -79,6 +80,7 @@ SECTIONS = (
     ("iec-charge", "Charge against the IEC 61010-1 45 µC figure"),
     ("bounce", "Contact bounce"),
     ("selfdischarge", "Self-discharge"),
+    ("predicted", "Predicted discharge into other loads"),
     ("flagged", "Flagged events"),
     ("groups", "Group table"),
     ("baseline", "Comparison with the baseline run"),
@@ -159,6 +161,7 @@ def write_report(
         )
     body["bounce"] = _section_bounce(mp, modes, colours, out)
     body["selfdischarge"] = _section_selfdischarge(run, mq, colours, out, charge_cap)
+    body["predicted"] = section_predicted(run, man)
     body["flagged"] = _section_flagged(run, m, colours)
     body["groups"] = _section_groups(g)
     if baseline_dir is not None:
