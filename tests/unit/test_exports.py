@@ -11,7 +11,19 @@ FACES = {
     "rig.planning": ("benchfile", "sequence", "plan"),
     "rig.runner": ("cycle", "interlocks", "opener", "display"),
     "rig.store": ("schema", "waveform", "runfolder"),
-    "rig.analysis": ("metrics", "stats", "selfdischarge", "compare", "analyze", "measure", "runs"),
+    "rig.analysis": (
+        "metrics",
+        "stats",
+        "selfdischarge",
+        "compare",
+        "analyze",
+        "measure",
+        "runs",
+        "identify",
+        "sourcenet",
+        "predict",
+        "predictrun",
+    ),
     "rig.report": ("page",),
 }
 DRIVER_MODULES = ("clock", "metermode", "profile", "scope", "session", "supply", "switch")
