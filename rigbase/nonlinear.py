@@ -44,6 +44,7 @@ __all__ = [
     "assemble",
     "diode_current",
     "integrate",
+    "integrate_dense",
 ]
 
 # k T / q at 300 K (CODATA 2018 exact k and q), V
@@ -347,3 +348,25 @@ def integrate(
     if not sol.success:
         raise RuntimeError(f"nonlinear integration failed: {sol.message}")
     return sol.y
+
+
+def integrate_dense(
+    system: DiodeSystem, x0: np.ndarray, t_end: float, rtol: float = 1e-6, atol: float = 1e-10
+):
+    """The solution from ``x0`` at 0 to ``t_end`` (s) as a callable of time (scipy
+    ``OdeSolution``: ``sol(t)`` gives states x len(t)), Radau with the exact Jacobian."""
+    t_end = max(float(t_end), 1e-15)
+    sol = solve_ivp(
+        lambda _t, x: system.rhs(x),
+        (0.0, t_end),
+        np.asarray(x0, dtype=float),
+        method="Radau",
+        dense_output=True,
+        jac=lambda _t, x: system.jac(x),
+        rtol=rtol,
+        atol=atol,
+        first_step=min(1e-13, t_end / 10),
+    )
+    if not sol.success:
+        raise RuntimeError(f"nonlinear integration failed: {sol.message}")
+    return sol.sol

@@ -23,9 +23,9 @@ import numpy as np
 from drivers.sim.circuit import Circuit, Probe, Trace
 from drivers.sim.netlist import Element
 from rigbase.loadfile import LoadModel
-from rigbase.nonlinear import VT_300K, DiodeParams, DiodeSystem, integrate
+from rigbase.nonlinear import VT_300K, DiodeParams, DiodeSystem, integrate, integrate_dense
 
-__all__ = ["Junction", "NonlinearCircuit", "load_elements"]
+__all__ = ["Junction", "NonlinearCircuit", "NonlinearStateSpace", "load_elements"]
 
 
 @dataclass(frozen=True)
@@ -68,11 +68,69 @@ def load_elements(
     return els, juncs, consts
 
 
+class NonlinearStateSpace:
+    """The nonlinear counterpart of :class:`drivers.sim.statespace.StateSpace` for one switch
+    configuration, with the same ``outputs``/``advance``/``settle`` calls, so the bench world
+    can hold a segment of a network with diodes like any other. Each (start state, inputs)
+    pair is integrated once (Radau, dense output) and extended when a later time is asked.
+    Junction sources' entries of an input vector are ignored (the junctions set them); the
+    load's constant sources are added to it."""
+
+    def __init__(self, ss, nj: int, jx: np.ndarray, u_const: np.ndarray, diodes) -> None:
+        self._ss = ss
+        self.n_net, self.n_states, self.dead = ss.n_net, ss.n_states, ss.dead
+        self.A, self.B, self.C, self.D = ss.A, ss.B, ss.C[nj:], ss.D[nj:]
+        self._nj, self._jx, self._u_const = nj, jx, u_const
+        is_a = np.array([d.is_a for d in diodes])
+        nvt = np.array([d.n for d in diodes]) * VT_300K
+        self._sys = DiodeSystem(ss.A, ss.B[:, jx], ss.C[:nj], np.zeros(ss.A.shape[0]), is_a, nvt)
+        self._sols: dict[tuple[bytes, bytes], tuple[float, object]] = {}
+
+    def _u(self, u: np.ndarray) -> np.ndarray:
+        u = np.array(u, dtype=float)
+        u[self._jx] = 0.0
+        return u + self._u_const
+
+    def _states(self, x: np.ndarray, u: np.ndarray, dt: np.ndarray) -> np.ndarray:
+        ue = self._u(u)
+        key = (np.asarray(x, dtype=float).tobytes(), ue.tobytes())
+        t_max = float(np.max(dt)) if np.size(dt) else 0.0
+        have = self._sols.get(key)
+        if have is None or have[0] < t_max:
+            t_end = max(t_max, 2 * have[0] if have else t_max, 1e-9)
+            self._sys.b = self._ss.B @ ue
+            have = (t_end, integrate_dense(self._sys, x, t_end))
+            if len(self._sols) > 64:  # old segments are rarely asked again
+                self._sols.clear()
+            self._sols[key] = have
+        self._sys.b = self._ss.B @ ue
+        return np.asarray(have[1](np.asarray(dt, dtype=float)))
+
+    def outputs(self, x: np.ndarray, u: np.ndarray, dt: np.ndarray) -> np.ndarray:
+        dt = np.atleast_1d(np.asarray(dt, dtype=float))
+        X = self._states(x, u, dt).reshape(len(x), dt.size)
+        U = np.repeat(self._u(u)[:, None], dt.size, axis=1)
+        U[self._jx] = self._sys.junction_amps(X)
+        return self.C @ X + self.D @ U
+
+    def advance(self, x: np.ndarray, u: np.ndarray, dt: float) -> np.ndarray:
+        return self._states(x, u, np.array([dt]))[:, 0]
+
+    def settle(self, x_net: np.ndarray, u: np.ndarray) -> np.ndarray:
+        ue = self._u(u)
+        x = np.zeros(self.n_states)
+        x[: self.n_net] = np.asarray(x_net, dtype=float)[: self.n_net]
+        ue[self._jx] = self._sys.junction_amps(x[:, None])[:, 0]
+        return self._ss.settle(x_net, ue)
+
+
 class NonlinearCircuit:
     """A :class:`Circuit` whose elements include diode junction sources (see module docstring).
 
     ``junctions`` name the junction current sources; ``consts`` are constant source currents
-    (A) of the other current sources.
+    (A) of the other current sources. Anything else is the underlying circuit's
+    (``n_net``, ``states``, ``input_vector``, ``time_constants``...); :meth:`model` returns a
+    :class:`NonlinearStateSpace`.
     """
 
     def __init__(
@@ -85,6 +143,32 @@ class NonlinearCircuit:
         self.circuit = Circuit(elements, ground)
         self.junctions = tuple(junctions)
         self.consts = dict(consts or {})
+        self._models: dict[tuple, NonlinearStateSpace] = {}
+
+    def __getattr__(self, name: str):
+        return getattr(self.__dict__["circuit"], name)
+
+    def model(
+        self, closed: Iterable[str], outputs: Sequence[str | Probe] = ()
+    ) -> NonlinearStateSpace:
+        """The nonlinear model of configuration ``closed`` with outputs ``outputs`` (filter
+        poles allowed: they are states of the integration)."""
+        probes = tuple(Probe.parse(o) for o in outputs)
+        key = (frozenset(closed), probes)
+        m = self._models.get(key)
+        if m is None:
+            c = self.circuit
+            jp = [Probe("v", j.a, j.b) for j in self.junctions]
+            ss = c.model(key[0], jp + list(probes))
+            nj = len(self.junctions)
+            if np.any(np.abs(ss.D[:nj]) > 0):
+                raise ValueError("a junction voltage depends on junction currents")
+            jx = np.array([c.inputs.index(j.source) for j in self.junctions], dtype=int)
+            m = NonlinearStateSpace(
+                ss, nj, jx, c.input_vector(self.consts), [j.diode for j in self.junctions]
+            )
+            self._models[key] = m
+        return m
 
     def _system(
         self, closed: Iterable[str], outputs: Sequence[str | Probe], inputs: Mapping[str, float]

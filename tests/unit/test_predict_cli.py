@@ -85,3 +85,35 @@ def test_sequence_predict_loads(tmp_path):
     bad = SEQUENCE + '\n[predict]\nloads = ["ten"]\n'
     with pytest.raises(FileFormatError, match=r"predict\.loads\[0\]"):
         load_sequence(write(tmp_path, "bad2.toml", bad), sim_bench)
+
+
+def test_report_section_shows_predicted_beside_measured(tmp_path):
+    import pandas as pd
+
+    from rig.report.predicted import section_predicted
+
+    assert "names no [predict] loads" in section_predicted(tmp_path, {})
+    rows = [
+        {
+            "meter": "Candidate A",
+            "serial": "S",
+            "mode": "AC V",
+            "volts": 1000.0,
+            "delay_s": 0.0,
+            "load": "10R",
+            "metric": m,
+            "value": v,
+            "low": 0.9 * v,
+            "high": 1.1 * v,
+            "measured": meas,
+        }
+        for m, v, meas in (
+            ("peak_a", 21.5, 21.4),
+            ("charge_c", 9.1e-5, float("nan")),
+            ("energy_j", 9e-5, 9e-5),
+        )
+    ]
+    pd.DataFrame(rows).to_csv(tmp_path / "predicted.csv", index=False)
+    html = section_predicted(tmp_path, {})
+    assert "Candidate A" in html and "21.5 A" in html and "21.4 A" in html
+    assert "91 µC" in html and "–" in html  # no measured charge into that load

@@ -33,6 +33,7 @@ EXPECTED_SECTIONS = [
     "iec-charge",
     "bounce",
     "selfdischarge",
+    "predicted",
     "flagged",
     "groups",
 ]
