@@ -251,7 +251,8 @@ def fit_source(sets: list[DataSet], v0: float, max_order: int = MAX_ORDER) -> Fo
     nd = len(sets)
     for order in range(1, max_order + 1):
         starts = _starts(v0, sets, order)
-        cands = [np.concatenate([c, np.full(nd, 0.5)]) for c in starts[:1]]
+        # a fresh start while the grown fits are few; then growing the previous fit suffices
+        cands = [np.concatenate([c, np.full(nd, 0.5)]) for c in starts[: int(order <= 2)]]
         if order - 1 in fits:  # grow the previous fit by one branch (fast end, then slow)
             prev = fits[order - 1].x
             th, sh = prev[:-nd], prev[-nd:]
