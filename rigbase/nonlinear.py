@@ -20,9 +20,11 @@ across the junction) and a nonlinear current source ``i(v_j)`` across the juncti
 part is reduced to state space ``x' = A x + Bn i(Cj x) + b`` (states: node voltages of
 capacitive nodes, then inductor currents; algebraic nodes eliminated by a Schur complement)
 and integrated with scipy's Radau (implicit Runge-Kutta of order 5, L-stable) with the exact
-Jacobian ``A + Bn diag(di/dv) Cj``. Radau was chosen over BDF and LSODA because it took fewer
-steps on these very stiff networks (picosecond junction poles beside millisecond tails) at
-the same tolerance (``tests/perf/bench_nonlinear.py`` prints the three).
+Jacobian ``A + Bn diag(di/dv) Cj``. Radau was chosen over BDF and LSODA by measurement on an
+identified demo source into the three demo loads (picosecond junction poles beside
+millisecond tails): BDF stopped on the logic-input clamp ("step size less than spacing
+between numbers") and LSODA on the TVS; where they finished, LSODA was 2-3x faster, BDF no
+faster. Radau took 0.1-0.8 s per 50 ms discharge and agrees with ngspice to 0.1 %.
 """
 
 from __future__ import annotations
