@@ -361,6 +361,69 @@ def cmd_measure(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_predict(args: argparse.Namespace) -> int:
+    from rig.analysis.predict import predict
+    from rig.analysis.predictrun import predict_run, resolve_load
+    from rig.analysis.sourcenet import FosterSource
+    from rig.report.figures.predicted import fig_prediction, measured_medians
+    from rig.report.figures.style import render
+    from rigbase.units import eng
+
+    if (args.run is None) == (args.source is None):
+        raise FileFormatError("rig predict", "run", "give a run folder or --source, not both")
+    import numpy as np
+
+    rng = np.random.default_rng(args.seed)
+    kw = {
+        "series_ohms": args.wiring_ohms,
+        "series_henry": args.wiring_henry,
+        "samples": args.samples,
+    }
+    if args.source:
+        src = FosterSource.load(args.source)
+        preds = [
+            predict(src, resolve_load(s), rng, args.window or 0.05, args.volts, **kw)
+            for s in args.load
+        ]
+        detail = [({"source": args.source}, src, preds)]
+    else:
+        fit = args.fit.split(",") if args.fit else None
+        _, detail = predict_run(args.run, args.load, rng, fit, args.window, **kw)
+        if not detail:
+            _out("no group of this run went into two or more loads: nothing to identify")
+            return EXIT_NO
+    out = Path(args.out or (args.run or "."))
+    for n, (keys, src, preds) in enumerate(detail):
+        _out(
+            " ".join(f"{k}={v}" for k, v in keys.items()) + f": {src.order} branches, "
+            f"dominant {eng(src.dominant()[0], 'F')}, tau {eng(src.dominant()[1], 's')}"
+        )
+        for p in preds:
+            _out(
+                f"  {p.load}: "
+                + ", ".join(
+                    f"{m} {eng(p.value[m], u)} [{eng(p.low[m], u)}, {eng(p.high[m], u)}]"
+                    for m, u in (("peak_a", "A"), ("charge_c", "C"), ("energy_j", "J"))
+                )
+            )
+        if args.save_source:
+            src.save(Path(args.save_source).with_suffix(f".{n}.json") if n else args.save_source)
+        measured = measured_medians(args.run, keys, [p.load for p in preds]) if args.run else {}
+        fig = fig_prediction(preds, measured, " ".join(str(v) for v in keys.values()))
+        _out(f"figure: {render(fig, f'predicted-{n}', out / 'figures').png_path}")
+    return EXIT_OK
+
+
+def _si(text: str) -> float:
+    """A command-line number with an optional SI prefix (``200n``, ``1k``)."""
+    from rigbase.tomlcheck import parse_si
+
+    try:
+        return parse_si(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
 def cmd_report(args: argparse.Namespace) -> int:
     from rig.analysis.analyze import analysis_mismatch, analyze_run, recorded_analysis_options
     from rig.report.page import write_report
@@ -649,6 +712,31 @@ def build_parser() -> argparse.ArgumentParser:
     )
     sp.add_argument("--dt", type=float, metavar="SECONDS", help="sample interval of a .npy file")
     sp.add_argument("--json", action="store_true", help="print JSON")
+
+    sp = add(
+        "predict",
+        cmd_predict,
+        "identify each group's source from its events into two "
+        "or more loads and predict its discharge into other loads",
+    )
+    sp.add_argument("run", nargs="?", help="run folder (or give --source)")
+    sp.add_argument(
+        "--load",
+        action="append",
+        required=True,
+        metavar="LOAD",
+        help="load: a bench load name, a load file (.toml) or a resistance; repeat",
+    )
+    sp.add_argument("--source", help="an identified source saved with --save-source")
+    sp.add_argument("--save-source", metavar="FILE", help="save the identified source (JSON)")
+    sp.add_argument("--fit", metavar="A,B", help="the loads to identify from (default: all)")
+    sp.add_argument("--volts", type=_si, help="charge voltage with --source (default: its own)")
+    sp.add_argument("--window", type=_si, metavar="S", help="time window, s (default: record)")
+    sp.add_argument("--wiring-ohms", type=_si, default=0.0, help="series wiring, ohms")
+    sp.add_argument("--wiring-henry", type=_si, default=0.0, help="series wiring, H")
+    sp.add_argument("--samples", type=int, default=8, help="parameter draws for the intervals")
+    sp.add_argument("--seed", type=int, default=1, help="seed of the parameter draws")
+    sp.add_argument("--out", help="folder for figures/ (default: the run folder)")
 
     sp = add(
         "report",

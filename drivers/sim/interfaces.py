@@ -31,6 +31,7 @@ class LoadSpec:
     ohms: float
     henry: float = 0.0
     channel: int | None = None  # relay that selects this load, None if always in circuit
+    model: str | None = None  # load file (rigbase.loadfile) after R and L: a nonlinear load
 
 
 @dataclass(frozen=True)

@@ -48,7 +48,9 @@ from drivers.clock import Clock
 from drivers.sim.circuit import Circuit, Probe, StateSpace
 from drivers.sim.interfaces import WorldConfig
 from drivers.sim.netlist import Element, MeterNetlist, load_netlist
+from drivers.sim.nonlinear import NonlinearCircuit, load_elements
 from rigbase.errors import LimitError
+from rigbase.loadfile import read_load
 
 __all__ = ["BenchWorld"]
 
@@ -139,6 +141,8 @@ class BenchWorld:
             Element("bench:R_bleed", "R", "bench:bl", com, w.bleed_ohms),
         ]
         ret = "bench:sense" if w.sense.kind == "shunt" else com
+        juncs: list = []
+        consts: dict[str, float] = {}
         if w.sense.kind == "shunt":
             el.append(Element("bench:R_shunt", "R", "bench:sense", com, w.sense.ohms))
         for i, ld in enumerate(w.loads):
@@ -146,16 +150,22 @@ class BenchWorld:
             if ld.channel is not None:
                 top = f"bench:load{i}"
                 el.append(Element(f"K{ld.channel}:load{i}", "S", "bench:dis", top, r_k))
+            end = f"bench:load{i}M" if ld.model else ret  # a load file sits after R and L
             if ld.henry > 0:
                 el.append(Element(f"bench:R_load{i}", "R", top, f"bench:load{i}L", ld.ohms))
-                el.append(Element(f"bench:L_load{i}", "L", f"bench:load{i}L", ret, ld.henry))
+                el.append(Element(f"bench:L_load{i}", "L", f"bench:load{i}L", end, ld.henry))
             else:
-                el.append(Element(f"bench:R_load{i}", "R", top, ret, ld.ohms))
+                el.append(Element(f"bench:R_load{i}", "R", top, end, ld.ohms))
+            if ld.model:
+                lel, lj, lc = load_elements(read_load(ld.model), end, ret, f"bench:load{i}:")
+                el, juncs, consts = el + lel, juncs + lj, {**consts, **lc}
         if w.divider_ratio is not None:
             el.append(Element("bench:R_divider", "R", vin, com, w.divider_ohms))
         clash = {e.name for e in el} & {e.name for e in net.elements}
         if clash:
             raise ValueError(f"{net.path}: element names clash with the bench: {sorted(clash)}")
+        if juncs:  # a nonlinear load: segments integrated (drivers.sim.nonlinear)
+            return NonlinearCircuit(tuple(net.elements) + tuple(el), juncs, consts, com)
         return Circuit.from_netlist(net, el)
 
     def _probes(self, bandwidth_hz: Sequence[float | None]) -> tuple[Probe, ...]:

@@ -149,3 +149,40 @@ __all__ = [
     "with_capture",
     "write_comparison",
 ]
+
+# Source identification and prediction into any load (identify, sourcenet, predict,
+# predictrun), kept in one block of their own.
+from rig.analysis.identify import DataSet, collect, fit_source, identify, path_of_load  # noqa: E402
+from rig.analysis.predict import METRICS, Prediction, predict, simulate_into  # noqa: E402
+from rig.analysis.predictrun import (  # noqa: E402
+    PREDICT_COLUMNS,
+    PREDICT_GROUP_KEYS,
+    identifiable_groups,
+    identify_groups,
+    predict_run,
+    record_after_trigger,
+    resolve_load,
+)
+from rig.analysis.sourcenet import FosterSource, linear_current, source_parts  # noqa: E402
+
+__all__ += [
+    "DataSet",
+    "FosterSource",
+    "METRICS",
+    "PREDICT_COLUMNS",
+    "PREDICT_GROUP_KEYS",
+    "Prediction",
+    "collect",
+    "fit_source",
+    "identifiable_groups",
+    "identify",
+    "identify_groups",
+    "linear_current",
+    "path_of_load",
+    "predict",
+    "predict_run",
+    "record_after_trigger",
+    "resolve_load",
+    "simulate_into",
+    "source_parts",
+]

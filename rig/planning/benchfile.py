@@ -22,6 +22,7 @@ from typing import Any
 
 import drivers
 from rig.planning.calibration import Calibration, read_calibration
+from rigbase.loadfile import read_load
 from rigbase.tomlcheck import (
     REQUIRED,
     Context,
@@ -98,6 +99,7 @@ class Load:
     ohms: float
     henry: float = 0.0
     channel: int | None = None  # relay that selects this load, None if always in circuit
+    file: Path | None = None  # load file (diodes...) after ohms and henry, resolved
 
 
 @dataclass(frozen=True)
@@ -282,7 +284,9 @@ def _read_channels(top: Table, switch_profile: Path) -> Channels:
     return Channels(**values)
 
 
-def _read_loads(top: Table, channels: Channels, switch_profile: Path) -> tuple[Load, ...]:
+def _read_loads(
+    top: Table, channels: Channels, switch_profile: Path, base_dir: Path
+) -> tuple[Load, ...]:
     span = _profile_channel_range(switch_profile)
     low, high = span if span else (1, None)
     used = {
@@ -291,7 +295,8 @@ def _read_loads(top: Table, channels: Channels, switch_profile: Path) -> tuple[L
         channels.bleed: "channels.bleed",
     }
     loads: list[Load] = []
-    for i, t in enumerate(top.tables("loads", ("name", "ohms", "henry", "channel"), required=True)):
+    keys = ("name", "ohms", "henry", "channel", "file")
+    for i, t in enumerate(top.tables("loads", keys, required=True)):
         name = t.string("name")
         if not name.strip():
             raise t.error("name", "load name is empty")
@@ -307,7 +312,11 @@ def _read_loads(top: Table, channels: Channels, switch_profile: Path) -> tuple[L
                     f"channel {channel} is already used by {used[channel]}; channels must differ",
                 )
             used[channel] = f"loads[{i}].channel"
-        loads.append(Load(name, ohms, henry, channel))
+        file = None
+        if t.has("file"):
+            file = base_dir / t.string("file")
+            read_load(file)  # a load file's own problems name that file
+        loads.append(Load(name, ohms, henry, channel, file))
     return tuple(loads)
 
 
@@ -385,7 +394,7 @@ def read_bench_file(path: str | Path) -> Bench:
         "channels": channels,
         "charge_ohms": parts.number("charge_ohms", positive=True),
         "bleed_ohms": parts.number("bleed_ohms", positive=True),
-        "loads": _read_loads(top, channels, switch_profile),
+        "loads": _read_loads(top, channels, switch_profile, base_dir),
     }
     partial["sense"], partial["divider_ratio"], partial["divider_ohms"] = _read_sense(top)
     calibration = read_calibration(top)

@@ -20,6 +20,7 @@ from typing import Any
 from rig.planning.benchfile import SIM_METERS_DIR, Bench, _optional_bandwidth, netlist_modes
 from rig.store.schema import DEFAULT_CAPTURE, LIMIT_METRICS
 from rigbase.errors import FileFormatError
+from rigbase.loadfile import load_from_spec
 from rigbase.tomlcheck import (
     Table,
     _nearest,
@@ -136,6 +137,9 @@ class Sequence:
     scope_captures: dict[str, ScopeSettings] | None = None  # base + capture overrides
     # capture -> mode -> base + capture + mode overrides (only modes with overrides)
     scope_grid: dict[str, dict[str, ScopeSettings]] | None = None
+    # [predict] loads: loads the report predicts each identified source into (bench load
+    # names, load files relative to the sequence file, or resistances)
+    predict_loads: tuple[str, ...] = ()
 
     def scope_for(self, mode: str, capture: str | None = None) -> ScopeSettings:
         """Scope settings for events in ``mode`` recorded by ``capture`` (None: the first
@@ -156,7 +160,7 @@ class Sequence:
         return tuple(dict.fromkeys(m for meter in self.meters for m in meter.modes))
 
 
-_SEQ_TOP = ("sequence", "meters", "charge", "discharge", "bleed", "scope", "limits")
+_SEQ_TOP = ("sequence", "meters", "charge", "discharge", "bleed", "scope", "limits", "predict")
 _SCOPE_KEYS = tuple(f.name for f in fields(ScopeSettings))
 
 
@@ -342,6 +346,7 @@ def load_sequence(path: str | Path, bench: Bench) -> Sequence:
             "limits", ("metric", "max", "statistic", "modes", "volts", "loads", "captures")
         )
     )
+    predict_loads = _read_predict(top, bench, base_dir)
     fields_ = {
         "path": path,
         "name": name,
@@ -362,5 +367,23 @@ def load_sequence(path: str | Path, bench: Bench) -> Sequence:
         "captures": captures,
         "scope_captures": scope_captures,
         "scope_grid": scope_grid,
+        "predict_loads": predict_loads,
     }
     return Sequence(**fields_, raw=jsonable(fields_))
+
+
+def _read_predict(top: Table, bench: Bench, base_dir: Path) -> tuple[str, ...]:
+    """``[predict] loads``: each a bench load, a readable load file or a resistance."""
+    t = top.table("predict", ("loads",))
+    specs = tuple(t.strings("loads", ()))
+    names = {spec.name for spec in bench.loads}
+    for k, spec in enumerate(specs):
+        if spec in names:
+            continue
+        try:
+            load_from_spec(spec, base_dir)
+        except FileFormatError:
+            raise
+        except ValueError as exc:
+            raise t.error(("loads", k), str(exc)) from None
+    return specs

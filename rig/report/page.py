@@ -62,6 +62,7 @@ from rig.report.plots import (
     _section_trends,
     _section_waveforms,
 )
+from rig.report.predicted import section_predicted
 from rig.report.tables import _section_flagged, _section_groups, _section_tested
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
@@ -86,6 +87,7 @@ SECTIONS = (
     ("iec-charge", "Charge against the IEC 61010-1 45 µC figure"),
     ("bounce", "Contact bounce"),
     ("selfdischarge", "Self-discharge"),
+    ("predicted", "Predicted discharge into other loads"),
     ("flagged", "Flagged events"),
     ("groups", "Group table"),
     ("baseline", "Comparison with the baseline run"),
@@ -213,6 +215,7 @@ def write_report(
         body["peaks"] = body["bounce"] = why
         body["trends"] = _trend_charge_only(m, g_trend, loads, modes, colours, rng, out)
     body["selfdischarge"] = _section_selfdischarge(run, mq, colours, out, charge_cap)
+    body["predicted"] = section_predicted(run, man)
     body["flagged"] = _section_flagged(run, m, colours)
     body["groups"] = _section_groups(g, m)
     if baseline_dir is not None:

@@ -111,7 +111,10 @@ def _resolve_simulation(bench: Bench) -> Bench:
         channels=(bench.channels.charge, bench.channels.discharge, bench.channels.bleed),
         charge_ohms=bench.charge_ohms,
         bleed_ohms=bench.bleed_ohms,
-        loads=tuple(LoadSpec(ld.name, ld.ohms, ld.henry, ld.channel) for ld in bench.loads),
+        loads=tuple(
+            LoadSpec(ld.name, ld.ohms, ld.henry, ld.channel, str(ld.file) if ld.file else None)
+            for ld in bench.loads
+        ),
         sense=SenseSpec(
             bench.sense.kind, bench.sense.ohms, bench.sense.amps_per_volt, bench.sense.bandwidth_hz
         ),

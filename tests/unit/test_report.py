@@ -34,6 +34,7 @@ EXPECTED_SECTIONS = [
     "iec-charge",
     "bounce",
     "selfdischarge",
+    "predicted",
     "flagged",
     "groups",
 ]

@@ -1,0 +1,366 @@
+"""Identify a meter's source network from its discharges into two or more known loads.
+
+Input: the events of one meter, mode, charge voltage and delay, captured into at least two
+loads whose resistance and wiring inductance the bench file gives (``manifest["bench"]``).
+Each (load, scope capture) becomes one data set: the events' current waveforms averaged into
+time bins (linear around the edge, logarithmic after it), the median over events per bin
+(robust to contact bounce, which moves single events far off), and per bin the standard
+error of that median from the events' spread (1.4826 MAD / sqrt(n), Hampel's MAD estimate of
+sigma, any robust statistics text), with a floor of 0.3 % of the value for what the model
+cannot describe (the meter is a ladder, the model a sum of branches).
+
+Model: :class:`rig.analysis.sourcenet.FosterSource` with every branch charged to the
+events' measured input voltage (``charged_volts``), into the load's resistance plus the
+sense resistance and relay contacts, through the load's wiring inductance, seen through the
+capture's bandwidth pole; time zero of the model is where its own current crosses the
+capture's trigger level, as the scope's is. The branch count (1 to 4) is the one with the
+smallest Bayesian information criterion (Schwarz 1978). The fit is scipy's
+``least_squares`` on the logarithms; their covariance is ``(J^T J)^-1`` scaled by the
+reduced chi-square when it exceeds one (the events' spread and the misfit both widen it).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy.optimize import least_squares
+
+from rig.analysis.runs import group_waveforms, load_run
+from rig.analysis.sourcenet import FosterSource, linear_current
+from rig.store.runfolder import read_manifest
+from rigbase.errors import RunFolderError
+
+__all__ = ["DataSet", "collect", "fit_source", "identify", "path_of_load"]
+
+REL_FLOOR = 3e-3
+MAX_ORDER = 4
+SLOW_DT = 1e-7  # a capture sampled this slowly or slower resolves only the tail
+SLOW_START_S = 30e-6  # its bins start here: after any contact bounce (the bench's are < 12 us)
+
+
+@dataclass
+class DataSet:
+    """One load x capture: bin times ``t`` (s from trigger), median current ``y`` (A), its
+    standard error ``sigma`` (A); the path's ``ohms`` and ``henry``; the capture's bandwidth
+    pole ``pole_hz`` (None = full) and trigger level (A); per-event ``peaks`` and ``charges``."""
+
+    load: str
+    capture: str
+    t: np.ndarray
+    y: np.ndarray
+    sigma: np.ndarray
+    ohms: float
+    henry: float
+    pole_hz: float | None
+    trigger_amps: float
+    peaks: np.ndarray
+    charges: np.ndarray
+    record_after_s: float
+    dt: float
+
+
+def path_of_load(
+    manifest: Mapping[str, Any], load: str, journal_ohms: float
+) -> tuple[float, float]:
+    """(ohms, henry) of the discharge path through ``load``: the load's resistance and wiring
+    inductance, the sense shunt, and the closed relay contacts (simulated bench: the
+    ``contact_ohms`` of its bounce table; real bench: not known, taken as 0)."""
+    bench = manifest.get("bench") or {}
+    spec = next((x for x in bench.get("loads") or [] if x.get("name") == load), None)
+    ohms = float(spec["ohms"]) if spec else float(journal_ohms)
+    henry = float(spec.get("henry") or 0.0) if spec else 0.0
+    sense = bench.get("sense") or {}
+    if sense.get("kind") == "shunt":
+        ohms += float(sense.get("ohms") or 0.0)
+    sim = (bench.get("simulation") or {}).get("world") or {}
+    contact = float((sim.get("bounce") or {}).get("contact_ohms") or 0.0)
+    n_contacts = 2 if spec and spec.get("channel") is not None else 1
+    return ohms + n_contacts * contact, henry
+
+
+def _capture_settings(manifest: Mapping[str, Any], capture: str) -> dict[str, Any]:
+    seq = manifest.get("sequence") or {}
+    caps = seq.get("scope_captures") or {}
+    return dict(caps.get(capture) or seq.get("scope") or {})
+
+
+def _bins(t: np.ndarray, dt: float) -> np.ndarray:
+    """Bin edges (s): one sample wide for 40 samples around the edge, then logarithmic."""
+    t_end = float(t[-1])
+    lin = np.arange(-5, 40) * dt
+    start = 40 * dt
+    if dt >= SLOW_DT:  # a slow capture: its first microseconds hold the filtered edge and
+        lin, start = np.array([]), SLOW_START_S  # the bounce, which the fast one resolves
+    logb = np.geomspace(start, t_end, 110)
+    return np.unique(np.concatenate([lin, logb]))
+
+
+def _before_break(t: np.ndarray, i: np.ndarray, noise: float) -> np.ndarray:
+    """Mask of each event's samples before its first contact break (a bounce): the first
+    sample after the edge where the current falls below a fifth of the events' upper
+    quartile there while that quartile stands well above the noise. A bounced event is
+    delayed after its break, so nothing after it describes the source's own decay."""
+    ref = np.percentile(i, 75, axis=0)
+    low = (np.abs(i) < 0.2 * np.abs(ref)) & (np.abs(ref) > 10 * noise + 1e-9) & (t > 10e-9)
+    first = np.where(low.any(axis=1), low.argmax(axis=1), t.size)
+    return np.arange(t.size)[None, :] < first[:, None]
+
+
+def _dataset(
+    run: Path,
+    manifest: Mapping[str, Any],
+    rows: pd.DataFrame,
+    load: str,
+    capture: str,
+    keys: Mapping[str, Any],
+) -> DataSet | None:
+    t, i, sel = group_waveforms(run, load=load, capture=capture, **keys)
+    if not len(sel):
+        return None
+    dt = float(t[1] - t[0])
+    pre = t < -5 * dt
+    base = np.median(i[:, pre], axis=1) if pre.any() else np.zeros(len(i))
+    i = i - base[:, None]
+    noise = float(np.median(np.std(i[:, pre], axis=1))) if pre.any() else 0.0
+    valid = _before_break(t, i, noise) if dt < SLOW_DT else np.ones(i.shape, dtype=bool)
+    edges = _bins(t, dt)
+    k = np.searchsorted(t, edges)
+    k = np.unique(np.clip(k, 0, t.size))
+    counts = np.diff(k)
+    ok = counts > 0
+    k0, k1, n_b = k[:-1][ok], k[1:][ok], counts[ok]
+    cs = np.concatenate([np.zeros((len(i), 1)), np.cumsum(np.where(valid, i, 0.0), axis=1)], 1)
+    cv = np.concatenate([np.zeros((len(i), 1)), np.cumsum(valid, axis=1)], axis=1)
+    ct = np.concatenate([[0.0], np.cumsum(t)])
+    full = (cv[:, k1] - cv[:, k0]) == n_b  # the event is valid over the whole bin
+    ev = np.where(full, (cs[:, k1] - cs[:, k0]) / n_b, np.nan)
+    tb = (ct[k1] - ct[k0]) / n_b
+    n_ok = full.sum(axis=0)
+    keep = n_ok >= 3
+    ev, tb, n_ok, n_b = ev[:, keep], tb[keep], n_ok[keep], n_b[keep]
+    med = np.nanmedian(ev, axis=0)
+    mad = 1.4826 * np.nanmedian(np.abs(ev - med), axis=0)
+    sig = np.sqrt(
+        (1.2533 * mad / np.sqrt(n_ok)) ** 2  # standard error of a median: 1.2533 s/sqrt(n)
+        + (REL_FLOOR * med) ** 2
+        + noise**2 / (n_b * n_ok)
+    )
+    sig = np.maximum(sig, 1e-12)
+    settings = _capture_settings(manifest, capture)
+    ohms, henry = path_of_load(manifest, load, float(sel["load_ohms"].iloc[0]))
+    bw = settings.get("bandwidth_hz")
+    post = t >= 0
+    return DataSet(
+        load,
+        capture,
+        tb,
+        med,
+        sig,
+        ohms,
+        henry,
+        float(bw) if bw else None,
+        float(settings.get("trigger_level_amps", 0.2)),
+        np.abs(i).max(axis=1),
+        np.trapezoid(i[:, post], t[post], axis=1),
+        float(t[-1]),
+        dt,
+    )
+
+
+def collect(run_dir: str | Path, loads: list[str], **keys: Any) -> tuple[list[DataSet], float]:
+    """Data sets of the events matching ``keys`` (meter, mode, volts, delay_s...) into each of
+    ``loads``, every capture; and their mean ``charged_volts`` (else the setpoint)."""
+    run = Path(run_dir)
+    manifest = read_manifest(run)
+    df = load_run(run)
+    sel = df["status"] == "captured"
+    for col, want in keys.items():
+        sel &= np.isclose(df[col], want) if isinstance(want, float) else df[col] == want
+    rows = df[sel & df["load"].isin(loads)]
+    if rows.empty:
+        raise RunFolderError(f"{run}: no captured events for {keys} into {loads}")
+    missing = set(loads) - set(rows["load"])
+    if missing:
+        raise RunFolderError(f"{run}: no captured events into {sorted(missing)} for {keys}")
+    volts = pd.to_numeric(rows.get("charged_volts"), errors="coerce")
+    v0 = float(volts.mean()) if volts.notna().any() else float(rows["volts"].mean())
+    sets = []
+    for load in loads:
+        for cap in sorted(rows.loc[rows["load"] == load, "capture"].unique()):
+            ds = _dataset(run, manifest, rows, load, str(cap), keys)
+            if ds is not None:
+                sets.append(ds)
+    return sets, v0
+
+
+def _model(theta: np.ndarray, v0: float, ds: DataSet, shift: float = 0.0) -> np.ndarray:
+    # the model's own trigger instant: where its (filtered) current first crosses the level,
+    # plus ``shift`` sample intervals (the scope triggers on a sample at or after it)
+    tf = np.concatenate([[0.0], np.geomspace(1e-12, 2e-5, 240)])
+    yf = linear_current(theta, v0, ds.ohms, ds.henry, tf, ds.pole_hz)
+    hit = np.nonzero(yf >= ds.trigger_amps)[0]
+    t_trig = 0.0
+    if hit.size and hit[0] > 0:
+        j = hit[0]
+        t_trig = tf[j - 1] + (ds.trigger_amps - yf[j - 1]) * (tf[j] - tf[j - 1]) / (
+            yf[j] - yf[j - 1]
+        )
+    t_trig += shift * ds.dt
+    return linear_current(theta, v0, ds.ohms, ds.henry, ds.t + t_trig, ds.pole_hz)
+
+
+def _residuals(full: np.ndarray, v0: float, sets: list[DataSet]) -> np.ndarray:
+    theta, shifts = full[: -len(sets)], full[-len(sets) :]
+    return np.concatenate(
+        [(_model(theta, v0, d, s) - d.y) / d.sigma for d, s in zip(sets, shifts, strict=True)]
+    )
+
+
+def _starts(v0: float, sets: list[DataSet], order: int) -> list[np.ndarray]:
+    fast = max(sets, key=lambda d: d.y.max() / (d.ohms + 1.0))
+    r_fast = max(v0 / max(float(np.max(fast.peaks)), 1e-9) - fast.ohms, 1.0)
+    slow = max(sets, key=lambda d: d.t[-1])
+    q = float(np.median(slow.charges))
+    tau_slow = max(q / max(float(np.interp(slow.t[-1] * 0.02, slow.t, slow.y)), 1e-12), 1e-6)
+    out = []
+    for tau_fast in (5e-9, 2e-8):
+        taus = np.geomspace(tau_fast, tau_slow, order) if order > 1 else np.array([tau_slow])
+        rs = (
+            np.geomspace(r_fast, 2.0 * v0 * tau_slow / q, order)
+            if order > 1
+            else np.array([v0 * tau_slow / q])
+        )
+        th = [math.log(20e-9)]
+        for r, tau in zip(rs, taus, strict=True):
+            th += [math.log(r), math.log(tau / (r + fast.ohms))]
+        out.append(np.array(th))
+    return out
+
+
+def fit_source(sets: list[DataSet], v0: float, max_order: int = MAX_ORDER) -> FosterSource:
+    """Fit the source (see the module docstring); the data choose the branch count."""
+    n = sum(d.t.size for d in sets)
+    best: tuple[float, Any, int] | None = None
+    fits = {}
+    nd = len(sets)
+    for order in range(1, max_order + 1):
+        starts = _starts(v0, sets, order)
+        # a fresh start while the grown fits are few; then growing the previous fit suffices
+        cands = [np.concatenate([c, np.full(nd, 0.5)]) for c in starts[: int(order <= 2)]]
+        if order - 1 in fits:  # grow the previous fit by one branch (fast end, then slow)
+            prev = fits[order - 1].x
+            th, sh = prev[:-nd], prev[-nd:]
+            cands.append(np.concatenate([th[:1], starts[0][1:3], th[1:], sh]))
+            cands.append(np.concatenate([th, starts[0][-2:] + [0.0, 0.7], sh]))
+        lo = np.full(1 + 2 * order + nd, -np.inf)
+        hi = np.full(1 + 2 * order + nd, np.inf)
+        lo[0], hi[0] = math.log(1e-11), math.log(1e-5)  # series inductance, H
+        lo[-nd:], hi[-nd:] = -0.5, 1.5  # trigger sample after the crossing, in intervals
+        sols = [
+            least_squares(
+                _residuals,
+                np.clip(c, lo + 1e-9, hi - 1e-9),
+                args=(v0, sets),
+                method="trf",
+                bounds=(lo, hi),
+                max_nfev=100,
+                ftol=1e-6,
+                xtol=1e-6,
+            )
+            for c in cands
+        ]
+        sol = min(sols, key=lambda s: s.cost)
+        fits[order] = sol
+        bic = 2 * sol.cost + sol.x.size * math.log(n)
+        if best is not None and bic >= best[0]:
+            break  # one more branch did not pay for itself: neither will two
+        best = (bic, sol, order)
+    assert best is not None
+    _, sol, order = best
+    dof = max(n - sol.x.size, 1)
+    chi2 = 2 * sol.cost / dof
+    J = sol.jac
+    cov = np.linalg.pinv(J.T @ J) * max(chi2, 1.0)
+    theta = sol.x[: -len(sets)]
+    src = FosterSource(v0, 1.0, (1.0,) * order, (1.0,) * order).with_theta(theta)
+    # covariance of the source parameters (trigger shifts marginalised), in sorted order
+    perm = _sorted_perm(theta)
+    cov = cov[np.ix_(perm, perm)]
+    spread, misfit = _spreads(src, sets)
+    info = {
+        "order": order,
+        "chi2_reduced": float(chi2),
+        "bins": n,
+        "loads": sorted({d.load for d in sets}),
+    }
+    return FosterSource(
+        src.volts,
+        src.henry,
+        src.ohms,
+        src.farads,
+        tuple(map(tuple, cov.tolist())),
+        spread,
+        misfit,
+        info,
+    )
+
+
+def _sorted_perm(theta: np.ndarray) -> list[int]:
+    r, c = np.exp(theta[1::2]), np.exp(theta[2::2])
+    k = np.argsort(r * c)
+    perm = [0]
+    for j in k:
+        perm += [1 + 2 * int(j), 2 + 2 * int(j)]
+    return perm
+
+
+def _spreads(src: FosterSource, sets: list[DataSet]) -> tuple[dict[str, float], dict[str, float]]:
+    """Relative event spread and fit misfit of peak (finest capture) and charge (longest)."""
+    th = src.theta
+    spread: dict[str, float] = {"peak": 0.0, "charge": 0.0}
+    misfit: dict[str, float] = {"peak": 0.0, "charge": 0.0}
+    for load in {d.load for d in sets}:
+        mine = [d for d in sets if d.load == load]
+        fine = min(mine, key=lambda d: np.min(np.diff(d.t)))
+        long = max(mine, key=lambda d: d.record_after_s)
+        spread["peak"] = max(spread["peak"], _rel_sd(fine.peaks))
+        spread["charge"] = max(spread["charge"], _rel_sd(long.charges))
+        tt = np.linspace(0, 2e-6, 20001)
+        pk = float(
+            np.abs(linear_current(th, src.volts, fine.ohms, fine.henry, tt, fine.pole_hz)).max()
+        )
+        misfit["peak"] = max(misfit["peak"], abs(pk / np.median(fine.peaks) - 1))
+        q = _model_charge(th, src.volts, long)
+        misfit["charge"] = max(misfit["charge"], abs(q / np.median(long.charges) - 1))
+    return spread, misfit
+
+
+def _model_charge(theta: np.ndarray, v0: float, ds: DataSet) -> float:
+    t = np.concatenate([[0.0], np.geomspace(1e-12, ds.record_after_s, 4000)])
+    return float(np.trapezoid(linear_current(theta, v0, ds.ohms, ds.henry, t), t))
+
+
+def _rel_sd(x: np.ndarray) -> float:
+    x = np.asarray(x, dtype=float)
+    if x.size < 2 or np.median(x) == 0:
+        return 0.0
+    return float(1.4826 * np.median(np.abs(x - np.median(x))) / abs(np.median(x)))
+
+
+def identify(run_dir: str | Path, loads: list[str], **keys: Any) -> FosterSource:
+    """Identify the source of one meter/mode/volts group from its events into ``loads``
+    (at least two); ``keys`` select the group (``meter``, ``mode``, ``volts``, ...)."""
+    if len(set(loads)) < 2:
+        raise ValueError("identification needs events into at least two different loads")
+    sets, v0 = collect(run_dir, list(loads), **keys)
+    src = fit_source(sets, v0)
+    info = {**src.info, "run": str(run_dir), **{k: v for k, v in keys.items()}}
+    return FosterSource(
+        src.volts, src.henry, src.ohms, src.farads, src.cov, src.spread, src.misfit, info
+    )
