@@ -27,6 +27,7 @@ from rigbase.errors import ProfileError
 __all__ = [
     "FORMAT_VERSION",
     "OPERATIONS",
+    "OPTIONAL_OPERATIONS",
     "PROFILE_DIR",
     "RANGES",
     "SCALING_FIELDS",
@@ -76,6 +77,7 @@ OPERATIONS: Mapping[str, Mapping[str, frozenset[str]]] = MappingProxyType(
             "set_sample_interval": frozenset({"seconds"}),
             "set_points": frozenset({"points"}),
             "set_trigger_offset": frozenset({"seconds"}),
+            "set_sampling": frozenset({"sampling"}),
             "set_trigger_source": frozenset({"ch"}),
             "set_trigger_level": frozenset({"volts"}),
             "set_trigger_slope": frozenset({"slope"}),
@@ -93,6 +95,12 @@ OPERATIONS: Mapping[str, Mapping[str, frozenset[str]]] = MappingProxyType(
             "get_function": frozenset(),
         },
     }
+)
+
+#: role -> operations a profile may leave out (the instrument's default then applies, and
+#: a request that needs the operation fails with a ProfileError naming it).
+OPTIONAL_OPERATIONS: Mapping[str, frozenset[str]] = MappingProxyType(
+    {"scope": frozenset({"set_sampling"})}
 )
 
 #: role -> names of the [low, high] ranges a role table must carry.
@@ -135,6 +143,7 @@ _SAMPLES: dict[str, object] = {
     "fmt": "INT,8",
     "order": "NORMal",
     "function": "VOLTage:DC",
+    "sampling": "MEAN",
 }
 
 _SUBTABLES = {"ranges", "scaling_fields", "functions"}
@@ -227,6 +236,11 @@ class Profile:
                 f"called with fields {sorted(fields)}, template needs {sorted(expected)}",
             )
         return template.format(**fields)
+
+    def has_operation(self, role: str, operation: str) -> bool:
+        """True if the profile defines ``operation`` for ``role`` (optional ones may be
+        missing)."""
+        return operation in self.templates.get(role, {})
 
     def ranges(self, role: str) -> dict[str, tuple[float, float]]:
         """The ``[role.ranges]`` table as ``{name: (low, high)}`` (units as named in the file)."""
@@ -355,6 +369,8 @@ class _Validator:
         for op, needed in ops.items():
             key = f"{role}.{op}"
             if op not in body:
+                if op in OPTIONAL_OPERATIONS.get(role, ()):
+                    continue
                 raise self.fail(key, "missing operation")
             template = body[op]
             if not isinstance(template, str) or not template.strip():

@@ -62,9 +62,10 @@ from typing import Any
 
 import numpy as np
 
-from rig.analysis.baseline import BASELINE_MAX, MAD_TO_SIGMA, baseline_noise
+from rig.analysis.baseline import BASELINE_MAX, MAD_TO_SIGMA, baseline_noise, baseline_uncertainty
 from rig.analysis.pulses import count_pulses, pulse_masks
 from rig.analysis.shape import BLOCK, envelope, fit_tail, interp, search
+from rig.analysis.wholecharge import MAX_TERMS, TAIL_SHARE_LIMIT, fit_tail_terms
 from rig.store.schema import METRIC_COLUMNS
 from rig.store.waveform import Waveform
 
@@ -137,7 +138,7 @@ def event_metrics(
         truncation_fraction=truncation_fraction,
         chunk_bytes=chunk_bytes,
     )
-    del out["t_onset_s"]
+    del out["t_onset_s"], out["tail_start"]
     return out
 
 
@@ -159,7 +160,8 @@ def current_after_onset(
     res = _metrics(data, dt=dt, t0=t0, gain=gain, offset=offset, **kwargs)
     m, n = data.shape
     after = np.atleast_1d(np.asarray(after_s, dtype=float))
-    pos = (res["t_onset_s"][:, None] + after[None, :] - t0) / dt
+    t0_r = np.broadcast_to(np.asarray(t0, dtype=float), (m,))[:, None]
+    pos = (res["t_onset_s"][:, None] + after[None, :] - t0_r) / dt
     inside = np.isfinite(pos) & (pos >= 0) & (pos <= n - 1)
     k = np.clip(np.floor(np.nan_to_num(pos)), 0, n - 2).astype(np.int64)
     frac = np.nan_to_num(pos) - k
@@ -203,8 +205,10 @@ def _metrics(
     if not dt > 0:
         raise ValueError(f"event_metrics: dt must be positive, got {dt!r}")
     integer = data.dtype.kind in "iu"
+    t0_r = np.broadcast_to(np.asarray(t0, dtype=np.float64), (m,))
+    t0_ref = float(np.max(t0_r))  # rows may differ by a sub-sample phase
     if n_baseline is None:
-        n_pre = int(np.ceil(-t0 / dt)) if t0 < 0 else 0
+        n_pre = int(np.ceil(-t0_ref / dt)) if t0_ref < 0 else 0
         n_baseline = min(n_pre, n) if n_pre > 0 else max(1, n // 10)
     n_base = max(1, n_baseline - n_baseline // 10)
     base_lo = max(0, n_base - BASELINE_MAX)
@@ -223,6 +227,8 @@ def _metrics(
         out[k] = np.zeros(m, dtype=bool)
     out["polarity"] = np.zeros(m, dtype=np.int8)
     out["pulses"] = np.zeros(m, dtype=np.int64)
+    out["tail_terms"] = np.zeros(m, dtype=np.int64)
+    out["tail_start"] = np.full(m, np.nan)
 
     work = np.float32 if (integer or data.dtype == np.float32) else np.float64
     rows_per_chunk = max(1, int(chunk_bytes // (n * np.dtype(work).itemsize)))
@@ -241,6 +247,7 @@ def _metrics(
             hi_r[a:b],
             out,
             slice(a, b),
+            trig_index=-t0_r[a:b] / dt,
         )
 
     # Scale code units to amperes and derive the rest; all per event, cheap.
@@ -251,16 +258,27 @@ def _metrics(
     out["noise_a"] = out["noise_a"] * g
     out["abs_peak_a"] = out["abs_peak_a"] * g
     out["peak_a"] = out["abs_peak_a"] * out["polarity"]
+    out["baseline_u_a"] = out["baseline_u_a"] * g
     for k in ("t_peak_s", "rise_s", "decay_s", "tau_s", "fwhm_s", "t_onset_s"):
         out[k] = out[k] * dt
-    out["t_peak_s"] = out["t_peak_s"] + t0
-    out["t_onset_s"] = out["t_onset_s"] + t0
-    out["charge_c"] = out["charge_c"] * gain_r * dt
+    out["t_peak_s"] = out["t_peak_s"] + t0_r
+    out["t_onset_s"] = out["t_onset_s"] + t0_r
+    # charges: code x samples -> C (gain carries the sign of the codes' scale); the polarity
+    # is already in them, so a discharge keeps its sign
+    for k in ("charge_c", "charge_record_c", "charge_tail_c"):
+        out[k] = out[k] * gain_r * dt
+    out["charge_u_c"] = out["charge_u_c"] * g * dt
+    for j in range(1, MAX_TERMS + 1):
+        out[f"term{j}_tau_s"] = out[f"term{j}_tau_s"] * dt
+        out[f"term{j}_charge_c"] = out[f"term{j}_charge_c"] * gain_r * dt
     out["energy_j"] = out["energy_j"] * g**2 * dt * ohms_r
     with np.errstate(divide="ignore", invalid="ignore"):
+        # C = Q / V of the input voltage the discharge started from (textbook Q = C V)
         c_equiv = np.abs(out["charge_c"]) / volts_r
         out["c_equiv_f"] = np.where(volts_r > 0, c_equiv, np.nan)
-        out["r_equiv_ohm"] = out["tau_s"] / out["c_equiv_f"]
+        # the slowest term's branch: C_1 = Q_1 / V, R_1 = tau_1 / C_1 (textbook RC)
+        r1 = out["term1_tau_s"] * volts_r / np.abs(out["term1_charge_c"])
+        out["r_equiv_ohm"] = np.where(volts_r > 0, r1, np.nan)
     # the peak of i = V/R exp(-t/RC) is V/R, so V = peak x R; then Q = C V, E = C V^2 / 2
     # (textbook RC relations)
     out["ind_hbm_volts"] = out["abs_peak_a"] * HBM_OHMS
@@ -283,12 +301,15 @@ def _chunk(
     code_hi: np.ndarray,
     out: dict[str, np.ndarray],
     sl: slice,
+    trig_index: np.ndarray,
 ) -> None:
-    """Metrics of one chunk of rows in code units (samples for times), written into ``out``."""
+    """Metrics of one chunk of rows in code units (samples for times), written into ``out``.
+    ``trig_index``: the trigger's (fractional) sample index per row."""
     r, n = raw.shape
     rows = np.arange(r)
     pre = raw[:, base_lo:base_hi]
     base, noise = baseline_noise(pre)
+    u_base, corr = baseline_uncertainty(pre, base, noise)
     vmax, vmin = raw.max(axis=1), raw.min(axis=1)
     if integer:
         out["flag_clipped"][sl] = (vmax >= code_hi) | (vmin <= code_lo)
@@ -311,11 +332,24 @@ def _chunk(
     ok = ~below
 
     out["baseline_a"][sl] = base
+    out["baseline_u_a"][sl] = u_base
     out["noise_a"][sl] = noise
-    # float32 sums in SIMD blocks: relative error well under 1e-3 over 1e5 samples
-    out["charge_c"][sl] = pol * np.einsum("ij->i", y)
+    # the record's charge from the end of the baseline window on, in float64: integer codes
+    # summed exactly, the baseline subtracted once (a float32 baseline times 10^5 samples
+    # would cost tens of nanocoulombs)
+    n_int = n - base_hi
+    if integer:
+        total = raw[:, base_hi:].sum(axis=1, dtype=np.int64).astype(np.float64)
+    else:
+        total = raw[:, base_hi:].sum(axis=1, dtype=np.float64)
+    q_rec = total - base * n_int
+    out["charge_record_c"][sl] = q_rec
+    out["charge_c"][sl] = q_rec
+    out["charge_tail_c"][sl] = 0.0
+    out["charge_u_c"][sl] = u_base * n_int
     out["energy_j"][sl] = np.einsum("ij,ij->i", y, y)
     out["flag_below_noise"][sl] = below
+    _whole_charge(raw, base, pol, noise, u_base, corr, p, trig_index, n_int, ok, out, sl)
     if not ok.any():
         return
     out["polarity"][sl] = np.where(ok, pol, 0).astype(np.int8)
@@ -341,10 +375,6 @@ def _chunk(
     tau = fit_tail(y, np.where(k_after[:, 0] >= 0, k_after[:, 0], n), end)
     out["tau_s"][sl] = np.where(ok, tau, nan)
 
-    tail = max(4, n // 200)
-    tail_mean = y[:, n - tail :].mean(axis=1, dtype=np.float64)
-    out["flag_truncated"][sl] = ok & (tail_mean > trunc_fraction * ip)
-
     # Thresholds: the upper one at least (noise_factor + 3) x noise and the lower one at
     # least 3 x noise, so there are noise_factor x noise of hysteresis (noise on a slow tail
     # is not a new pulse) and the baseline reads firmly as "under" (few state changes).
@@ -353,6 +383,61 @@ def _chunk(
     above, under = pulse_masks(raw, y, base, pol, thr_hi, thr_lo, integer)
     # an event whose peak clears the noise but not the upper threshold is one pulse
     out["pulses"][sl] = np.where(ok, np.maximum(count_pulses(above, under), 1), 0)
+
+
+def _whole_charge(
+    raw: np.ndarray,
+    base: np.ndarray,
+    pol: np.ndarray,
+    noise: np.ndarray,
+    u_base: np.ndarray,
+    corr: np.ndarray,
+    p: np.ndarray,
+    trig_index: np.ndarray,
+    n_int: int,
+    ok: np.ndarray,
+    out: dict[str, np.ndarray],
+    sl: slice,
+) -> None:
+    """The tail beyond the record (rig.analysis.wholecharge), per event of the chunk, in
+    code x samples: whole charge, its standard uncertainty, the fitted terms (charge from
+    the trigger on, slowest first) and the truncated flag (tail share above
+    TAIL_SHARE_LIMIT)."""
+    n = raw.shape[1]
+    idx = np.arange(sl.start, sl.stop)
+    for i in range(raw.shape[0]):
+        trig = float(np.clip(trig_index[i], 0.0, n - 1))
+        # the fit starts after the fast part: past the peak and 1 % of the post-trigger span
+        # (a tail far below the per-sample noise is still fitted: its bins average it out)
+        start = int(np.ceil(trig + 0.01 * (n - trig)))
+        if ok[i]:
+            start = max(start, int(p[i]) + 4)
+        if start > n - 16:
+            continue
+        fit, start = fit_tail_terms(
+            raw[i], float(base[i]), float(pol[i]), start, noise[i], corr[i], u_base[i], n_int
+        )
+        k = idx[i]
+        q_rec = out["charge_record_c"][k]
+        q_tail = pol[i] * fit.beyond  # beyond the record's end
+        q = q_rec + pol[i] * fit.tail  # + the tail, less the baseline offset the fit found
+        out["charge_tail_c"][k] = q_tail
+        out["charge_c"][k] = q
+        out["charge_u_c"][k] = fit.tail_u
+        out["tail_terms"][k] = fit.terms
+        out["tail_start"][k] = start
+        lag = (start - 0.5) - trig  # from the trigger to the fit's time origin, samples
+        for j in range(min(fit.terms, MAX_TERMS)):
+            tau = float(fit.taus[j])
+            out[f"term{j + 1}_tau_s"][k] = tau
+            # the term's charge from the trigger on (extrapolated back over the fit's lag;
+            # meaningless for a term much faster than that lag: NaN)
+            if lag / tau < 50.0:
+                q_j = pol[i] * fit.amps[j] * tau * np.exp(lag / tau)
+                out[f"term{j + 1}_charge_c"][k] = q_j
+        with np.errstate(divide="ignore", invalid="ignore"):
+            share = abs(q_tail) / abs(q) if q != 0 else np.inf
+        out["flag_truncated"][k] = bool(share > TAIL_SHARE_LIMIT or not np.isfinite(share))
 
 
 def quick_metrics(wf: Waveform, channel: str = "current") -> dict[str, Any]:

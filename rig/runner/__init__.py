@@ -20,7 +20,9 @@ from rig.runner.interlocks import (
 )
 from rig.runner.opener import (
     OpenBench,
+    check_meter_netlists,
     load_bench,
+    meter_time_constants,
     open_bench,
     serve_simulated_bench,
 )
@@ -35,7 +37,9 @@ __all__ = [
     "Runner",
     "SafeReport",
     "Terminated",
+    "check_meter_netlists",
     "load_bench",
+    "meter_time_constants",
     "open_bench",
     "serve_simulated_bench",
 ]
