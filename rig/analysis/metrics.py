@@ -14,18 +14,14 @@ This module holds the definitions below and puts the three together, chunk by ch
 Definitions (times in seconds, currents in amperes; ``y`` is the baseline-removed current
 turned positive by the event's polarity, ``Ip`` its peak):
 
-- baseline, noise: median and 1.4826 x MAD of the pre-trigger samples (robust against the
-  odd spike). For integer codes, where the MAD of rounded samples is too coarse below a code
-  or so of noise, the noise is the standard deviation of the samples within median +-
-  (4 robust sigma + 3 codes), robust sigma from the MAD (or, for 8-bit codes, the
-  interquartile range), and at least the quantisation noise 1/sqrt(12) code. The median of
-  whole codes is itself a whole (or half) code, up to half a code off the true level, and
-  the charge integral multiplies a baseline error by the record length (half a 1 mA code
-  over a 50 ms record is 25 uC); so where the mean of those same samples differs from the
-  median by more than twice its standard error, the baseline is that mean (the median is
-  kept otherwise: it is exact when the level sits on a code). Up to the last
-  ``BASELINE_MAX`` pre-trigger samples are used, so a long record with a long pre-trigger
-  gets a baseline to match.
+- baseline, noise: the mean (float64) and standard deviation of the pre-trigger samples
+  within median +- (4 robust sigma + 3 codes) (robust sigma from 1.4826 x MAD, or for 8-bit
+  codes the interquartile range; the noise at least the quantisation noise 1/sqrt(12) code).
+  Always the mean: no rule that switches estimators, which noise could trip. Its standard
+  uncertainty ``baseline_u_a`` comes from batch means of the same samples
+  (:func:`rig.analysis.baseline.baseline_uncertainty`). Up to the last ``BASELINE_MAX``
+  pre-trigger samples are used, so a long record with a long pre-trigger gets a baseline to
+  match (the charge integral multiplies a baseline error by the record length).
 - polarity: sign of the larger excursion from the baseline.
 - peak: largest ``y`` sample; ``peak_a`` carries the polarity, ``abs_peak_a`` does not.
 - rise time: 10 % to 90 % of ``Ip`` on the leading edge of the highest pulse (last crossings
@@ -39,13 +35,21 @@ turned positive by the event's polarity, ``Ip`` its peak):
   close to a least-squares fit of an exponential) of the samples after the peak between
   90 % of ``Ip`` and max(10 % of ``Ip``, 3 x noise); at most 256 evenly spaced samples.
 - fwhm: time between the 50 % crossings either side of the peak.
-- charge: integral of i dt over the record (signed); energy: load_ohms x integral of i^2 dt.
+- charge: ``charge_record_c`` is the integral of i dt from the end of the baseline window to
+  the record's end (signed, float64: codes summed exactly, the baseline subtracted once);
+  ``charge_c`` the whole discharge: that plus the tail beyond the record (``charge_tail_c``)
+  from a fit of the record's tail by a sum of exponentials, the fit also refining the
+  baseline within its uncertainty (:mod:`rig.analysis.wholecharge`); ``charge_u_c`` its
+  standard uncertainty. ``tail_terms`` and ``term<k>_tau_s`` / ``term<k>_charge_c``: the
+  fitted terms, slowest first, each with its charge from the trigger on.
+- energy: load_ohms x integral of i^2 dt over the record.
 - pulses: separate pulses above H = max(25 % of ``Ip``, (noise_factor + 3) x noise), with
   hysteresis: a pulse ends when the current falls below max(3 x noise, min(H / 2,
   H - noise_factor x noise)) (contact bounce); at least 1 for an event above noise.
-- c_equiv: abs(charge) / charge voltage; r_equiv: tau / c_equiv.
-- flags: clipped (a sample at the ADC's lowest or highest code), truncated (mean of the last
-  samples still above 5 % of ``Ip``), below noise (``Ip`` not above noise_factor x noise: the
+- c_equiv: abs(charge) / the input voltage the discharge started from (``charge_volts``);
+  r_equiv: the slowest term's branch resistance tau_1 x V / abs(charge_1).
+- flags: clipped (a sample at the ADC's lowest or highest code), truncated (the fitted tail
+  beyond the record holds more than ``TAIL_SHARE_LIMIT`` of the whole charge), below noise (``Ip`` not above noise_factor x noise: the
   peak and everything derived from it are NaN, never a peak).
 - indicators (not measurements of an HBM or IEC 61010 test): ``ind_hbm_volts`` = abs peak x
   1500 ohm (the HBM network's resistance; meaningful for low-ohm loads), ``ind_hbm_charge_c``
@@ -103,7 +107,6 @@ def event_metrics(
     load_ohms: float | np.ndarray = np.nan,
     noise_factor: float = 6.0,
     pulse_fraction: float = 0.25,
-    truncation_fraction: float = 0.05,
     chunk_bytes: int = 16 << 20,
 ) -> dict[str, np.ndarray]:
     """Metrics of every event (row) of ``data``; one 1-D array per name in METRIC_COLUMNS.
@@ -118,8 +121,6 @@ def event_metrics(
     charge_volts: charge voltage per event, V (for c_equiv); load_ohms: load, ohm (energy).
     noise_factor: a peak must exceed this multiple of the noise, or the event is flagged
         below noise. pulse_fraction: pulse-count threshold as a fraction of the peak.
-    truncation_fraction: the truncated flag is set when the record ends above this
-        fraction of the peak.
     chunk_bytes: working-memory budget of one chunk of float rows (bytes).
     """
     out = _metrics(
@@ -135,7 +136,6 @@ def event_metrics(
         load_ohms=load_ohms,
         noise_factor=noise_factor,
         pulse_fraction=pulse_fraction,
-        truncation_fraction=truncation_fraction,
         chunk_bytes=chunk_bytes,
     )
     del out["t_onset_s"], out["tail_start"]
@@ -190,7 +190,6 @@ def _metrics(
     load_ohms: float | np.ndarray = np.nan,
     noise_factor: float = 6.0,
     pulse_fraction: float = 0.25,
-    truncation_fraction: float = 0.05,
     chunk_bytes: int = 16 << 20,
 ) -> dict[str, np.ndarray]:
     """:func:`event_metrics` plus ``t_onset_s`` (10 % point of the leading edge, s)."""
@@ -242,7 +241,6 @@ def _metrics(
             n_base,
             noise_factor,
             pulse_fraction,
-            truncation_fraction,
             lo_r[a:b],
             hi_r[a:b],
             out,
@@ -296,7 +294,6 @@ def _chunk(
     base_hi: int,
     noise_factor: float,
     pulse_fraction: float,
-    trunc_fraction: float,
     code_lo: np.ndarray,
     code_hi: np.ndarray,
     out: dict[str, np.ndarray],
@@ -349,8 +346,8 @@ def _chunk(
     out["charge_u_c"][sl] = u_base * n_int
     out["energy_j"][sl] = np.einsum("ij,ij->i", y, y)
     out["flag_below_noise"][sl] = below
-    _whole_charge(raw, base, pol, noise, u_base, corr, p, trig_index, n_int, ok, out, sl)
     if not ok.any():
+        _whole_charge(raw, base, pol, noise, u_base, corr, p, trig_index, n_int, ok, out, sl)
         return
     out["polarity"][sl] = np.where(ok, pol, 0).astype(np.int8)
     out["abs_peak_a"][sl] = np.where(ok, ip, np.nan)
@@ -373,6 +370,8 @@ def _chunk(
     out["decay_s"][sl] = np.where(ok, t_after[:, 2] - p, nan)
     end = np.where(k_after[:, 3] >= 0, k_after[:, 3], n)
     tau = fit_tail(y, np.where(k_after[:, 0] >= 0, k_after[:, 0], n), end)
+    # the tail fit starts where the pulse has fallen to its floor (10 % of the peak)
+    _whole_charge(raw, base, pol, noise, u_base, corr, end, trig_index, n_int, ok, out, sl)
     out["tau_s"][sl] = np.where(ok, tau, nan)
 
     # Thresholds: the upper one at least (noise_factor + 3) x noise and the lower one at
@@ -411,13 +410,22 @@ def _whole_charge(
         # (a tail far below the per-sample noise is still fitted: its bins average it out)
         start = int(np.ceil(trig + 0.01 * (n - trig)))
         if ok[i]:
-            start = max(start, int(p[i]) + 4)
+            start = max(start, int(p[i]) + 4)  # p: where the pulse has fallen to its floor
         if start > n - 16:
             continue
         fit, start = fit_tail_terms(
             raw[i], float(base[i]), float(pol[i]), start, noise[i], corr[i], u_base[i], n_int
         )
         k = idx[i]
+        if fit.unmeasured:
+            # the record is far too short to measure the tail's time constant, or the sum of
+            # exponentials does not describe it: the whole charge is unknown; charge_c keeps
+            # the record's integral, flagged truncated
+            out["charge_tail_c"][k] = np.nan
+            out["charge_u_c"][k] = np.nan
+            out["tail_terms"][k] = fit.terms
+            out["flag_truncated"][k] = True
+            continue
         q_rec = out["charge_record_c"][k]
         q_tail = pol[i] * fit.beyond  # beyond the record's end
         q = q_rec + pol[i] * fit.tail  # + the tail, less the baseline offset the fit found

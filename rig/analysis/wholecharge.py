@@ -48,6 +48,7 @@ TAIL_SHARE_LIMIT = 0.01
 #: the slowest time constant the fit may find, in fitted spans: beyond it the record cannot
 #: tell a tail from a baseline shift; a term at this bound makes the tail unknown (flagged)
 TAU_MAX_SPANS = 10.0
+BAD_FIT = 9.0  # reduced chi^2 above which the tail model is rejected (3 sigma per bin)
 _GRID = 24  # trial time constants per added term (log-spaced) before the polish
 
 
@@ -63,6 +64,7 @@ class TailFit:
     tail: float = 0.0
     tail_u: float = 0.0
     beyond: float = 0.0  # the charge beyond the record's end alone
+    unmeasured: bool = False  # the slowest term sits at TAU_MAX_SPANS: the tail is unknown
 
     @property
     def terms(self) -> int:
@@ -199,9 +201,10 @@ def _tail(
         var = np.inf
     tail_u = float(np.sqrt(var)) if np.isfinite(var) and var >= 0 else np.inf
     beyond = float(np.sum(amps * taus * decay))
-    if k and taus[0] > 0.99 * TAU_MAX_SPANS * float(b[-1]):
-        tail_u = max(tail_u, abs(beyond))  # at the bound: the tail is not measured
-    return TailFit(amps, taus, tail, tail_u, float(np.sum(amps * taus * decay)))
+    # unmeasured: the slowest term at its bound, or a fit the model does not describe
+    # (reduced chi^2 above BAD_FIT: ringing, a pulse not yet over)
+    unmeasured = bool(k and taus[0] > 0.99 * TAU_MAX_SPANS * float(b[-1])) or chi / dof > BAD_FIT
+    return TailFit(amps, taus, tail, tail_u, beyond, unmeasured)
 
 
 def fit_tail_terms(
