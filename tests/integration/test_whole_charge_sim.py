@@ -66,12 +66,12 @@ def _run(tmp_path: Path, seq: Path) -> Path:
 def test_bundled_charge_capture_holds_the_whole_charge(tmp_path: Path) -> None:
     """Both demo meters, every mode, the bundled qualification's captures (fewer events)."""
     text = QUALIFICATION.read_text()
-    text = text.replace("repetitions = 25", "repetitions = 4").replace(
-        "volts = [500, 1000]", "volts = [1000]"
-    )
+    text = text.replace("repetitions = 25", "repetitions = 4")
     seq = tmp_path / "qualification.toml"
     seq.write_text(text)
     m = compute_metrics(_run(tmp_path, seq))
+    # a pulse shorter than the sample interval still triggers (analog trigger comparator)
+    assert (m["status"] == "captured").all()
     m = m[m["capture"] == "charge"]
     for (meter, mode), grp in m.groupby(["meter", "mode"]):
         path = ROOT / "drivers" / "sim" / "meters" / f"demo-{meter[-1].lower()}.toml"

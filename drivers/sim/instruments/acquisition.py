@@ -7,8 +7,10 @@ seeded Generator at arming), so it bears no relation to the switching instant of
 The trigger search follows the contract in DEVELOPERS.md: the trigger input is evaluated
 (noise-free, DC-coupled, with its bandwidth limit) on that grid from the arming time and from
 the first grid point at or after every switching instant of the world, up to ``points``
-samples per start and never beyond the clock's present; the first sample that crosses the
-level with the slope triggers, and the trigger time is interpolated linearly between it and
+samples per start and never beyond the clock's present (the trigger comparator sees the
+analog input: for ``TRIGGER_FINE_S`` after each switching instant the input is evaluated at
+the native rate ``NATIVE_S`` when the sample interval is longer); the first sample that
+crosses the level with the slope triggers, and the trigger time is interpolated linearly between it and
 the sample before. The record's first sample is the first grid point at or after trigger +
 ``trigger_offset_s``, so the reported time of the first sample from the trigger carries the
 sub-sample phase.
@@ -54,6 +56,7 @@ MEAN_FINE_S = 1e-9  # spacing of the fine midpoint rule, at most, s
 MEAN_FINE_POINTS = 256  # fine midpoint points per interval, at most
 MEAN_SLOW_POINTS = 1  # elsewhere: the interval midpoint (slow signals; error below)
 NATIVE_S = 1e-9  # the simulated digitiser's native sample interval (1 GS/s), s
+TRIGGER_FINE_S = 10e-6  # after a switching instant the trigger is evaluated every NATIVE_S
 
 
 @dataclass
@@ -86,6 +89,7 @@ class Acquisition:
     inputs: tuple[InputSettings, ...]
     sampling: str = "POINt"
     windows: dict[float, tuple[int, float | None]] = field(default_factory=dict)
+    fine_done: set[float] = field(default_factory=set)  # switching instants scanned finely
     t_trig: float | None = None
     volts: dict[int, np.ndarray] | None = None  # per input: volts - offset, float32
 
@@ -126,6 +130,23 @@ class Acquisition:
                 continue
             if s < self.t_arm or (found and s >= min(found)):
                 continue  # a later window cannot trigger earlier than a found crossing
+            if starts[s] and self.dt > NATIVE_S and s not in self.fine_done:
+                # the trigger comparator sees the analog input, not the stored samples: just
+                # after a switching instant (where pulses shorter than dt live) it is
+                # evaluated at the native rate for TRIGGER_FINE_S
+                if now < s + TRIGGER_FINE_S:
+                    continue  # wait until the fine window has passed
+                self.fine_done.add(s)
+                t_f = s + (np.arange(int(TRIGGER_FINE_S / NATIVE_S)) + self.phase) * NATIVE_S
+                v_f = world.scope_inputs(t_f, bws)[src - 1]
+                prev_f = float(world.scope_inputs(np.array([s - NATIVE_S]), bws)[src - 1, 0])
+                hit = first_crossing(v_f, prev_f, self.level, self.slope)
+                if hit is not None:
+                    before = float(v_f[hit - 1]) if hit > 0 else prev_f
+                    found.append(
+                        self._interpolate(float(t_f[hit]), before, float(v_f[hit]), NATIVE_S)
+                    )
+                    continue
             g = self.grid_at_or_after(s)
             if now < g:
                 continue
@@ -150,13 +171,16 @@ class Acquisition:
         # of a later switch saw the old state, so the earliest crossing of any window counts
         return min(found)
 
-    def _interpolate(self, t_hit: float, prev: float | None, cur: float) -> float:
-        """Trigger time between the sample before ``t_hit`` and ``t_hit`` where the input
-        crosses the level, by linear interpolation (s)."""
+    def _interpolate(
+        self, t_hit: float, prev: float | None, cur: float, step: float | None = None
+    ) -> float:
+        """Trigger time between the sample before ``t_hit`` (``step`` earlier, default dt)
+        and ``t_hit`` where the input crosses the level, by linear interpolation (s)."""
+        step = self.dt if step is None else step
         if prev is None or cur == prev:
             return t_hit
         frac = min(1.0, max(0.0, (self.level - prev) / (cur - prev)))
-        return t_hit - self.dt + frac * self.dt
+        return t_hit - step + frac * step
 
     def _sample(
         self, world: World, t: np.ndarray, bandwidths: tuple[float | None, ...]
