@@ -47,7 +47,9 @@ turned positive by the event's polarity, ``Ip`` its peak):
   hysteresis: a pulse ends when the current falls below max(3 x noise, min(H / 2,
   H - noise_factor x noise)) (contact bounce); at least 1 for an event above noise.
 - c_equiv: abs(charge) / the input voltage the discharge started from (``charge_volts``);
-  r_equiv: the slowest term's branch resistance tau_1 x V / abs(charge_1).
+  r_equiv: the slowest term's branch resistance tau_1 x V / abs(charge_1) (the whole
+  charge when that term holds 80 % of it or more; tau_s for tau_1 when the two agree within
+  a factor 2, the pulse's own decay being the better fit of the same time constant).
 - flags: clipped (a sample at the ADC's lowest or highest code), truncated (the fitted tail
   beyond the record holds more than ``TAIL_SHARE_LIMIT`` of the whole charge), below noise (``Ip`` not above noise_factor x noise: the
   peak and everything derived from it are NaN, never a peak).
@@ -274,8 +276,17 @@ def _metrics(
         # C = Q / V of the input voltage the discharge started from (textbook Q = C V)
         c_equiv = np.abs(out["charge_c"]) / volts_r
         out["c_equiv_f"] = np.where(volts_r > 0, c_equiv, np.nan)
-        # the slowest term's branch: C_1 = Q_1 / V, R_1 = tau_1 / C_1 (textbook RC)
-        r1 = out["term1_tau_s"] * volts_r / np.abs(out["term1_charge_c"])
+        # the slowest term's branch: C_1 = Q_1 / V, R_1 = tau_1 / C_1 (textbook RC); when
+        # that term holds nearly all the charge (80 % or more), C_1 is the whole measured
+        # c_equiv rather than the term's charge extrapolated back to the trigger
+        q1 = np.abs(out["term1_charge_c"])
+        q_all = np.abs(out["charge_c"])
+        c1 = np.where(q1 >= 0.8 * q_all, q_all, q1)
+        # the same time constant as the pulse's own tail fit (within 2x): take tau_s, which
+        # is fitted on the whole decay rather than the tail's last tenth
+        tau1 = out["term1_tau_s"]
+        same = np.abs(np.log(tau1 / out["tau_s"])) < np.log(2.0)
+        r1 = np.where(same, out["tau_s"], tau1) * volts_r / c1
         out["r_equiv_ohm"] = np.where(volts_r > 0, r1, np.nan)
     # the peak of i = V/R exp(-t/RC) is V/R, so V = peak x R; then Q = C V, E = C V^2 / 2
     # (textbook RC relations)
