@@ -381,8 +381,7 @@ def _chunk(
     out["decay_s"][sl] = np.where(ok, t_after[:, 2] - p, nan)
     end = np.where(k_after[:, 3] >= 0, k_after[:, 3], n)
     tau = fit_tail(y, np.where(k_after[:, 0] >= 0, k_after[:, 0], n), end)
-    # the tail fit starts where the pulse has fallen to its floor (10 % of the peak)
-    _whole_charge(raw, base, pol, noise, u_base, corr, end, trig_index, n_int, ok, out, sl)
+
     out["tau_s"][sl] = np.where(ok, tau, nan)
 
     # Thresholds: the upper one at least (noise_factor + 3) x noise and the lower one at
@@ -390,6 +389,17 @@ def _chunk(
     # is not a new pulse) and the baseline reads firmly as "under" (few state changes).
     thr_hi = np.maximum(pulse_fraction * ip, (noise_factor + 3.0) * noise)
     thr_lo = np.maximum(np.minimum(0.5 * thr_hi, thr_hi - noise_factor * noise), 3.0 * noise)
+    # the tail fit starts where the pulse has fallen to its floor (10 % of the peak, at least
+    # 3 x noise), and after the last pulse when a bounce made the current rise again (above
+    # the pulse threshold, at least 9 x noise: never noise)
+    start = end.copy()
+    for i in range(r):
+        hi_idx = np.flatnonzero(y[i, end[i] :] > thr_hi[i]) if end[i] < n else []
+        if len(hi_idx):
+            after = end[i] + int(hi_idx[-1]) + 1
+            below = np.flatnonzero(y[i, after:] < floor[i])
+            start[i] = after + int(below[0]) if below.size else after
+    _whole_charge(raw, base, pol, noise, u_base, corr, start, trig_index, n_int, ok, out, sl)
     above, under = pulse_masks(raw, y, base, pol, thr_hi, thr_lo, integer)
     # an event whose peak clears the noise but not the upper threshold is one pulse
     out["pulses"][sl] = np.where(ok, np.maximum(count_pulses(above, under), 1), 0)
@@ -423,6 +433,10 @@ def _whole_charge(
         if ok[i]:
             start = max(start, int(p[i]) + 4)  # p: where the pulse has fallen to its floor
         if start > n - 16:
+            if ok[i] and p[i] >= n:  # the pulse is still above its floor at the record's end
+                k = idx[i]
+                out["charge_tail_c"][k] = out["charge_u_c"][k] = np.nan
+                out["flag_truncated"][k] = True
             continue
         fit, start = fit_tail_terms(
             raw[i], float(base[i]), float(pol[i]), start, noise[i], corr[i], u_base[i], n_int

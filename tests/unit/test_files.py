@@ -242,7 +242,12 @@ def test_qualification_matches_the_demo_brief():
             # the window must hold them with margin and reach a little below zero
             low = c.current_offset_amps - c.current_range_amps / 2
             high = c.current_offset_amps + c.current_range_amps / 2
-            assert low < 0 and high >= 1.4 * 37.0
+            if c.sampling == "mean":
+                # each sample the mean over its interval: at worst the whole fast charge of
+                # demo-b at 1000 V (its 1.72 nF on DC paths) falls into one sample
+                assert low < 0 and high >= 1.4 * 1000 * 1.72e-9 / c.sample_interval_s
+            else:
+                assert low < 0 and high >= 1.4 * 37.0
     assert seq.limits[0].metric == "abs_peak_a" and seq.limits[0].statistic == "utl"
     assert seq.limits[0].captures == ("peak",)
 
