@@ -61,6 +61,7 @@ OPERATIONS: Mapping[str, Mapping[str, frozenset[str]]] = MappingProxyType(
             "set_sample_interval": frozenset({"seconds"}),
             "set_points": frozenset({"points"}),
             "set_trigger_offset": frozenset({"seconds"}),
+            "set_sampling": frozenset({"sampling"}),
             "set_trigger_source": frozenset({"ch"}),
             "set_trigger_level": frozenset({"volts"}),
             "set_trigger_slope": frozenset({"slope"}),
@@ -91,7 +92,9 @@ OPTIONAL: Mapping[str, frozenset[str]] = MappingProxyType(
     }
 )
 #: Operations any layout may leave out (added after layout 1 files were written).
-OPTIONAL_ALWAYS = frozenset({"force_trigger"})
+# set_sampling: an instrument without an averaging mode samples points; a sequence asking for
+# "mean" sampling is then refused (ProfileError naming the operation).
+OPTIONAL_ALWAYS = frozenset({"force_trigger", "set_sampling"})
 #: Operations that exist only from layout 2 on.
 LAYOUT2_ONLY = frozenset({"enable_output", "disable_output", "get_interlock"})
 
@@ -132,6 +135,7 @@ _SAMPLES: dict[str, object] = {
     "seconds": 1e-9,
     "points": 1000,
     "slope": "POSitive",
+    "sampling": "MEAN",
     "fmt": "INT,8",
     "order": "NORMal",
     "function": "VOLTage:DC",

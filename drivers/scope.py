@@ -19,9 +19,15 @@ import numpy as np
 from drivers.clock import Clock
 from drivers.profile import Profile
 from drivers.session import ByteOrder, ScpiSession
-from rigbase.errors import BlockFormatError, InstrumentError, InstrumentTimeout, LimitError
+from rigbase.errors import (
+    BlockFormatError,
+    InstrumentError,
+    InstrumentTimeout,
+    LimitError,
+    ProfileError,
+)
 
-__all__ = ["Scope", "Trace"]
+__all__ = ["SAMPLING_WORDS", "Scope", "Trace"]
 
 log = logging.getLogger(__name__)
 
@@ -45,6 +51,9 @@ _SLOPES = {
 # FORMat:BORDer NORMal sends the most significant byte first (big-endian), SWAPped the
 # least significant first (SCPI-1999 Vol. 2, FORMat:BORDer; from memory).
 _ORDERS: dict[str, str] = {"big": "NORMal", "little": "SWAPped"}
+#: sequence-file sampling -> the profile's word: "point" stores the input at each sample
+#: instant, "mean" the mean of the input over each sample interval
+SAMPLING_WORDS: dict[str, str] = {"point": "POINt", "mean": "MEAN"}
 
 
 @dataclass(frozen=True)
@@ -170,6 +179,23 @@ class Scope:
         self._write("set_sample_interval", seconds=float(sample_interval_s))
         self._write("set_points", points=int(points))
         self._write("set_trigger_offset", seconds=offset)
+
+    def set_sampling(self, sampling: str) -> None:
+        """``"point"`` (the input at each sample instant) or ``"mean"`` (the mean of the input
+        over each sample interval: high-resolution acquisition). A profile without the
+        optional ``set_sampling`` operation accepts only ``"point"`` (sends nothing)."""
+        word = SAMPLING_WORDS.get(str(sampling).strip().lower())
+        if word is None:
+            raise LimitError(f"{self.name}: sampling {sampling!r} is not point or mean")
+        if not self.profile.has_operation(self.ROLE, "set_sampling"):
+            if word == "POINt":
+                return
+            raise ProfileError(
+                self.profile.path,
+                "scope.set_sampling",
+                'missing operation: needed for sampling = "mean"',
+            )
+        self._write("set_sampling", sampling=word)
 
     def configure_trigger(self, ch: int, level_volts: float, slope: str) -> None:
         """Edge trigger on input ``ch`` at ``level_volts`` (volts); ``slope`` is

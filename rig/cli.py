@@ -53,13 +53,15 @@ def _out(text: str = "") -> None:
 def cmd_check(args: argparse.Namespace) -> int:
     from rig.planning.plan import build_plan, describe, safety_review
     from rig.planning.sequence import load_sequence
-    from rig.runner.opener import load_bench
+    from rig.runner.opener import check_meter_netlists, load_bench, meter_time_constants
 
     bench = load_bench(args.bench)
     seq = load_sequence(args.sequence, bench)
+    check_meter_netlists(seq)
     plan = build_plan(seq, bench)
-    _out(describe(plan, bench, seq))
-    findings = safety_review(plan, bench, seq)
+    taus = meter_time_constants(bench, seq)
+    _out(describe(plan, bench, seq, taus))
+    findings = safety_review(plan, bench, seq, taus)
     return EXIT_NO if any(f.level == "stop" for f in findings) else EXIT_OK
 
 
@@ -181,19 +183,21 @@ def cmd_run(args: argparse.Namespace) -> int:
     from rig.planning.plan import build_plan, describe, safety_review
     from rig.planning.sequence import load_sequence
     from rig.runner.cycle import host_info
-    from rig.runner.opener import load_bench
+    from rig.runner.opener import check_meter_netlists, load_bench, meter_time_constants
     from rig.runner.signoff import check_calibration, sign_off
     from rig.store.runfolder import RunWriter, new_run_id
 
     bench = load_bench(args.bench)
     accepted = check_calibration(bench, _today(), input if sys.stdin.isatty() else None)
     seq = load_sequence(args.sequence, bench)
+    check_meter_netlists(seq)
     plan = build_plan(seq, bench)
-    findings = safety_review(plan, bench, seq)
+    taus = meter_time_constants(bench, seq)
+    findings = safety_review(plan, bench, seq, taus)
     _out(CAUTION)  # always, --quiet included
     _out()
     if not args.quiet:
-        _out(describe(plan, bench, seq))
+        _out(describe(plan, bench, seq, taus))
     if any(f.level == "stop" for f in findings):
         _out("rig: the safety review stops this run; nothing was switched on")
         return EXIT_NO

@@ -19,7 +19,13 @@ not re-checked inside a CV segment.
 
 Relays close with contact bounce (:class:`~drivers.sim.interfaces.BounceSpec`): a make, then
 0..max_bounces break/make pairs, every interval uniform in [min_s, max_s], drawn from a
-numpy Generator seeded with ``config.seed``. Opening is immediate. A channel listed in
+numpy Generator seeded with ``config.seed``. Opening is immediate. A contact that breaks
+while more than ``ARC_MIN_AMPS`` flow through it arcs: it holds ``ARC_VOLTS`` against the current until the
+current reaches zero (or the contact makes again), so the energy of the inductances around
+it goes into the arc (``arc_joules``) and the resistors instead of vanishing. The arc is the
+closed contact (``contact_ohms``) in parallel with a current source ``-V/contact_ohms``
+(the Norton form of ARC_VOLTS in series with the contact); its end is found on the exact
+solution. A channel listed in
 ``faults.relay_stuck_closed`` welds on its first closing and never opens again.
 ``faults.supply_stuck_on``: once on, OUTP OFF is ignored and the output keeps the voltage it
 had (later voltage changes are ignored until the output is commanded on again).
@@ -57,6 +63,13 @@ __all__ = ["BenchWorld"]
 log = logging.getLogger(__name__)
 
 _SUP, _SRC, _CV = "bench:sup", "bench:supply", "bench:supply_cv"
+#: Voltage a breaking relay contact holds while it arcs, V: a fixed value of the order of the
+#: minimum arc voltage of common contact metals (about 10 to 15 V; from memory).
+ARC_VOLTS = 12.0
+#: a contact breaking less current than this does not arc, A: below the minimum arc current
+#: of common contact metals (a few hundred mA; from memory), so the charge path's milliamperes
+#: never arc, while a bounce in a discharge of amperes does
+ARC_MIN_AMPS = 0.1
 
 
 @dataclass
@@ -96,6 +109,8 @@ class BenchWorld:
             if ld.channel is not None:
                 self._chan_switch[f"K{ld.channel}:load{i}"] = ld.channel
         self._coil: dict[int, bool] = {ch: False for ch in self._chan_switch.values()}
+        self._arcs: dict[str, float] = {}  # arcing contact -> its voltage, signed with i
+        self.arc_joules = 0.0  # energy delivered into contact arcs so far (ground truth)
         self._contact: dict[int, bool] = dict(self._coil)
         self._gen: dict[int, int] = {}
         self._welded: set[int] = set()
@@ -161,6 +176,8 @@ class BenchWorld:
                 el, juncs, consts = el + lel, juncs + lj, {**consts, **lc}
         if w.divider_ratio is not None:
             el.append(Element("bench:R_divider", "R", vin, com, w.divider_ohms))
+        # an arc source across every relay contact (0 A unless that contact arcs)
+        el += [Element(f"arc:{e.name}", "I", e.a, e.b) for e in el if e.name in self._chan_switch]
         clash = {e.name for e in el} & {e.name for e in net.elements}
         if clash:
             raise ValueError(f"{net.path}: element names clash with the bench: {sorted(clash)}")
@@ -186,6 +203,7 @@ class BenchWorld:
     # -- configuration of the present instant --------------------------------------------------
     def _closed(self, cc: bool) -> frozenset[str]:
         s = {name for name, ch in self._chan_switch.items() if self._contact.get(ch)}
+        s |= set(self._arcs)  # an arcing contact still conducts
         s |= self._netlist.closed_switches(self._mode)
         if not cc:
             s.add(_CV)
@@ -199,7 +217,8 @@ class BenchWorld:
     def _start_segment(self, t: float, x_net: np.ndarray) -> None:
         c, r_out = self._circuit, self.config.wiring.supply_output_ohms
         v = self._source_volts()
-        closed, u = self._closed(False), c.input_vector({_SRC: v / r_out})
+        arcs = {f"arc:{n}": -vs / self.config.bounce.contact_ohms for n, vs in self._arcs.items()}
+        closed, u = self._closed(False), c.input_vector({_SRC: v / r_out, **arcs})
         cc = False
         if v > 0:
             ss = c.model(closed, [f"v({_SUP})"])
@@ -208,7 +227,7 @@ class BenchWorld:
             v_sup = float(ss.outputs(x, u, np.zeros(1))[0, 0])
             if (v - v_sup) / r_out > self._amps * (1 + 1e-6):
                 cc = True
-                closed, u = self._closed(True), c.input_vector({_SRC: self._amps})
+                closed, u = self._closed(True), c.input_vector({_SRC: self._amps, **arcs})
         ss = c.model(closed)
         x = np.array(x_net, dtype=float)
         x[ss.dead] = 0.0
@@ -234,7 +253,66 @@ class BenchWorld:
 
     def _split(self, t: float) -> None:
         """End the present segment at ``t`` and start one for the present configuration."""
+        seg = self._segments[-1]
+        if self._arc_segment(seg):
+            self.arc_joules += self._arc_energy(seg, t)
         self._start_segment(t, self._state_at(t))
+
+    # -- contact arcs ------------------------------------------------------------------------
+    def _arc_segment(self, seg: _Segment) -> dict[str, float]:
+        """The arcs of segment ``seg``: contact -> signed arc voltage (from its inputs)."""
+        c, r_k = seg.circuit, self.config.bounce.contact_ohms
+        out = {}
+        for k, name in enumerate(c.inputs):
+            if name.startswith("arc:") and seg.u[k] != 0.0:
+                out[name[4:]] = -float(seg.u[k]) * r_k
+        return out
+
+    def _arc_current(self, seg: _Segment, name: str, vs: float, t: np.ndarray) -> np.ndarray:
+        """Current through arcing contact ``name`` at times ``t`` after the segment start:
+        (v_ab - V) / contact_ohms, the Norton pair's total."""
+        e = seg.circuit.element_by_name[name]
+        ss = seg.circuit.model(seg.closed, [Probe("v", e.a, e.b)])
+        return (ss.outputs(seg.x0, seg.u, t)[0] - vs) / self.config.bounce.contact_ohms
+
+    def _arc_energy(self, seg: _Segment, t_end: float) -> float:
+        """Energy into the arcs of ``seg`` from its start to ``t_end``, J (V i integrated on
+        a grid dense near the start, where the fast modes are; trapezoid rule)."""
+        span = t_end - seg.t0
+        if span <= 0:
+            return 0.0
+        grid = np.unique(np.concatenate([[0.0], np.geomspace(1e-13, span, 4000), [span]]))
+        total = 0.0
+        for name, vs in self._arc_segment(seg).items():
+            i = self._arc_current(seg, name, vs, grid)
+            total += vs * float(np.sum(0.5 * (i[1:] + i[:-1]) * np.diff(grid)))
+        return total
+
+    def _arc_exit(self, seg: _Segment, t_limit: float) -> tuple[float, str] | None:
+        """The first instant in (t0, t_limit] where an arc's current reaches zero."""
+        span = t_limit - seg.t0
+        if span <= 0:
+            return None
+        grid = np.concatenate([[0.0], np.geomspace(min(1e-12, span), span, 600)])
+        best: tuple[float, str] | None = None
+        for name, vs in self._arc_segment(seg).items():
+            i = self._arc_current(seg, name, vs, grid) * np.sign(vs)
+            hit = np.nonzero(i <= 0)[0]
+            if not hit.size:
+                continue
+            k = hit[0]
+            if k == 0:
+                te = 0.0
+            else:
+                te = brentq(
+                    lambda x, n=name, v=vs: float(self._arc_current(seg, n, v, np.array([x]))[0]),
+                    grid[k - 1],
+                    grid[k],
+                    xtol=1e-15,
+                )
+            if best is None or seg.t0 + te < best[0]:
+                best = (seg.t0 + te, name)
+        return best
 
     # -- time --------------------------------------------------------------------------------
     def _advance(self, t_target: float) -> None:
@@ -248,17 +326,42 @@ class BenchWorld:
                 if tc is not None:
                     self._split(tc)
                     continue
+            if self._arcs:
+                hit = self._arc_exit(seg, nxt if nxt is not None else t_target)
+                if hit is not None:
+                    self._arcs.pop(hit[1])  # current zero: the arc goes out, the contact opens
+                    self._split(max(hit[0], seg.t0))
+                    continue
             if nxt is None:
                 return
             changed = False
             while self._events and self._events[0][0] == nxt:
                 _, _, ch, gen, state = heapq.heappop(self._events)
                 if self._gen.get(ch, 0) == gen and self._contact.get(ch) != state:
+                    self._start_arcs(ch, state, nxt)
                     self._contact[ch] = state
                     changed = True
                     self._record(nxt)
             if changed:
                 self._split(nxt)
+
+    def _start_arcs(self, ch: int, closing: bool, t: float) -> None:
+        """Contacts of channel ``ch`` change at ``t``: a make ends their arcs; a break of a
+        contact carrying current starts one, its voltage against that current."""
+        names = [n for n, c in self._chan_switch.items() if c == ch]
+        if closing:
+            for n in names:
+                self._arcs.pop(n, None)
+            return
+        seg = self._segments[-1]
+        for n in names:
+            if n not in seg.closed:
+                continue
+            ss = seg.circuit.model(seg.closed, [Probe("i", n)])
+            i0 = float(ss.outputs(seg.x0, seg.u, np.array([t - seg.t0]))[0, 0])
+            i0 += float(seg.u[seg.circuit.inputs.index(f"arc:{n}")])  # an arc's own source
+            if abs(i0) > ARC_MIN_AMPS:
+                self._arcs[n] = ARC_VOLTS * float(np.sign(i0))
 
     def _cc_exit(self, seg: _Segment, t_limit: float) -> float | None:
         """Instant in (t0, t_limit] where the CC supply's terminal reaches V - I R_out."""

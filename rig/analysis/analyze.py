@@ -127,15 +127,35 @@ def _batches(run_dir: Path, jr: pd.DataFrame, channel: str, batch: int) -> Itera
 def _flush(pending: list[tuple[int, Any]], channel: str) -> Iterator[tuple]:
     by_shape: dict[tuple, list[tuple[int, Any]]] = {}
     for i, wf in pending:
-        by_shape.setdefault((wf.n, wf.dt, wf.t0, wf.codes.dtype.str), []).append((i, wf))
-    for (_, dt, t0, _), items in by_shape.items():
+        # a free-running sample clock gives every record its own sub-sample t0: group by
+        # the whole number of pre-trigger samples and pass t0 per event
+        pre = int(np.ceil(-wf.t0 / wf.dt - 1e-9))
+        by_shape.setdefault((wf.n, wf.dt, pre, wf.codes.dtype.str), []).append((i, wf))
+    for (_, dt, _, _), items in by_shape.items():
+        t0 = np.array([wf.t0 for _, wf in items])
         k = [wf.index(channel) for _, wf in items]
         codes = np.stack([wf.codes[j] for (_, wf), j in zip(items, k, strict=True)])
         gain = np.array([wf.gain[j] for (_, wf), j in zip(items, k, strict=True)])
         offset = np.array([wf.offset[j] for (_, wf), j in zip(items, k, strict=True)])
         lo = np.array([wf.code_min[j] for (_, wf), j in zip(items, k, strict=True)])
         hi = np.array([wf.code_max[j] for (_, wf), j in zip(items, k, strict=True)])
-        yield [i for i, _ in items], codes, gain, offset, lo, hi, dt, t0
+        yield [i for i, _ in items], codes, gain, offset, lo, hi, dt, t0, _input_volts(items)
+
+
+def _input_volts(items: list[tuple[int, Any]]) -> np.ndarray:
+    """The meter's input voltage just before each discharge: the mean of the divider
+    channel ("voltage") over its pre-trigger samples, V (NaN without that channel)."""
+    out = np.full(len(items), np.nan)
+    for k, (_, wf) in enumerate(items):
+        if "voltage" not in wf.channels:
+            continue
+        j = wf.index("voltage")
+        n_pre = int(np.floor(-wf.t0 / wf.dt))
+        if n_pre < 2:
+            continue
+        codes = wf.codes[j, : n_pre - n_pre // 10].astype(np.float64)
+        out[k] = float(codes.mean() * wf.gain[j] + wf.offset[j])
+    return out
 
 
 def compute_metrics(
@@ -143,8 +163,10 @@ def compute_metrics(
 ) -> pd.DataFrame:
     """Journal columns plus the per-event metrics of a run folder, without writing anything.
 
-    The charge voltage for c_equiv is the supply readback (``supply_volts``) when the journal
-    has it, else the setpoint ``volts``. Besides METRIC_COLUMNS each event gets ``dt_s``
+    The voltage for c_equiv is the meter's input just before the discharge: the pre-trigger
+    mean of the divider channel when the waveform has one, else the journal's
+    ``charged_volts`` (divider at the end of the dwell), else the supply readback
+    (``supply_volts``), else the setpoint ``volts``. Besides METRIC_COLUMNS each event gets ``dt_s``
     (sample interval, s) and ``record_s`` (record span, samples x dt, s) of its waveform
     (NaN when not captured), and rows without a ``capture`` (older runs) get "main".
     """
@@ -154,6 +176,9 @@ def compute_metrics(
     if "supply_volts" in jr:
         readback = pd.to_numeric(jr["supply_volts"], errors="coerce").to_numpy(float)
         volts = np.where(np.isfinite(readback), readback, volts)
+    if "charged_volts" in jr:
+        measured = pd.to_numeric(jr["charged_volts"], errors="coerce").to_numpy(float)
+        volts = np.where(np.isfinite(measured), measured, volts)
     ohms = pd.to_numeric(jr["load_ohms"], errors="coerce").to_numpy(float)
     res = {k: np.full(len(jr), np.nan) for k in METRIC_COLUMNS}
     for k in ("flag_clipped", "flag_truncated", "flag_below_noise"):
@@ -163,8 +188,9 @@ def compute_metrics(
     res["pulses"] = np.zeros(len(jr), dtype=np.int64)
     dt_s = np.full(len(jr), np.nan)
     record_s = np.full(len(jr), np.nan)
-    for idx, codes, gain, offset, lo, hi, dt, t0 in _batches(run_dir, jr, channel, batch):
+    for idx, codes, gain, offset, lo, hi, dt, t0, v_in in _batches(run_dir, jr, channel, batch):
         ix = np.asarray(idx)
+        volts[ix] = np.where(np.isfinite(v_in), v_in, volts[ix])
         dt_s[ix] = dt
         record_s[ix] = codes.shape[1] * dt
         part = event_metrics(

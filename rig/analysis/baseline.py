@@ -3,8 +3,9 @@
 The level before the trigger is what every other metric is measured from: peak, crossings and
 the charge integral all subtract it, and the charge integral multiplies any error in it by the
 record length. :func:`baseline_noise` takes the pre-trigger samples of a chunk of events (one
-row each) and returns the baseline (median, or a finer mean for whole ADC codes) and the noise
-(robust sigma) per row; the rules are spelled out in :mod:`rig.analysis.metrics`. Integer codes
+row each) and returns the baseline (a trimmed mean, float64) and the noise per row;
+:func:`baseline_uncertainty` the baseline's standard uncertainty, which the charge
+uncertainty carries; the rules are spelled out in :mod:`rig.analysis.metrics`. Integer codes
 get their own estimators because the median and the MAD of rounded samples are too coarse below
 a code or so of noise; int8 codes go through per-row histograms, which are much cheaper.
 """
@@ -18,8 +19,8 @@ __all__ = [
     "MAD_TO_SIGMA",
     "baseline_int8",
     "baseline_noise",
+    "baseline_uncertainty",
     "code_baseline",
-    "settle_baseline",
 ]
 
 MAD_TO_SIGMA = 1.4826  # MAD of a normal distribution x 1.4826 = sigma (common practice)
@@ -29,47 +30,67 @@ MAD_TO_SIGMA = 1.4826  # MAD of a normal distribution x 1.4826 = sigma (common p
 BASELINE_MAX = 1 << 15
 
 
+BATCHES = 32  # batch means for the baseline's standard uncertainty
+
+
 def baseline_noise(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Baseline and noise per row of ``pre`` (events x pre-trigger samples), in the units of
-    the samples (codes for integer arrays, amperes for floats).
+    the samples (codes for integer arrays, amperes for floats), both float64.
 
-    Floats: median and 1.4826 x MAD. Integer codes: :func:`code_baseline` (int16 and wider)
-    or :func:`baseline_int8`.
+    Baseline: the mean of the samples within median +- (4 robust sigma + 3 codes) (spikes
+    beyond stay out), always: no rule that switches estimators, which noise could trip.
+    Noise: their standard deviation (integer codes: at least the quantisation noise
+    1/sqrt(12) code); robust sigma from the MAD (1.4826 x MAD), or for int8 codes the
+    interquartile range / 1.349 from per-row histograms, which are much cheaper.
     """
     if pre.dtype == np.int8:
         return baseline_int8(pre)
-    base = np.median(pre, axis=1)
-    noise = MAD_TO_SIGMA * np.median(np.abs(pre - base[:, None]), axis=1)
+    med = np.median(pre, axis=1)
+    mad_sigma = MAD_TO_SIGMA * np.median(np.abs(pre - med[:, None]), axis=1)
+    return code_baseline(pre, med, mad_sigma, integer=pre.dtype.kind in "iu")
+
+
+def baseline_uncertainty(pre: np.ndarray, base: np.ndarray, noise: np.ndarray) -> tuple:
+    """Standard uncertainty of each row's baseline and the variance inflation of a long mean
+    by the noise's correlation (>= 1), from ``BATCHES`` batch means of the pre-trigger
+    samples (batch means, common practice for correlated series, no source): u = standard
+    deviation of the batch means / sqrt(batches), at least noise / sqrt(samples). Integer
+    codes with less than half a code of noise are not dithered: their mean can be off by up
+    to half a code whatever the count, so 1/sqrt(12) code is added in quadrature."""
+    r, k = pre.shape
+    n_b = min(BATCHES, k // 2)
+    if n_b < 4:
+        u = noise / np.sqrt(max(k, 1))
+        return u, np.ones(r)
+    length = k // n_b
+    means = pre[:, -n_b * length :].reshape(r, n_b, length).mean(axis=2, dtype=np.float64)
+    u_batch = means.std(axis=1, ddof=1) / np.sqrt(n_b)
+    u_white = noise / np.sqrt(k)
+    u = np.maximum(u_batch, u_white)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        corr = np.where(u_white > 0, (u / u_white) ** 2, 1.0)
     if pre.dtype.kind in "iu":
-        base, noise = code_baseline(pre, base, noise)
-    return base, noise
+        u = np.where(noise < 0.5, np.hypot(u, 1.0 / np.sqrt(12.0)), u)
+    return u, np.clip(np.nan_to_num(corr, nan=1.0), 1.0, float(length))
 
 
 def code_baseline(
-    pre: np.ndarray, med: np.ndarray, mad_sigma: np.ndarray
+    pre: np.ndarray, med: np.ndarray, mad_sigma: np.ndarray, integer: bool = True
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Baseline and noise of integer codes, in codes, from the samples within median +-
-    (4 x MAD sigma + 3 codes) (spikes beyond stay out). Noise: their standard deviation
-    (below about one code of noise the MAD of rounded samples collapses to 0 or 1 code), at
-    least the quantisation noise 1/sqrt(12) code. Baseline: see :func:`settle_baseline`."""
+    """Baseline and noise from the samples within median +- (4 x MAD sigma + 3 codes) (for
+    floats + 0, the samples being amperes): their mean and standard deviation in float64.
+    Below about one code of noise the MAD of rounded samples collapses to 0 or 1 code, so
+    the standard deviation, at least 1/sqrt(12) code for codes, is the noise."""
     dev = pre - med[:, None]
-    keep = np.abs(dev) <= (4.0 * mad_sigma + 3.0)[:, None]
+    pad = 3.0 if integer else 0.0
+    keep = np.abs(dev) <= (4.0 * mad_sigma + pad)[:, None]
+    if not integer:  # a float record with no spread at all: keep what sits on the median
+        keep |= dev == 0
     cnt = np.maximum(keep.sum(axis=1), 1)
     mean = np.where(keep, dev, 0.0).sum(axis=1) / cnt
     var = np.where(keep, (dev - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(cnt - 1, 1)
-    return settle_baseline(med, mean, var, cnt), np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))
-
-
-def settle_baseline(
-    med: np.ndarray, mean_dev: np.ndarray, var: np.ndarray, cnt: np.ndarray
-) -> np.ndarray:
-    """The median of whole codes, or the mean of the kept samples (median + mean_dev) where
-    the two differ by more than twice the mean's standard error sqrt(var / cnt): the median
-    is then off the true level by part of a code (it is a whole or half code), which the
-    charge integral would multiply by the record length. Where they agree the median stays,
-    since it is exact when the level sits on a code."""
-    se = np.sqrt(np.maximum(var, 1.0 / 12.0) / np.maximum(cnt, 1))
-    return np.where(np.abs(mean_dev) > 2.0 * se, med + mean_dev, med)
+    floor = 1.0 / np.sqrt(12.0) if integer else 0.0
+    return med + mean, np.maximum(np.sqrt(var), floor)
 
 
 def baseline_int8(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -96,4 +117,4 @@ def baseline_int8(pre: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     cnt = np.maximum(w.sum(axis=1), 1)
     mean = (w * dev).sum(axis=1) / cnt
     var = (w * (dev - mean[:, None]) ** 2).sum(axis=1) / np.maximum(cnt - 1, 1)
-    return settle_baseline(med, mean, var, cnt), np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))
+    return med + mean, np.maximum(np.sqrt(var), 1.0 / np.sqrt(12.0))

@@ -14,18 +14,14 @@ This module holds the definitions below and puts the three together, chunk by ch
 Definitions (times in seconds, currents in amperes; ``y`` is the baseline-removed current
 turned positive by the event's polarity, ``Ip`` its peak):
 
-- baseline, noise: median and 1.4826 x MAD of the pre-trigger samples (robust against the
-  odd spike). For integer codes, where the MAD of rounded samples is too coarse below a code
-  or so of noise, the noise is the standard deviation of the samples within median +-
-  (4 robust sigma + 3 codes), robust sigma from the MAD (or, for 8-bit codes, the
-  interquartile range), and at least the quantisation noise 1/sqrt(12) code. The median of
-  whole codes is itself a whole (or half) code, up to half a code off the true level, and
-  the charge integral multiplies a baseline error by the record length (half a 1 mA code
-  over a 50 ms record is 25 uC); so where the mean of those same samples differs from the
-  median by more than twice its standard error, the baseline is that mean (the median is
-  kept otherwise: it is exact when the level sits on a code). Up to the last
-  ``BASELINE_MAX`` pre-trigger samples are used, so a long record with a long pre-trigger
-  gets a baseline to match.
+- baseline, noise: the mean (float64) and standard deviation of the pre-trigger samples
+  within median +- (4 robust sigma + 3 codes) (robust sigma from 1.4826 x MAD, or for 8-bit
+  codes the interquartile range; the noise at least the quantisation noise 1/sqrt(12) code).
+  Always the mean: no rule that switches estimators, which noise could trip. Its standard
+  uncertainty ``baseline_u_a`` comes from batch means of the same samples
+  (:func:`rig.analysis.baseline.baseline_uncertainty`). Up to the last ``BASELINE_MAX``
+  pre-trigger samples are used, so a long record with a long pre-trigger gets a baseline to
+  match (the charge integral multiplies a baseline error by the record length).
 - polarity: sign of the larger excursion from the baseline.
 - peak: largest ``y`` sample; ``peak_a`` carries the polarity, ``abs_peak_a`` does not.
 - rise time: 10 % to 90 % of ``Ip`` on the leading edge of the highest pulse (last crossings
@@ -39,13 +35,23 @@ turned positive by the event's polarity, ``Ip`` its peak):
   close to a least-squares fit of an exponential) of the samples after the peak between
   90 % of ``Ip`` and max(10 % of ``Ip``, 3 x noise); at most 256 evenly spaced samples.
 - fwhm: time between the 50 % crossings either side of the peak.
-- charge: integral of i dt over the record (signed); energy: load_ohms x integral of i^2 dt.
+- charge: ``charge_record_c`` is the integral of i dt from the end of the baseline window to
+  the record's end (signed, float64: codes summed exactly, the baseline subtracted once);
+  ``charge_c`` the whole discharge: that plus the tail beyond the record (``charge_tail_c``)
+  from a fit of the record's tail by a sum of exponentials, the fit also refining the
+  baseline within its uncertainty (:mod:`rig.analysis.wholecharge`); ``charge_u_c`` its
+  standard uncertainty. ``tail_terms`` and ``term<k>_tau_s`` / ``term<k>_charge_c``: the
+  fitted terms, slowest first, each with its charge from the trigger on.
+- energy: load_ohms x integral of i^2 dt over the record.
 - pulses: separate pulses above H = max(25 % of ``Ip``, (noise_factor + 3) x noise), with
   hysteresis: a pulse ends when the current falls below max(3 x noise, min(H / 2,
   H - noise_factor x noise)) (contact bounce); at least 1 for an event above noise.
-- c_equiv: abs(charge) / charge voltage; r_equiv: tau / c_equiv.
-- flags: clipped (a sample at the ADC's lowest or highest code), truncated (mean of the last
-  samples still above 5 % of ``Ip``), below noise (``Ip`` not above noise_factor x noise: the
+- c_equiv: abs(charge) / the input voltage the discharge started from (``charge_volts``);
+  r_equiv: the slowest term's branch resistance tau_1 x V / abs(charge_1) (the whole
+  charge when that term holds 80 % of it or more; tau_s for tau_1 when the two agree within
+  a factor 2, the pulse's own decay being the better fit of the same time constant).
+- flags: clipped (a sample at the ADC's lowest or highest code), truncated (the fitted tail
+  beyond the record holds more than ``TAIL_SHARE_LIMIT`` of the whole charge), below noise (``Ip`` not above noise_factor x noise: the
   peak and everything derived from it are NaN, never a peak).
 - indicators (not measurements of an HBM or IEC 61010 test): ``ind_hbm_volts`` = abs peak x
   1500 ohm (the HBM network's resistance; meaningful for low-ohm loads), ``ind_hbm_charge_c``
@@ -62,9 +68,10 @@ from typing import Any
 
 import numpy as np
 
-from rig.analysis.baseline import BASELINE_MAX, MAD_TO_SIGMA, baseline_noise
+from rig.analysis.baseline import BASELINE_MAX, MAD_TO_SIGMA, baseline_noise, baseline_uncertainty
 from rig.analysis.pulses import count_pulses, pulse_masks
 from rig.analysis.shape import BLOCK, envelope, fit_tail, interp, search
+from rig.analysis.wholecharge import MAX_TERMS, TAIL_SHARE_LIMIT, fit_tail_terms
 from rig.store.schema import METRIC_COLUMNS
 from rig.store.waveform import Waveform
 
@@ -102,7 +109,6 @@ def event_metrics(
     load_ohms: float | np.ndarray = np.nan,
     noise_factor: float = 6.0,
     pulse_fraction: float = 0.25,
-    truncation_fraction: float = 0.05,
     chunk_bytes: int = 16 << 20,
 ) -> dict[str, np.ndarray]:
     """Metrics of every event (row) of ``data``; one 1-D array per name in METRIC_COLUMNS.
@@ -117,8 +123,6 @@ def event_metrics(
     charge_volts: charge voltage per event, V (for c_equiv); load_ohms: load, ohm (energy).
     noise_factor: a peak must exceed this multiple of the noise, or the event is flagged
         below noise. pulse_fraction: pulse-count threshold as a fraction of the peak.
-    truncation_fraction: the truncated flag is set when the record ends above this
-        fraction of the peak.
     chunk_bytes: working-memory budget of one chunk of float rows (bytes).
     """
     out = _metrics(
@@ -134,10 +138,9 @@ def event_metrics(
         load_ohms=load_ohms,
         noise_factor=noise_factor,
         pulse_fraction=pulse_fraction,
-        truncation_fraction=truncation_fraction,
         chunk_bytes=chunk_bytes,
     )
-    del out["t_onset_s"]
+    del out["t_onset_s"], out["tail_start"]
     return out
 
 
@@ -159,7 +162,8 @@ def current_after_onset(
     res = _metrics(data, dt=dt, t0=t0, gain=gain, offset=offset, **kwargs)
     m, n = data.shape
     after = np.atleast_1d(np.asarray(after_s, dtype=float))
-    pos = (res["t_onset_s"][:, None] + after[None, :] - t0) / dt
+    t0_r = np.broadcast_to(np.asarray(t0, dtype=float), (m,))[:, None]
+    pos = (res["t_onset_s"][:, None] + after[None, :] - t0_r) / dt
     inside = np.isfinite(pos) & (pos >= 0) & (pos <= n - 1)
     k = np.clip(np.floor(np.nan_to_num(pos)), 0, n - 2).astype(np.int64)
     frac = np.nan_to_num(pos) - k
@@ -188,7 +192,6 @@ def _metrics(
     load_ohms: float | np.ndarray = np.nan,
     noise_factor: float = 6.0,
     pulse_fraction: float = 0.25,
-    truncation_fraction: float = 0.05,
     chunk_bytes: int = 16 << 20,
 ) -> dict[str, np.ndarray]:
     """:func:`event_metrics` plus ``t_onset_s`` (10 % point of the leading edge, s)."""
@@ -203,8 +206,10 @@ def _metrics(
     if not dt > 0:
         raise ValueError(f"event_metrics: dt must be positive, got {dt!r}")
     integer = data.dtype.kind in "iu"
+    t0_r = np.broadcast_to(np.asarray(t0, dtype=np.float64), (m,))
+    t0_ref = float(np.max(t0_r))  # rows may differ by a sub-sample phase
     if n_baseline is None:
-        n_pre = int(np.ceil(-t0 / dt)) if t0 < 0 else 0
+        n_pre = int(np.ceil(-t0_ref / dt)) if t0_ref < 0 else 0
         n_baseline = min(n_pre, n) if n_pre > 0 else max(1, n // 10)
     n_base = max(1, n_baseline - n_baseline // 10)
     base_lo = max(0, n_base - BASELINE_MAX)
@@ -223,6 +228,8 @@ def _metrics(
         out[k] = np.zeros(m, dtype=bool)
     out["polarity"] = np.zeros(m, dtype=np.int8)
     out["pulses"] = np.zeros(m, dtype=np.int64)
+    out["tail_terms"] = np.zeros(m, dtype=np.int64)
+    out["tail_start"] = np.full(m, np.nan)
 
     work = np.float32 if (integer or data.dtype == np.float32) else np.float64
     rows_per_chunk = max(1, int(chunk_bytes // (n * np.dtype(work).itemsize)))
@@ -236,11 +243,11 @@ def _metrics(
             n_base,
             noise_factor,
             pulse_fraction,
-            truncation_fraction,
             lo_r[a:b],
             hi_r[a:b],
             out,
             slice(a, b),
+            trig_index=-t0_r[a:b] / dt,
         )
 
     # Scale code units to amperes and derive the rest; all per event, cheap.
@@ -251,16 +258,36 @@ def _metrics(
     out["noise_a"] = out["noise_a"] * g
     out["abs_peak_a"] = out["abs_peak_a"] * g
     out["peak_a"] = out["abs_peak_a"] * out["polarity"]
+    out["baseline_u_a"] = out["baseline_u_a"] * g
     for k in ("t_peak_s", "rise_s", "decay_s", "tau_s", "fwhm_s", "t_onset_s"):
         out[k] = out[k] * dt
-    out["t_peak_s"] = out["t_peak_s"] + t0
-    out["t_onset_s"] = out["t_onset_s"] + t0
-    out["charge_c"] = out["charge_c"] * gain_r * dt
+    out["t_peak_s"] = out["t_peak_s"] + t0_r
+    out["t_onset_s"] = out["t_onset_s"] + t0_r
+    # charges: code x samples -> C (gain carries the sign of the codes' scale); the polarity
+    # is already in them, so a discharge keeps its sign
+    for k in ("charge_c", "charge_record_c", "charge_tail_c"):
+        out[k] = out[k] * gain_r * dt
+    out["charge_u_c"] = out["charge_u_c"] * g * dt
+    for j in range(1, MAX_TERMS + 1):
+        out[f"term{j}_tau_s"] = out[f"term{j}_tau_s"] * dt
+        out[f"term{j}_charge_c"] = out[f"term{j}_charge_c"] * gain_r * dt
     out["energy_j"] = out["energy_j"] * g**2 * dt * ohms_r
     with np.errstate(divide="ignore", invalid="ignore"):
+        # C = Q / V of the input voltage the discharge started from (textbook Q = C V)
         c_equiv = np.abs(out["charge_c"]) / volts_r
         out["c_equiv_f"] = np.where(volts_r > 0, c_equiv, np.nan)
-        out["r_equiv_ohm"] = out["tau_s"] / out["c_equiv_f"]
+        # the slowest term's branch: C_1 = Q_1 / V, R_1 = tau_1 / C_1 (textbook RC); when
+        # that term holds nearly all the charge (80 % or more), C_1 is the whole measured
+        # c_equiv rather than the term's charge extrapolated back to the trigger
+        q1 = np.abs(out["term1_charge_c"])
+        q_all = np.abs(out["charge_c"])
+        c1 = np.where(q1 >= 0.8 * q_all, q_all, q1)
+        # the same time constant as the pulse's own tail fit (within 2x): take tau_s, which
+        # is fitted on the whole decay rather than the tail's last tenth
+        tau1 = out["term1_tau_s"]
+        same = np.abs(np.log(tau1 / out["tau_s"])) < np.log(2.0)
+        r1 = np.where(same, out["tau_s"], tau1) * volts_r / c1
+        out["r_equiv_ohm"] = np.where(volts_r > 0, r1, np.nan)
     # the peak of i = V/R exp(-t/RC) is V/R, so V = peak x R; then Q = C V, E = C V^2 / 2
     # (textbook RC relations)
     out["ind_hbm_volts"] = out["abs_peak_a"] * HBM_OHMS
@@ -278,17 +305,19 @@ def _chunk(
     base_hi: int,
     noise_factor: float,
     pulse_fraction: float,
-    trunc_fraction: float,
     code_lo: np.ndarray,
     code_hi: np.ndarray,
     out: dict[str, np.ndarray],
     sl: slice,
+    trig_index: np.ndarray,
 ) -> None:
-    """Metrics of one chunk of rows in code units (samples for times), written into ``out``."""
+    """Metrics of one chunk of rows in code units (samples for times), written into ``out``.
+    ``trig_index``: the trigger's (fractional) sample index per row."""
     r, n = raw.shape
     rows = np.arange(r)
     pre = raw[:, base_lo:base_hi]
     base, noise = baseline_noise(pre)
+    u_base, corr = baseline_uncertainty(pre, base, noise)
     vmax, vmin = raw.max(axis=1), raw.min(axis=1)
     if integer:
         out["flag_clipped"][sl] = (vmax >= code_hi) | (vmin <= code_lo)
@@ -311,12 +340,25 @@ def _chunk(
     ok = ~below
 
     out["baseline_a"][sl] = base
+    out["baseline_u_a"][sl] = u_base
     out["noise_a"][sl] = noise
-    # float32 sums in SIMD blocks: relative error well under 1e-3 over 1e5 samples
-    out["charge_c"][sl] = pol * np.einsum("ij->i", y)
+    # the record's charge from the end of the baseline window on, in float64: integer codes
+    # summed exactly, the baseline subtracted once (a float32 baseline times 10^5 samples
+    # would cost tens of nanocoulombs)
+    n_int = n - base_hi
+    if integer:
+        total = raw[:, base_hi:].sum(axis=1, dtype=np.int64).astype(np.float64)
+    else:
+        total = raw[:, base_hi:].sum(axis=1, dtype=np.float64)
+    q_rec = total - base * n_int
+    out["charge_record_c"][sl] = q_rec
+    out["charge_c"][sl] = q_rec
+    out["charge_tail_c"][sl] = 0.0
+    out["charge_u_c"][sl] = u_base * n_int
     out["energy_j"][sl] = np.einsum("ij,ij->i", y, y)
     out["flag_below_noise"][sl] = below
     if not ok.any():
+        _whole_charge(raw, base, pol, noise, u_base, corr, p, trig_index, n_int, ok, out, sl)
         return
     out["polarity"][sl] = np.where(ok, pol, 0).astype(np.int8)
     out["abs_peak_a"][sl] = np.where(ok, ip, np.nan)
@@ -339,20 +381,96 @@ def _chunk(
     out["decay_s"][sl] = np.where(ok, t_after[:, 2] - p, nan)
     end = np.where(k_after[:, 3] >= 0, k_after[:, 3], n)
     tau = fit_tail(y, np.where(k_after[:, 0] >= 0, k_after[:, 0], n), end)
-    out["tau_s"][sl] = np.where(ok, tau, nan)
 
-    tail = max(4, n // 200)
-    tail_mean = y[:, n - tail :].mean(axis=1, dtype=np.float64)
-    out["flag_truncated"][sl] = ok & (tail_mean > trunc_fraction * ip)
+    out["tau_s"][sl] = np.where(ok, tau, nan)
 
     # Thresholds: the upper one at least (noise_factor + 3) x noise and the lower one at
     # least 3 x noise, so there are noise_factor x noise of hysteresis (noise on a slow tail
     # is not a new pulse) and the baseline reads firmly as "under" (few state changes).
     thr_hi = np.maximum(pulse_fraction * ip, (noise_factor + 3.0) * noise)
     thr_lo = np.maximum(np.minimum(0.5 * thr_hi, thr_hi - noise_factor * noise), 3.0 * noise)
+    # the tail fit starts where the pulse has fallen to its floor (10 % of the peak, at least
+    # 3 x noise), and after the last pulse when a bounce made the current rise again (above
+    # the pulse threshold, at least 9 x noise: never noise)
+    start = end.copy()
+    for i in range(r):
+        hi_idx = np.flatnonzero(y[i, end[i] :] > thr_hi[i]) if end[i] < n else []
+        if len(hi_idx):
+            after = end[i] + int(hi_idx[-1]) + 1
+            below = np.flatnonzero(y[i, after:] < floor[i])
+            start[i] = after + int(below[0]) if below.size else after
+    _whole_charge(raw, base, pol, noise, u_base, corr, start, trig_index, n_int, ok, out, sl)
     above, under = pulse_masks(raw, y, base, pol, thr_hi, thr_lo, integer)
     # an event whose peak clears the noise but not the upper threshold is one pulse
     out["pulses"][sl] = np.where(ok, np.maximum(count_pulses(above, under), 1), 0)
+
+
+def _whole_charge(
+    raw: np.ndarray,
+    base: np.ndarray,
+    pol: np.ndarray,
+    noise: np.ndarray,
+    u_base: np.ndarray,
+    corr: np.ndarray,
+    p: np.ndarray,
+    trig_index: np.ndarray,
+    n_int: int,
+    ok: np.ndarray,
+    out: dict[str, np.ndarray],
+    sl: slice,
+) -> None:
+    """The tail beyond the record (rig.analysis.wholecharge), per event of the chunk, in
+    code x samples: whole charge, its standard uncertainty, the fitted terms (charge from
+    the trigger on, slowest first) and the truncated flag (tail share above
+    TAIL_SHARE_LIMIT)."""
+    n = raw.shape[1]
+    idx = np.arange(sl.start, sl.stop)
+    for i in range(raw.shape[0]):
+        trig = float(np.clip(trig_index[i], 0.0, n - 1))
+        # the fit starts after the fast part: past the peak and 1 % of the post-trigger span
+        # (a tail far below the per-sample noise is still fitted: its bins average it out)
+        start = int(np.ceil(trig + 0.01 * (n - trig)))
+        if ok[i]:
+            start = max(start, int(p[i]) + 4)  # p: where the pulse has fallen to its floor
+        if start > n - 16:
+            if ok[i] and p[i] >= n:  # the pulse is still above its floor at the record's end
+                k = idx[i]
+                out["charge_tail_c"][k] = out["charge_u_c"][k] = np.nan
+                out["flag_truncated"][k] = True
+            continue
+        fit, start = fit_tail_terms(
+            raw[i], float(base[i]), float(pol[i]), start, noise[i], corr[i], u_base[i], n_int
+        )
+        k = idx[i]
+        if fit.unmeasured:
+            # the record is far too short to measure the tail's time constant, or the sum of
+            # exponentials does not describe it: the whole charge is unknown; charge_c keeps
+            # the record's integral, flagged truncated
+            out["charge_tail_c"][k] = np.nan
+            out["charge_u_c"][k] = np.nan
+            out["tail_terms"][k] = fit.terms
+            out["flag_truncated"][k] = True
+            continue
+        q_rec = out["charge_record_c"][k]
+        q_tail = pol[i] * fit.beyond  # beyond the record's end
+        q = q_rec + pol[i] * fit.tail  # + the tail, less the baseline offset the fit found
+        out["charge_tail_c"][k] = q_tail
+        out["charge_c"][k] = q
+        out["charge_u_c"][k] = fit.tail_u
+        out["tail_terms"][k] = fit.terms
+        out["tail_start"][k] = start
+        lag = (start - 0.5) - trig  # from the trigger to the fit's time origin, samples
+        for j in range(min(fit.terms, MAX_TERMS)):
+            tau = float(fit.taus[j])
+            out[f"term{j + 1}_tau_s"][k] = tau
+            # the term's charge from the trigger on (extrapolated back over the fit's lag;
+            # meaningless for a term much faster than that lag: NaN)
+            if lag / tau < 50.0:
+                q_j = pol[i] * fit.amps[j] * tau * np.exp(lag / tau)
+                out[f"term{j + 1}_charge_c"][k] = q_j
+        with np.errstate(divide="ignore", invalid="ignore"):
+            share = abs(q_tail) / abs(q) if q != 0 else np.inf
+        out["flag_truncated"][k] = bool(share > TAIL_SHARE_LIMIT or not np.isfinite(share))
 
 
 def quick_metrics(wf: Waveform, channel: str = "current") -> dict[str, Any]:

@@ -91,8 +91,10 @@ def group_waveforms(
 ) -> tuple[np.ndarray, np.ndarray, pd.DataFrame]:
     """Waveforms of the captured events that match ``filters`` (column=value; a list or tuple
     matches any of its values), stacked: (t in s, values in SI units (events x samples),
-    rows of those events). All matching records must share length, dt and t0: in a run with
-    several scope captures, filter on ``capture`` too."""
+    rows of those events). All matching records must share length and dt, and their t0 may
+    differ by less than one sample (a free-running sample clock): such a record is
+    interpolated linearly onto the first's time grid. In a run with several scope captures,
+    filter on ``capture`` too."""
     run_dir = Path(run_dir)
     df = load_run(run_dir)
     sel = df["status"] == "captured"
@@ -118,11 +120,14 @@ def group_waveforms(
         if first is None:
             first = wf
             values = np.empty((len(rows), wf.n))
-        elif (wf.n, wf.dt, wf.t0) != (first.n, first.dt, first.t0):
+        elif (wf.n, wf.dt) != (first.n, first.dt) or abs(wf.t0 - first.t0) >= first.dt:
             raise RunFolderError(
                 f"{path}: record ({wf.n} samples, dt {wf.dt}, t0 {wf.t0}) "
                 "differs from the group's first; filter further"
             )
+        if wf.t0 != first.t0:
+            values[k] = np.interp(first.time(), wf.time(), wf.values(channel))
+            continue
         values[k] = wf.values(channel)
     assert first is not None and values is not None
     return first.time(), values, rows

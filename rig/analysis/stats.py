@@ -89,6 +89,9 @@ GROUPS_COLUMNS: tuple[str, ...] = (
 DEFAULT_METRICS: tuple[str, ...] = (
     "peak_a",
     "charge_c",
+    "charge_record_c",
+    "charge_tail_c",
+    "charge_u_c",
     "energy_j",
     "rise_s",
     "decay_s",
@@ -97,10 +100,24 @@ DEFAULT_METRICS: tuple[str, ...] = (
     "pulses",
     "c_equiv_f",
     "r_equiv_ohm",
+    "term1_tau_s",
+    "term1_charge_c",
     "ind_hbm_volts",
     "ind_iec61010_charge_ratio",
 )
-SIGNED = frozenset({"peak_a", "charge_c"})
+SIGNED = frozenset({"peak_a", "charge_c", "charge_record_c", "charge_tail_c"})
+
+
+def _expected_polarity(grp: pd.DataFrame, captured: pd.Series, v: np.ndarray) -> float:
+    """+1 or -1: the sign most of the group's captured events discharge with (their
+    ``polarity`` column, or without one the signs of the values ``v``; +1 if none)."""
+    if "polarity" not in grp:
+        return -1.0 if np.sum(np.sign(v)) < 0 else 1.0
+    pol = pd.to_numeric(grp.loc[captured, "polarity"], errors="coerce").to_numpy(float)
+    pol = pol[np.isfinite(pol) & (pol != 0)]
+    return -1.0 if pol.size and np.sum(pol) < 0 else 1.0
+
+
 STATISTICS = ("utl", "max", "p99", "p95", "median", "mean")
 MIN_EVENTS = 5
 
@@ -323,7 +340,10 @@ def group_stats(
             v = pd.to_numeric(grp.loc[captured[index], name], errors="coerce").to_numpy(float)
             v = v[np.isfinite(v)]
             if name in SIGNED:
-                v = np.abs(v)
+                # signed metrics are taken in the group's expected polarity (the majority
+                # polarity of its events), never folded by abs(): an event of the wrong
+                # sign stays negative and pulls the summary down, as it should
+                v = v * _expected_polarity(grp, captured[index], v)
             summ = _summary(v, confidence, coverage, rng, n_boot)
             base = {
                 **gdict,

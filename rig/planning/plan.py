@@ -239,12 +239,19 @@ def _si(value: float, unit: str) -> str:
     return f"{value / 10**exp:.3g} {prefixes[exp]}{unit}"
 
 
-def safety_review(plan: Plan, bench: Bench, sequence: Sequence) -> list[Finding]:
+def safety_review(
+    plan: Plan,
+    bench: Bench,
+    sequence: Sequence,
+    time_constants: dict[tuple[int, str], float] | None = None,
+) -> list[Finding]:
     """Check the plan against the bench's limits and the physics of its charge and bleed paths.
 
     "stop" findings forbid the run; "warn" findings need the operator's attention; "info"
     findings say what was assumed. Capacitances come from the meters' simulated netlists
     (sum of all capacitors: an upper estimate); for real meters without one they are unknown.
+    ``time_constants`` maps (meter index, mode) to the slowest discharge time constant, s
+    (``rig.runner.opener.meter_time_constants``): a capture shorter than 5 of them is named.
     """
     out: list[Finding] = []
     lim = bench.limits
@@ -320,6 +327,8 @@ def safety_review(plan: Plan, bench: Bench, sequence: Sequence) -> list[Finding]
     # 4-6. per meter: dwell vs 5 tau, stored charge, bleed time vs hold
     for meter in sequence.meters:
         out.extend(_meter_findings(meter, plan, bench, sequence, r_charge))
+    # 6b. record length against the slowest discharge time constant
+    out.extend(record_findings(sequence, time_constants or {}))
     # 7. how the residual is checked
     if bench.divider_ratio is not None:
         out.append(
@@ -343,6 +352,41 @@ def safety_review(plan: Plan, bench: Bench, sequence: Sequence) -> list[Finding]
                 "warn",
                 "no divider probe fitted: the residual is only inferred from "
                 "the bleed time, never measured",
+            )
+        )
+    return out
+
+
+#: a record should run this many slowest time constants past the trigger (the tail beyond
+#: then holds under 1 % of the charge: exp(-5) = 0.7 %, textbook exponential)
+RECORD_TAUS = 5.0
+
+
+def record_findings(
+    sequence: Sequence, time_constants: dict[tuple[int, str], float]
+) -> list[Finding]:
+    """A warning per meter and mode whose longest capture ends less than RECORD_TAUS slowest
+    time constants after the trigger, naming the capture and the record it would need."""
+    out: list[Finding] = []
+    for (k, mode), tau in sorted(time_constants.items()):
+        if not (math.isfinite(tau) and tau > 0):
+            continue
+        spans = {c: sequence.scope_for(mode, c) for c in sequence.captures}
+        name = max(spans, key=lambda c: spans[c].record_s)
+        s = spans[name]
+        post = s.record_s + min(0.0, s.trigger_offset_s)
+        need = RECORD_TAUS * tau
+        if post >= need:
+            continue
+        points = math.ceil((need - min(0.0, s.trigger_offset_s)) / s.sample_interval_s)
+        out.append(
+            Finding(
+                "warn",
+                f"{sequence.meters[k].label} {mode}: slowest discharge time constant "
+                f"{_si(tau, 's')}; capture {name!r} records {_si(post, 's')} after the "
+                f"trigger, less than {RECORD_TAUS:g} time constants ({_si(need, 's')}): "
+                f"the charge beyond the record is extrapolated and flagged; set points >= "
+                f"{points} at {_si(s.sample_interval_s, 's')}",
             )
         )
     return out
@@ -438,7 +482,12 @@ def _duration_text(seconds: float) -> str:
     return f"{s} s"
 
 
-def describe(plan: Plan, bench: Bench, sequence: Sequence) -> str:
+def describe(
+    plan: Plan,
+    bench: Bench,
+    sequence: Sequence,
+    time_constants: dict[tuple[int, str], float] | None = None,
+) -> str:
     """The summary `rig check` prints: events, counts per meter and mode, changes, highest
     voltage, estimated duration and the safety review's findings."""
     lines = [
@@ -486,7 +535,7 @@ def describe(plan: Plan, bench: Bench, sequence: Sequence) -> str:
             else ""
         ),
     ]
-    findings = safety_review(plan, bench, sequence)
+    findings = safety_review(plan, bench, sequence, time_constants)
     lines.append("safety review:")
     order = {"stop": 0, "warn": 1, "info": 2}
     for f in sorted(findings, key=lambda f: order[f.level]):

@@ -80,6 +80,9 @@ class ScopeSettings:
     # out, load_sequence sets 2.2 x the highest charge voltage (offset 0: covers +-1.1 x V)
     voltage_range_volts: float = 2200.0
     acquisition_timeout_s: float = 2.0  # how long the runner waits for a trigger
+    # "point": each sample the input at its instant; "mean": the mean of the input over the
+    # sample's interval, so a pulse shorter than the interval keeps its charge
+    sampling: str = "point"
 
     @property
     def record_s(self) -> float:
@@ -196,6 +199,31 @@ def _read_meters(top: Table, bench: Bench, base_dir: Path) -> tuple[MeterSpec, .
     return tuple(meters)
 
 
+def _check_sampling(
+    st: Table,
+    bench: Bench,
+    grid: dict[str, dict[str, ScopeSettings]],
+    captures: dict[str, ScopeSettings],
+) -> None:
+    """``sampling = "mean"`` needs the scope profile's optional ``set_sampling`` operation."""
+    settings = [*captures.values(), *(s for g in grid.values() for s in g.values())]
+    if not any(s.sampling == "mean" for s in settings):
+        return
+    spec = bench.instruments.get("scope")
+    if spec is None:
+        return
+    try:
+        data = tomllib.loads(Path(spec.profile).read_text(encoding="utf-8"))
+        ok = "set_sampling" in data["scope"]
+    except (OSError, tomllib.TOMLDecodeError, KeyError, TypeError):
+        return  # the profile's own loader reports a broken profile
+    if not ok:
+        raise st.error(
+            "sampling",
+            f'"mean" needs the operation set_sampling in the scope profile {spec.profile}',
+        )
+
+
 def _meter_functions(bench: Bench) -> tuple[str, ...] | None:
     """Mode names a SCPI-controlled meter's profile knows (None: no restriction)."""
     spec = bench.instruments.get("meter")
@@ -223,6 +251,8 @@ def _read_scope(t: Table, base: ScopeSettings) -> ScopeSettings:
             values[name] = t.string(name, default, choices=("POSitive", "NEGative", "EITHer"))
         elif name == "coupling":
             values[name] = t.string(name, default, choices=("DC", "AC"))
+        elif name == "sampling":
+            values[name] = t.string(name, default, choices=("point", "mean"))
         elif name == "bandwidth_hz":
             values[name] = _optional_bandwidth(t, name) if t.has(name) else default
         elif name in ("trigger_offset_s", "current_offset_amps", "trigger_level_amps"):
@@ -340,6 +370,7 @@ def load_sequence(path: str | Path, bench: Bench) -> Sequence:
     scope = _read_scope(st, ScopeSettings(voltage_range_volts=2.2 * max(volts)))
     captures, scope_captures, scope_grid = _read_captures(st, scope, modes)
     scope_modes = dict(scope_grid[captures[0]])
+    _check_sampling(st, bench, scope_grid, scope_captures)
     limits = tuple(
         _read_limit(t, modes, volts, loads, captures)
         for t in top.tables(

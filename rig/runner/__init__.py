@@ -21,7 +21,9 @@ from rig.runner.interlocks import (
 )
 from rig.runner.opener import (
     OpenBench,
+    check_meter_netlists,
     load_bench,
+    meter_time_constants,
     open_bench,
     serve_simulated_bench,
 )
@@ -37,7 +39,9 @@ __all__ = [
     "Runner",
     "SafeReport",
     "Terminated",
+    "check_meter_netlists",
     "load_bench",
+    "meter_time_constants",
     "open_bench",
     "serve_simulated_bench",
 ]

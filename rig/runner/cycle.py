@@ -390,6 +390,7 @@ class Runner:
                 offset_volts=0.0,
             )
         sc.configure_acquisition(s.sample_interval_s, s.points, s.trigger_offset_s)
+        sc.set_sampling(s.sampling)
         sc.configure_trigger(1, s.trigger_level_amps * vpa, s.trigger_slope)
         sc.set_format(s.bits)  # the byte order the profile prefers
 

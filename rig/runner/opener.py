@@ -32,7 +32,14 @@ from rig.planning.benchfile import Bench, read_bench_file
 from rigbase.errors import FileFormatError
 from rigbase.tomlcheck import jsonable
 
-__all__ = ["OpenBench", "load_bench", "open_bench", "serve_simulated_bench"]
+__all__ = [
+    "OpenBench",
+    "check_meter_netlists",
+    "load_bench",
+    "meter_time_constants",
+    "open_bench",
+    "serve_simulated_bench",
+]
 
 log = logging.getLogger(__name__)
 
@@ -129,6 +136,38 @@ def _resolve_simulation(bench: Bench) -> Bench:
     dialects.update(cfg.dialects)
     sim = replace(sim, clock=cfg.clock, world=cfg.world, dialects=dialects)
     return replace(bench, simulation=sim, raw=raw)
+
+
+def check_meter_netlists(sequence: Any) -> None:
+    """Check every meter netlist the sequence names exactly as a run will read it (keys,
+    units, values; dangling nodes, nodes without a DC path): the one check ``rig check`` and
+    ``rig run`` share. FileFormatError names the netlist, the key and the problem."""
+    from drivers.sim.meterchecks import check_netlist
+
+    for meter in sequence.meters:
+        if meter.sim_model is not None:
+            check_netlist(meter.sim_model)
+
+
+def meter_time_constants(bench: Bench, sequence: Any) -> dict[tuple[int, str], float]:
+    """Slowest discharge time constant (s) per (meter index, mode), from each meter's netlist
+    on the simulated bench (the longest over the sequence's loads); empty on real hardware,
+    where no netlist describes the meter."""
+    bench = _resolve_simulation(bench)
+    if bench.simulation is None or bench.simulation.world is None:
+        return {}
+    from drivers.sim.meterchecks import discharge_time_constants
+
+    out: dict[tuple[int, str], float] = {}
+    for k, meter in enumerate(sequence.meters):
+        if meter.sim_model is None:
+            continue
+        for load in sequence.loads:
+            taus = discharge_time_constants(bench.simulation.world, meter.sim_model, load)
+            for mode in meter.modes:
+                tau = taus.get(mode, float("nan"))
+                out[(k, mode)] = max(out.get((k, mode), 0.0), tau)
+    return out
 
 
 @contextmanager

@@ -33,11 +33,22 @@ METRIC_COLUMNS: tuple[str, ...] = (
     "ind_hbm_charge_c",
     "ind_hbm_energy_j",
     "ind_iec61010_charge_ratio",
+    "charge_record_c",
+    "charge_tail_c",
+    "charge_u_c",
+    "baseline_u_a",
+    "tail_terms",
+    "term1_tau_s",
+    "term1_charge_c",
+    "term2_tau_s",
+    "term2_charge_c",
+    "term3_tau_s",
+    "term3_charge_c",
 )
 
 #: Metrics a sequence's [[limits]] may name: the measured quantities (not flags or polarity).
 LIMIT_METRICS: tuple[str, ...] = tuple(
-    c for c in METRIC_COLUMNS if not c.startswith("flag_") and c != "polarity"
+    c for c in METRIC_COLUMNS if not c.startswith("flag_") and c not in ("polarity", "tail_terms")
 )
 
 #: The keys of a group: compare drops the serial, self-discharge drops the delay.

@@ -17,7 +17,7 @@ import math
 
 import numpy as np
 
-from drivers.sim.instruments.acquisition import N_INPUTS, Acquisition, InputSettings
+from drivers.sim.instruments.acquisition import N_INPUTS, SAMPLINGS, Acquisition, InputSettings
 from drivers.sim.interfaces import World
 from drivers.sim.scpi import Block, Call, CommandRejected, ScpiDevice, format_number
 
@@ -55,6 +55,7 @@ class SimScope(ScpiDevice):
         self.dt = 1e-9
         self.points = 10_000
         self.trigger_offset_s = 0.0
+        self.sampling = "POINt"
         self.trig_source = 1
         self.trig_level = 0.0
         self.trig_slope = "POSitive"
@@ -103,6 +104,11 @@ class SimScope(ScpiDevice):
             "[SENSe]:SWEep:OFFSet:TIME",
             set=self._set_trigger_offset,
             query=lambda c: format_number(self.trigger_offset_s),
+        )
+        a(
+            "[SENSe]:SWEep:SAMPling",
+            set=self._set_sampling,
+            query=lambda c: self.sampling.upper()[:4],
         )
         trig = "TRIGger[:SEQuence]"
         a(f"{trig}:SOURce", set=self._set_source, query=lambda c: f"INT{self.trig_source}")
@@ -170,6 +176,9 @@ class SimScope(ScpiDevice):
     def _set_trigger_offset(self, call: Call) -> None:
         self.trigger_offset_s = call.params[0].number("S", low=-10.0, high=10.0, default=0.0)
 
+    def _set_sampling(self, call: Call) -> None:
+        self.sampling = call.params[0].choice(*SAMPLINGS)
+
     def _set_source(self, call: Call) -> None:
         word = call.params[0].choice("INTernal#")
         n = int(word[len("INTernal") :])
@@ -204,6 +213,7 @@ class SimScope(ScpiDevice):
     def _arm(self, t_arm: float) -> None:
         self.acq = Acquisition(
             t_arm=t_arm,
+            phase=float(self.rng.random()),  # the sample clock runs freely
             dt=self.dt,
             points=self.points,
             trigger_offset_s=self.trigger_offset_s,
@@ -212,6 +222,7 @@ class SimScope(ScpiDevice):
             slope=self.trig_slope,
             bandwidths=self._bandwidths(),
             inputs=tuple(InputSettings(**vars(i)) for i in self.inputs),
+            sampling=self.sampling,
         )
         logger.debug("%s: armed at %s", self.identity, t_arm)
 
@@ -252,7 +263,7 @@ class SimScope(ScpiDevice):
             self.complete = acq
             self.acq = None
             if self.continuous:
-                self._arm(acq.t_last())
+                self._arm(acq.t_first() + (acq.points - 1) * acq.dt)
 
     def operation_condition(self) -> int:
         """SCPI-1999 STATus:OPERation bits: 5 (32) waiting for trigger, 3 (8) measuring."""
@@ -299,7 +310,7 @@ class SimScope(ScpiDevice):
         n = self._channel_param(call)
         acq, _ = self._record(n)
         volts_per_code, reference_volts = self._scaling(acq, n)
-        fields = (acq.points, acq.dt, acq.trigger_offset_s, volts_per_code, reference_volts, 0)
+        fields = (acq.points, acq.dt, acq.first_sample_s(), volts_per_code, reference_volts, 0)
         return ",".join(format_number(f) for f in fields)
 
     def _measure_dc(self, call: Call) -> str:
