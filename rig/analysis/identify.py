@@ -217,9 +217,12 @@ def _model(theta: np.ndarray, v0: float, ds: DataSet, shift: float = 0.0) -> np.
 
 def _residuals(full: np.ndarray, v0: float, sets: list[DataSet]) -> np.ndarray:
     theta, shifts = full[: -len(sets)], full[-len(sets) :]
-    return np.concatenate(
-        [(_model(theta, v0, d, s) - d.y) / d.sigma for d, s in zip(sets, shifts, strict=True)]
-    )
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        r = np.concatenate(
+            [(_model(theta, v0, d, s) - d.y) / d.sigma for d, s in zip(sets, shifts, strict=True)]
+        )
+    # a trial step whose model is not finite is a very bad fit, not an error: the fit steps back
+    return np.where(np.isfinite(r), r, 1e6)
 
 
 def _starts(v0: float, sets: list[DataSet], order: int) -> list[np.ndarray]:

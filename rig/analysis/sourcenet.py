@@ -118,7 +118,9 @@ class FosterSource:
 
 
 def _matrix(src_theta: np.ndarray, load_ohms: float, load_henry: float, pole_hz: float | None):
-    p = np.exp(src_theta)
+    # log-parameters; a trial step of the fit far outside any physical value (e^60 = 1e26)
+    # is held at that bound so the model stays finite and the fit steps back
+    p = np.exp(np.clip(src_theta, -60.0, 60.0))
     ls, r, c = p[0], p[1::2], p[2::2]
     k = r.size
     g = 1.0 / r

@@ -41,8 +41,8 @@ def metric_family(name: str) -> str:
     """ "fast", "tail" or "any" for a metric column name."""
     if name in _FAST or name.startswith("ind_hbm"):
         return "fast"
-    if name in _TAIL or "charge" in name:
-        return "tail"
+    if name in _TAIL or "charge" in name or name == "tail_terms" or name.startswith("term"):
+        return "tail"  # the charge columns and the fitted tail's terms
     return "any"
 
 

@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from drivers.dialect import DRIVER_WORDS
-from drivers.profile import OPERATIONS, OPTIONAL, PROFILE_DIR, Profile
+from drivers.profile import OPERATIONS, OPTIONAL, OPTIONAL_ALWAYS, PROFILE_DIR, Profile
 from drivers.profiledoc import check_profile, page
 from rigbase.errors import ProfileError
 
@@ -168,4 +168,4 @@ def test_page_lists_every_operation_with_its_text() -> None:
         assert f"| {op} |" in text
     assert "`RECord:LENGth? CHANnel{ch}`" in text and "Not available: " in text
     missing = set(OPERATIONS["scope"]) - set(p.templates["scope"])
-    assert missing <= set(OPTIONAL["scope"]) | {"force_trigger"}
+    assert missing <= set(OPTIONAL["scope"]) | OPTIONAL_ALWAYS

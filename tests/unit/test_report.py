@@ -295,6 +295,9 @@ def test_flagged_events_listed(report):
 _FAST_METRICS = {"peak_a", "abs_peak_a", "rise_s", "decay_s", "fwhm_s", "pulses", "energy_j"}
 _FAST_METRICS |= {"ind_hbm_volts", "t_peak_s"}
 _TAIL_METRICS = {"charge_c", "tau_s", "c_equiv_f", "r_equiv_ohm", "ind_iec61010_charge_ratio"}
+# the whole-discharge charge's parts and the fitted tail's terms: the long record measures them
+_TAIL_METRICS |= {"charge_record_c", "charge_tail_c", "charge_u_c", "tail_terms"}
+_TAIL_METRICS |= {f"term{k}_{q}" for k in (1, 2, 3) for q in ("tau_s", "charge_c")}
 
 
 def _expected_group_rows(g: pd.DataFrame, fine: str | None = None, long: str | None = None):
