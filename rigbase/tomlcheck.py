@@ -20,7 +20,16 @@ from typing import Any
 
 from rigbase.errors import FileFormatError
 
-__all__ = ["REQUIRED", "Context", "Table", "jsonable", "parse_si", "read_toml", "resolve_file"]
+__all__ = [
+    "BOM_TEXT",
+    "REQUIRED",
+    "Context",
+    "Table",
+    "jsonable",
+    "parse_si",
+    "read_toml",
+    "resolve_file",
+]
 
 # --------------------------------------------------------------------------------------------
 # Numbers with SI prefixes
@@ -205,6 +214,9 @@ class Context:
         return FileFormatError(self.path, _format_key(key), problem, self.line_of(key))
 
 
+BOM_TEXT = "starts with a UTF-8 byte-order mark (BOM): save it as UTF-8 without one"
+
+
 def read_toml(path: str | Path, what: str) -> tuple[Context, dict[str, Any]]:
     path = Path(path)
     try:
@@ -213,6 +225,8 @@ def read_toml(path: str | Path, what: str) -> tuple[Context, dict[str, Any]]:
         raise FileFormatError(path, "", f"{what} file not found") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise FileFormatError(path, "", f"cannot read {what} file: {exc}") from None
+    if text.startswith("\ufeff"):
+        raise FileFormatError(path, "", f"{what} file {BOM_TEXT}", line=1)
     ctx = Context(path, text)
     try:
         data = tomllib.loads(text)

@@ -28,6 +28,7 @@ from scipy import stats as sps
 
 from rig.analysis.stats import GROUP_KEYS, bootstrap_ci, capture_roles, with_capture
 from rig.store.runfolder import read_manifest
+from rig.store.tables import read_parquet_table
 from rigbase.errors import RunFolderError
 
 __all__ = [
@@ -147,7 +148,7 @@ def compare_samples(
 def _load_metrics(run_dir: Path) -> pd.DataFrame:
     path = run_dir / "metrics.parquet"
     if path.exists():
-        return with_capture(pd.read_parquet(path))
+        return with_capture(read_parquet_table(path))
     from rig.analysis.analyze import compute_metrics
 
     log.info("%s is not analysed; computing its metrics in memory", run_dir)
