@@ -152,7 +152,10 @@ def _finish(outcome: Any, run_dir: Path, report: bool) -> int:
     if outcome.error:
         _out(f"error: {outcome.error}")
     if outcome.late_signal:
-        _out(f"rig: interrupted by {outcome.late_signal} after the last event")
+        _out(
+            f"rig: interrupted by {outcome.late_signal} after the last event; "
+            f"{run_dir} holds {outcome.done} journalled events"
+        )
         return EXIT_INTERRUPTED
     if outcome.empty_groups:
         _out("no event captured in group(s): " + "; ".join(outcome.empty_groups))
