@@ -252,7 +252,7 @@ def cmd_resume(args: argparse.Namespace) -> int:
     read_manifest(run)  # "is this a run folder?" before anything else
     bench = load_bench(run / "bench.toml")
     if args.bench:
-        bench = adopt_bench(run, bench, load_bench(args.bench), Path(args.bench))
+        bench = adopt_bench(run, load_bench(args.bench), Path(args.bench))
     seq = load_sequence(run / "sequence.toml", bench)
     plan = checked_plan(seq, bench)
     stored = [p["key"] for p in read_plan(run)]

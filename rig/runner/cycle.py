@@ -213,14 +213,20 @@ class Runner:
                 safe = self._make_safe()
                 # the journal is the count: a signal between a journal line's fsync and the
                 # writer's own tally must not make the printed count differ from the file's
-                done = len(self.writer.reload_done())
+                try:
+                    done = len(self.writer.reload_done())
+                except (OSError, ValueError):  # an unreadable journal: keep the writer's tally
+                    done = len(self.writer.done)
                 if exit_path is ExitPath.NORMAL and done == planned:
                     status = "complete"
                 elif exit_path in (ExitPath.CTRL_C, ExitPath.SIGTERM):
                     status = "interrupted"
                 else:
                     status = "failed"
-                empty = self._empty_groups() if status == "complete" else []
+                try:
+                    empty = self._empty_groups() if status == "complete" else []
+                except (OSError, ValueError):
+                    empty = []
                 self.writer.write_event_table()
                 self.writer.update_manifest(
                     status=status,

@@ -11,6 +11,7 @@ physics must be identical. The run folder keeps the first bench file as
 from __future__ import annotations
 
 import shutil
+import tomllib
 from pathlib import Path
 from typing import Any
 
@@ -39,10 +40,12 @@ def bench_differences(old: dict[str, Any], new: dict[str, Any], prefix: str = ""
     return out
 
 
-def adopt_bench(run: Path, original: Bench, corrected: Bench, path: Path) -> Bench:
-    """``corrected`` if it measures the same way as ``original``, else FileFormatError
-    naming the corrected file and what differs."""
-    diff = bench_differences(original.raw, corrected.raw)
+def adopt_bench(run: Path, corrected: Bench, path: Path) -> Bench:
+    """``corrected`` (read from ``path``) if it measures the same way as the run's own
+    ``bench.toml``, else FileFormatError naming the corrected file and what differs. Both
+    files are compared as written (keys as in the file), after both passed the bench checks."""
+    original = tomllib.loads((run / "bench.toml").read_text(encoding="utf-8"))
+    diff = bench_differences(original, tomllib.loads(path.read_text(encoding="utf-8")))
     if diff:
         raise FileFormatError(
             path,

@@ -196,3 +196,12 @@ def test_lock_file_names_the_holder(tmp_path):
     with RunLock(tmp_path, "analyze"):
         holder = json.loads((tmp_path / ".lock").read_text())
         assert holder["pid"] == os.getpid() and holder["purpose"] == "analyze"
+
+
+def test_verify_finds_a_complete_run_with_missing_events(tmp_path):
+    run = _run(tmp_path, events=2)
+    assert verify_run(run).ok  # interrupted: two of four, resumable
+    m = read_manifest(run)
+    (run / "manifest.json").write_text(json.dumps({**m, "status": "complete"}))
+    v = verify_run(run)
+    assert any("status complete but 2 planned events are missing" in p for p in v.problems)
