@@ -38,17 +38,24 @@ FAULTS = [
 
 
 class Injector(Observer):
-    """Injects one fault at event ``at`` and phase ``phase``; counts the events it saw."""
+    """Injects a random fault at a random later event and phase, again and again (a fault on
+    an instrument the plan no longer uses does not stop the run); logs what it injected."""
 
-    def __init__(self, bench, at: int, phase: Phase, fault) -> None:
-        self.bench, self.at, self.when, self.fault = bench, at, phase, fault
-        self.fired = False
+    def __init__(self, bench, rng: np.random.Generator, first: int, log: list) -> None:
+        self.bench, self.rng, self.log = bench, rng, log
+        self._arm(first)
+
+    def _arm(self, after: int) -> None:
+        self.at = after + int(self.rng.integers(1, 400))
+        self.when = PHASES[int(self.rng.integers(0, len(PHASES)))]
+        self.fault = FAULTS[int(self.rng.integers(0, len(FAULTS)))]
 
     def phase(self, event, phase) -> None:
-        if self.fired or event.index < self.at or phase is not self.when:
+        if event.index < self.at or phase is not self.when:
             return
-        self.fired = True
         role, what = self.fault
+        self.log.append([role, str(what), phase.value, event.index, "?"])
+        self._arm(event.index)
         if what == "ctrl-c":
             raise KeyboardInterrupt
         self.bench.sim.servers[role].faults = Faults(**what)
@@ -65,28 +72,25 @@ def test_soak_ten_thousand_events_with_random_faults(tmp_path):
     assert len(plan.events) == EVENTS
     rows = [{**e.to_dict(), "event": e.index} for e in plan.events]
     writer = RunWriter.create(tmp_path / "results", "soak", {"status": "created"}, rows)
-    injected: list[tuple] = []
+    injected: list[list] = []
+    segments = 0
     while True:
+        segments += 1
         done = len(writer.done)
-        remaining = EVENTS - done
-        inject = remaining > 50
         with writer, open_bench(cfg, first_sim_model=seq.meters[0].sim_model) as ob:
-            if inject:
-                k = int(rng.integers(0, len(FAULTS)))
-                at = done + int(rng.integers(1, min(1500, remaining - 1)))
-                phase = PHASES[int(rng.integers(0, len(PHASES)))]
-                obs = Injector(ob, at, phase, FAULTS[k])
-            else:
-                obs = Observer()
+            obs = Injector(ob, rng, done, injected) if EVENTS - done > 50 else Observer()
             outcome = Runner(ob, cfg, seq, plan, writer, observer=obs).run()
             world = ob.sim.world
             truth = {"history": world.history(), "input_volts": world.meter_input_volts()}
-        assert_safe(truth, cfg)  # every stop, faulted or not, ends safe in the world's record
+        if injected and injected[-1][4] == "?":
+            injected[-1][4] = outcome.exit_path.value
+        # every stop ends safe in the world's own record, or the report says "not confirmed"
+        if outcome.safe.reached:
+            assert_safe(truth, cfg)
+        else:
+            assert "NOT CONFIRMED" in outcome.safe.summary()
         journal = read_journal(writer.path)
         assert outcome.done == len(journal) == len({r["event"] for r in journal})
-        if inject and getattr(obs, "fired", False):
-            injected.append((FAULTS[k][0], str(FAULTS[k][1]), phase.value, outcome.exit_path.value))
-            assert outcome.status != "complete" or outcome.done == EVENTS
         if outcome.status == "complete":
             break
         writer = RunWriter.reopen(writer.path)
@@ -94,7 +98,8 @@ def test_soak_ten_thousand_events_with_random_faults(tmp_path):
     assert events == list(range(EVENTS))  # none lost, none duplicated
     v = verify_run(writer.path)
     assert v.ok and v.status == "complete", v.problems
-    assert len(injected) >= 5
-    print(f"soak: {EVENTS} events, {len(injected)} faults injected, 0 lost, 0 duplicated")
+    assert len(injected) >= 20
+    assert_safe(truth, cfg)  # the last stop: the run's end
+    print(f"soak: {EVENTS} events, {len(injected)} faults injected, {segments} segments, 0 lost")
     for row in injected:
         print("  fault:", *row)
