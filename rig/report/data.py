@@ -68,7 +68,8 @@ def _load_groups(run: Path) -> pd.DataFrame:
     for c in _GROUP_KEYS + optional:  # older or partial tables: show what is there
         if c not in g.columns:
             g[c] = np.nan
-    g["verdict"] = g["verdict"].fillna("").astype(str).str.strip()
+    # an all-empty column reads as float: cast before filling (pandas refuses "" in float64)
+    g["verdict"] = g["verdict"].astype(object).fillna("").astype(str).str.strip()
     return with_capture(g)
 
 

@@ -95,3 +95,19 @@ def test_resume_refuses_a_bench_that_changes_the_measurement(tmp_path, capsys, o
     assert key in err and str(changed) in err and "changes the measurement" in err, err
     assert (run / "journal.jsonl").read_bytes() == before
     assert (run / "bench.toml").read_text() == faulty.read_text()
+
+
+def test_scope_that_never_triggers_exits_3_naming_the_group_and_reports_cleanly(tmp_path, capsys):
+    bench = tmp_path / "never.toml"
+    bench.write_text(
+        BENCH.read_text().replace("scope_never_triggers = false", "scope_never_triggers = true")
+    )
+    seq = write_sequence(tmp_path, modes=("AC V",), volts=(500,), reps=3, points=2000)
+    results = tmp_path / "results"
+    args = ["run", str(seq), "--bench", str(bench), "--results", str(results), "--quiet"]
+    assert main(args) == 3
+    out = capsys.readouterr().out
+    assert "no event captured in group(s): T-0001/AC V/main/500.0/short/0.0" in out
+    (run,) = _runs(results)
+    assert read_manifest(run)["groups_without_capture"] == ["T-0001/AC V/main/500.0/short/0.0"]
+    assert main(["report", str(run)]) == 0  # warnings are errors in the tests: none leaks
