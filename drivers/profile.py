@@ -36,6 +36,7 @@ from drivers.operations import (  # the vocabulary, re-exported
     SCALING_FIELDS,
 )
 from rigbase.errors import ProfileError
+from rigbase.tomlcheck import BOM_TEXT
 
 __all__ = [
     "FORMATS",
@@ -101,6 +102,8 @@ class Profile:
             raise ProfileError(path, "", f"no such profile file (shipped: {shipped})") from None
         except OSError as exc:
             raise ProfileError(path, "", f"cannot read: {exc.strerror or exc}") from exc
+        if raw.startswith(b"\xef\xbb\xbf"):
+            raise ProfileError(path, "", "profile " + BOM_TEXT, line=1)
         try:
             data = tomllib.loads(raw.decode("utf-8"))
         except UnicodeDecodeError as exc:

@@ -1,14 +1,17 @@
 """The ``rig`` command: check, run, resume, verify, analyse, compare, report, simulate.
 
 Exit codes: 0 success; 1 a verdict or check said no (failed limits, not equivalent, run
-incomplete); 2 bad input (a file, a key, a value); 3 instrument or interlock trouble;
-130 interrupted by the operator.
+incomplete, a run that failed to start) or an unexpected internal error (one line; -vv shows
+the traceback); 2 bad input (a file, a key, a value, an option) or a run folder another
+process holds; 3 instrument or interlock trouble, or a group in which no event was captured;
+130 interrupted (Ctrl-C or SIGTERM, at any moment, analysis and report included).
 """
 
 from __future__ import annotations
 
 import argparse
 import logging
+import signal
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -51,14 +54,15 @@ def _out(text: str = "") -> None:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    from rig.planning.plan import build_plan, describe, safety_review
+    from rig.planning.limits import checked_plan
+    from rig.planning.plan import describe, safety_review
     from rig.planning.sequence import load_sequence
     from rig.runner.opener import check_meter_netlists, load_bench, meter_time_constants
 
     bench = load_bench(args.bench)
     seq = load_sequence(args.sequence, bench)
     check_meter_netlists(seq)
-    plan = build_plan(seq, bench)
+    plan = checked_plan(seq, bench)  # the same limits `rig run` applies
     taus = meter_time_constants(bench, seq)
     _out(describe(plan, bench, seq, taus))
     findings = safety_review(plan, bench, seq, taus)
@@ -110,12 +114,27 @@ def _execute(
     first = next((e for e in plan.events if e.index not in writer.done), None)
     sim_model = seq.meters[first.meter_index].sim_model if first else None
     opener = open_bench_fn or open_bench
-    with opener(bench_cfg, first_sim_model=sim_model, operator=_operator_prompt) as ob:
-        writer.update_manifest(instruments=ob.identities)
-        display = LiveDisplay(plan, quiet=quiet, charge_captures=_charge_captures(seq))
-        with display:
-            outcome = Runner(ob, bench_cfg, seq, plan, writer, observer=display).run()
+    started = False
+    try:
+        with opener(bench_cfg, first_sim_model=sim_model, operator=_operator_prompt) as ob:
+            writer.update_manifest(instruments=ob.identities)
+            display = LiveDisplay(plan, quiet=quiet, charge_captures=_charge_captures(seq))
+            with display:
+                started = True  # from here Runner.run records how the run ended
+                outcome = Runner(ob, bench_cfg, seq, plan, writer, observer=display).run()
+    except BaseException as exc:
+        if not started:  # the bench never opened: say so in the manifest, for `rig verify`
+            why = "interrupted before the bench opened" if _is_signal(exc) else str(exc)
+            if writer.done:
+                writer.update_manifest(status="interrupted", error=f"resume failed: {why}")
+            else:
+                writer.mark_failed_start(f"{type(exc).__name__}: {why}")
+        raise
     return outcome
+
+
+def _is_signal(exc: BaseException) -> bool:
+    return isinstance(exc, KeyboardInterrupt) or type(exc).__name__ == "Terminated"
 
 
 def _charge_captures(seq: Any) -> frozenset[str]:
@@ -134,6 +153,16 @@ def _finish(outcome: Any, run_dir: Path, report: bool) -> int:
     _out(outcome.safe.summary())
     if outcome.error:
         _out(f"error: {outcome.error}")
+    if outcome.late_signal:
+        _out(
+            f"rig: interrupted by {outcome.late_signal} after the last event; "
+            f"{run_dir} holds {outcome.done} journalled events"
+        )
+        return EXIT_INTERRUPTED
+    if outcome.empty_groups:
+        _out("no event captured in group(s): " + "; ".join(outcome.empty_groups))
+        _out("  the scope did not trigger: check its trigger level, probe and cabling")
+        return EXIT_BENCH
     counts: dict[str, int] = {}
     if outcome.status == "complete" and report:
         counts = _analyse_and_report(run_dir, None)
@@ -180,7 +209,8 @@ def _print_verdicts(groups: Any) -> dict[str, int]:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from rig.planning.plan import build_plan, describe, safety_review
+    from rig.planning.limits import checked_plan
+    from rig.planning.plan import describe, safety_review
     from rig.planning.sequence import load_sequence
     from rig.runner.cycle import host_info
     from rig.runner.opener import check_meter_netlists, load_bench, meter_time_constants
@@ -191,7 +221,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     accepted = check_calibration(bench, _today(), input if sys.stdin.isatty() else None)
     seq = load_sequence(args.sequence, bench)
     check_meter_netlists(seq)
-    plan = build_plan(seq, bench)
+    plan = checked_plan(seq, bench)
     taus = meter_time_constants(bench, seq)
     findings = safety_review(plan, bench, seq, taus)
     _out(CAUTION)  # always, --quiet included
@@ -227,29 +257,38 @@ def cmd_run(args: argparse.Namespace) -> int:
         [{**e.to_dict(), "event": e.index} for e in plan.events],
         inputs={"sequence.toml": Path(args.sequence), "bench.toml": Path(args.bench)},
     )
-    with writer:
+    _RUN["dir"] = writer.path
+    with writer:  # holds the run folder's lock through the analysis and report too
         outcome = _execute(writer, bench, seq, plan, args.quiet)
-    return _finish(outcome, writer.path, report=not args.no_report)
+        return _finish(outcome, writer.path, report=not args.no_report)
 
 
 def cmd_resume(args: argparse.Namespace) -> int:
-    from rig.planning.plan import build_plan
+    from rig.planning.limits import checked_plan
     from rig.planning.sequence import load_sequence
-    from rig.runner.opener import load_bench
+    from rig.runner.opener import check_meter_netlists, load_bench
+    from rig.runner.rebench import adopt_bench, record_bench
     from rig.runner.signoff import check_calibration
     from rig.store.runfolder import RunWriter, read_manifest, read_plan
 
     run = Path(args.run)
+    read_manifest(run)  # "is this a run folder?" before anything else
     bench = load_bench(run / "bench.toml")
+    if args.bench:
+        bench = adopt_bench(run, load_bench(args.bench), Path(args.bench))
     check_calibration(bench, _today(), input if sys.stdin.isatty() else None)
     seq = load_sequence(run / "sequence.toml", bench)
-    plan = build_plan(seq, bench)
+    check_meter_netlists(seq)  # as check and run do
+    plan = checked_plan(seq, bench)
     stored = [p["key"] for p in read_plan(run)]
     if stored != [e.key for e in plan.events]:
         raise RunFolderError(
             f"{run / 'plan.json'}: the stored plan differs from the one its sequence gives now"
         )
     writer = RunWriter.reopen(run)
+    if args.bench:
+        record_bench(run, Path(args.bench))
+        writer.update_manifest(bench_file=str(Path(args.bench).resolve()), bench=bench.raw)
     remaining = len(plan.events) - len(writer.done)
     if remaining == 0 and read_manifest(run).get("status") == "complete":
         writer.close()
@@ -258,9 +297,10 @@ def cmd_resume(args: argparse.Namespace) -> int:
     # otherwise open the bench even with nothing left to run: a run that was killed has not
     # been through the safe-state procedure, and its event table is still to be written
     _out(f"resuming {run}: {len(writer.done)} done, {remaining} to go")
+    _RUN["dir"] = run
     with writer:
         outcome = _execute(writer, bench, seq, plan, args.quiet)
-    return _finish(outcome, run, report=not args.no_report)
+        return _finish(outcome, run, report=not args.no_report)
 
 
 def cmd_verify(args: argparse.Namespace) -> int:
@@ -276,6 +316,9 @@ def cmd_verify(args: argparse.Namespace) -> int:
     for p in v.problems:
         _out(f"  PROBLEM: {p}")
     if not v.ok:
+        return EXIT_NO
+    if v.status == "failed to start":
+        _out("  consistent; the run failed to start (see the note); `rig resume` retries it")
         return EXIT_NO
     _out("  consistent" + ("" if v.status == "complete" else " (incomplete; resumable)"))
     return EXIT_OK if v.status == "complete" else EXIT_NO
@@ -297,8 +340,13 @@ def cmd_instruments(args: argparse.Namespace) -> int:
 
 def cmd_analyze(args: argparse.Namespace) -> int:
     from rig.analysis.analyze import analyze_run
+    from rig.analysis.options import check_confidence, check_coverage
+    from rig.store.lock import RunLock
 
-    result = analyze_run(args.run, confidence=args.confidence, coverage=args.coverage)
+    confidence, coverage = check_confidence(args.confidence), check_coverage(args.coverage)
+    _must_be_run(args.run)
+    with RunLock(args.run, "analyze"):  # no run, resume or other analysis writes meanwhile
+        result = analyze_run(args.run, confidence=confidence, coverage=coverage)
     for name, p in result.paths.items():
         _out(f"{name}: {p}")
     counts = _print_verdicts(result.groups)
@@ -307,12 +355,14 @@ def cmd_analyze(args: argparse.Namespace) -> int:
 
 def cmd_compare(args: argparse.Namespace) -> int:
     from rig.analysis import compare as C
+    from rig.analysis.options import check_tolerance
 
+    tolerance = check_tolerance(args.tolerance)
     metrics = tuple(args.metric) if args.metric else C.DEFAULT_METRICS
-    df = C.compare_runs(args.run, args.baseline, tolerance=args.tolerance, metrics=metrics)
-    opts = C.compare_options(args.tolerance, metrics)
+    df = C.compare_runs(args.run, args.baseline, tolerance=tolerance, metrics=metrics)
+    opts = C.compare_options(tolerance, metrics)
     path = C.write_comparison(df, args.run, args.baseline, opts)
-    lo, hi = C.equivalence_margins(args.tolerance)
+    lo, hi = C.equivalence_margins(tolerance)
     if C.no_overlap(df):
         _out(
             f"no group of {args.run} matches a group of the baseline {args.baseline} "
@@ -323,7 +373,7 @@ def cmd_compare(args: argparse.Namespace) -> int:
     table = C.verdict_table(df)
     _out(
         f"equivalence: geometric-mean ratio run / baseline within {lo:.3f} .. {hi:.3f} "
-        f"(--tolerance {args.tolerance:g}, symmetric on the log scale); ratios in brackets "
+        f"(--tolerance {tolerance:g}, symmetric on the log scale); ratios in brackets "
         "are ratios of medians"
     )
     with _pd_display():
@@ -431,19 +481,29 @@ def _si(text: str) -> float:
 def cmd_report(args: argparse.Namespace) -> int:
     from rig.analysis.analyze import analysis_mismatch, analyze_run, recorded_analysis_options
     from rig.report.page import write_report
+    from rig.store.lock import RunLock
 
     run = Path(args.run)
-    stale = analysis_mismatch(run)
-    if stale:  # recompute with the options the files were made with
-        opts = recorded_analysis_options(run) if (run / "groups.csv").exists() else {}
-        _out(f"analysing again: {stale}")
-        analyze_run(run, **opts)
-    from rig.report.certificate import write_certificate
+    _must_be_run(run)
+    with RunLock(run, "report"):  # the tables it reads are not replaced meanwhile
+        stale = analysis_mismatch(run)
+        if stale:  # recompute with the options the files were made with
+            opts = recorded_analysis_options(run) if (run / "groups.csv").exists() else {}
+            _out(f"analysing again: {stale}")
+            analyze_run(run, **opts)
+        from rig.report.certificate import write_certificate
 
-    base = Path(args.baseline) if args.baseline else None
-    _out(f"report: {write_report(run, base)}")
-    _out(f"certificate: {write_certificate(run, base)}")
+        base = Path(args.baseline) if args.baseline else None
+        _out(f"report: {write_report(run, base)}")
+        _out(f"certificate: {write_certificate(run, base)}")
     return EXIT_OK
+
+
+def _must_be_run(run: str | Path) -> None:
+    """RunFolderError unless ``run`` holds a manifest (before a lock file is made there)."""
+    from rig.store.runfolder import read_manifest
+
+    read_manifest(run)
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
@@ -648,6 +708,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     sp = add("resume", cmd_resume, "continue an interrupted run (no gaps, no duplicates)")
     sp.add_argument("run", help="run folder")
+    sp.add_argument(
+        "--bench",
+        help="corrected bench file (instrument addresses, timeouts, injected faults); refused "
+        "when anything that changes the measurement differs from the run's",
+    )
     sp.add_argument("--no-report", action="store_true", help="skip analysis and report at the end")
     sp.add_argument("--quiet", action="store_true", help="no live display")
 
@@ -780,11 +845,48 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+_RUN: dict[str, Path] = {}  # the run folder this process writes (for the interrupt message)
+
+
+def _on_sigterm(signum: int, frame: object) -> None:
+    # outside the runner's event loop (which installs its own handler) SIGTERM ends the
+    # command like Ctrl-C: analysis and report included, exit 130 with the message
+    raise KeyboardInterrupt("SIGTERM")
+
+
+def _interrupted(exc: BaseException) -> int:
+    name = str(exc) or "Ctrl-C" if isinstance(exc, KeyboardInterrupt) else "SIGTERM"
+    where = ""
+    if "dir" in _RUN:
+        from rig.store.runfolder import read_journal
+
+        try:
+            n = len({int(r["event"]) for r in read_journal(_RUN["dir"])})
+            where = f"; {_RUN['dir']} holds {n} journalled events (rig verify, rig resume)"
+        except Exception:  # reporting the count must not hide the interrupt
+            where = f"; see {_RUN['dir']}"
+    print(f"rig: interrupted by {name}{where}", file=sys.stderr)
+    return EXIT_INTERRUPTED
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``rig`` console script."""
     args = build_parser().parse_args(argv)
     level = (logging.WARNING, logging.INFO, logging.DEBUG)[min(args.verbose, 2)]
     logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
+    _RUN.clear()
+    try:
+        old_term = signal.signal(signal.SIGTERM, _on_sigterm)
+    except ValueError:  # not the main thread (tests): leave signals alone
+        old_term = None
+    try:
+        return _dispatch(args)
+    finally:
+        if old_term is not None:
+            signal.signal(signal.SIGTERM, old_term)
+
+
+def _dispatch(args: argparse.Namespace) -> int:
     try:
         return int(args.func(args))
     except (FileFormatError, LimitError, RunFolderError) as exc:
@@ -800,9 +902,19 @@ def main(argv: Sequence[str] | None = None) -> int:
         where = exc.filename or ""
         print(f"rig: error: {where}: {exc.strerror or exc}", file=sys.stderr)
         return EXIT_INPUT
-    except KeyboardInterrupt:
-        print("rig: interrupted", file=sys.stderr)
-        return EXIT_INTERRUPTED
+    except KeyboardInterrupt as exc:
+        return _interrupted(exc)
+    except BaseException as exc:
+        if type(exc).__name__ == "Terminated":  # the runner's SIGTERM, outside its loop
+            return _interrupted(exc)
+        if isinstance(exc, SystemExit | GeneratorExit):
+            raise
+        log.debug("unexpected error", exc_info=True)
+        first = (str(exc).strip().splitlines() or [""])[0]
+        print(
+            f"rig: internal error: {type(exc).__name__}: {first} (-vv for details)", file=sys.stderr
+        )
+        return EXIT_NO
 
 
 if __name__ == "__main__":

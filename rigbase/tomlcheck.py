@@ -20,7 +20,16 @@ from typing import Any
 from rigbase.errors import FileFormatError
 from rigbase.si import parse_si, unit_word
 
-__all__ = ["REQUIRED", "Context", "Table", "jsonable", "parse_si", "read_toml", "resolve_file"]
+__all__ = [
+    "BOM_TEXT",
+    "REQUIRED",
+    "Context",
+    "Table",
+    "jsonable",
+    "parse_si",
+    "read_toml",
+    "resolve_file",
+]
 
 # --------------------------------------------------------------------------------------------
 # Where a key stands in the file
@@ -126,6 +135,9 @@ class Context:
         return FileFormatError(self.path, _format_key(key), problem, self.line_of(key))
 
 
+BOM_TEXT = "starts with a UTF-8 byte-order mark (BOM): save it as UTF-8 without one"
+
+
 def read_toml(path: str | Path, what: str) -> tuple[Context, dict[str, Any]]:
     path = Path(path)
     try:
@@ -134,6 +146,8 @@ def read_toml(path: str | Path, what: str) -> tuple[Context, dict[str, Any]]:
         raise FileFormatError(path, "", f"{what} file not found") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise FileFormatError(path, "", f"cannot read {what} file: {exc}") from None
+    if text.startswith("\ufeff"):
+        raise FileFormatError(path, "", f"{what} file {BOM_TEXT}", line=1)
     ctx = Context(path, text)
     try:
         data = tomllib.loads(text)

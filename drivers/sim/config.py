@@ -91,8 +91,14 @@ def read_simulation(
     for i, ch in enumerate(stuck):
         if ch not in all_channels:
             raise f.error(("relay_stuck_closed", i), f"channel {ch} is not a bench channel")
+    stuck_open = f.integers("relay_stuck_open", df.relay_stuck_open, minimum=1)
+    for i, ch in enumerate(stuck_open):
+        if ch not in all_channels:
+            raise f.error(("relay_stuck_open", i), f"channel {ch} is not a bench channel")
     faults = Faults(
         relay_stuck_closed=tuple(stuck),
+        relay_stuck_open=tuple(stuck_open),
+        supply_trip_amps=f.number("supply_trip_amps", None, positive=True),
         supply_stuck_on=f.boolean("supply_stuck_on", df.supply_stuck_on),
         scope_never_triggers=f.boolean("scope_never_triggers", df.scope_never_triggers),
         drop_connection_after=f.integer("drop_connection_after", None, minimum=1),

@@ -75,6 +75,8 @@ class Faults:
     """Faults injected by configuration (all off by default)."""
 
     relay_stuck_closed: tuple[int, ...] = ()  # channels whose contacts never open
+    relay_stuck_open: tuple[int, ...] = ()  # channels whose contacts never close
+    supply_trip_amps: float | None = None  # output trips off when it would source more
     supply_stuck_on: bool = False  # output keeps delivering after OUTP OFF
     scope_never_triggers: bool = False
     drop_connection_after: int | None = None  # server closes the link after N commands

@@ -35,6 +35,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from rigbase.errors import FileFormatError
+from rigbase.tomlcheck import BOM_TEXT
 
 __all__ = ["Element", "MeterNetlist", "load_netlist", "meter_models_dir", "parse_netlist"]
 
@@ -112,6 +113,10 @@ def load_netlist(path: str | Path) -> MeterNetlist:
         text = p.read_text(encoding="utf-8")
     except OSError as exc:
         raise FileFormatError(p, "", f"cannot read netlist: {exc.strerror or exc}") from exc
+    except UnicodeDecodeError as exc:
+        raise FileFormatError(p, "", f"netlist is not UTF-8 text: {exc.reason}") from None
+    if text.startswith("\ufeff"):
+        raise FileFormatError(p, "", "netlist " + BOM_TEXT, line=1)
     return parse_netlist(text, p)
 
 

@@ -27,7 +27,8 @@ closed contact (``contact_ohms``) in parallel with a current source ``-V/contact
 (the Norton form of ARC_VOLTS in series with the contact); its end is found on the exact
 solution. A channel listed in
 ``faults.relay_stuck_closed`` welds on its first closing and never opens again.
-``faults.supply_stuck_on``: once on, OUTP OFF is ignored and the output keeps the voltage it
+``faults.relay_stuck_open`` never makes contact; ``faults.supply_trip_amps``: the output
+trips off (and reads back off) when it would source more than that. ``faults.supply_stuck_on``: once on, OUTP OFF is ignored and the output keeps the voltage it
 had (later voltage changes are ignored until the output is commanded on again).
 
 Time: the world advances lazily to ``clock.now()`` whenever something is asked or changed.
@@ -114,6 +115,7 @@ class BenchWorld:
         self._contact: dict[int, bool] = dict(self._coil)
         self._gen: dict[int, int] = {}
         self._welded: set[int] = set()
+        self.tripped = False  # faults.supply_trip_amps fired (the output reads back off)
         self._events: list[tuple[float, int, int, int, bool]] = []  # t, seq, ch, gen, state
         self._seq = 0
         self._volts, self._amps = 0.0, float(config.supply_max_amps)
@@ -225,7 +227,12 @@ class BenchWorld:
             x = x_net.copy()
             x[ss.dead] = 0.0
             v_sup = float(ss.outputs(x, u, np.zeros(1))[0, 0])
-            if (v - v_sup) / r_out > self._amps * (1 + 1e-6):
+            trip = self.config.faults.supply_trip_amps
+            if trip is not None and (v - v_sup) / r_out > trip:
+                log.info("fault: supply trips off at %.3g A", (v - v_sup) / r_out)
+                self.tripped, self._out_phys, self._out_cmd = True, False, False
+                u = c.input_vector({_SRC: 0.0})
+            elif (v - v_sup) / r_out > self._amps * (1 + 1e-6):
                 cc = True
                 closed, u = self._closed(True), c.input_vector({_SRC: self._amps, **arcs})
         ss = c.model(closed)
@@ -453,6 +460,8 @@ class BenchWorld:
                 was = self._coil.get(ch, False)
                 self._coil[ch] = bool(closed)
                 self._contact.setdefault(ch, False)
+                if closed and ch in self.config.faults.relay_stuck_open:
+                    continue  # the coil pulls, the contact never makes
                 if closed and not was:
                     if ch in self.config.faults.relay_stuck_closed:
                         self._welded.add(ch)

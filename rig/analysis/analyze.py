@@ -312,9 +312,12 @@ def analyze_run(
         threshold; None: the manifest's ``safe_residual_volts``, else 60 V (IEC 61010-1).
     seed: seed of the bootstrap's random generator (results are reproducible).
     """
+    from rig.analysis.options import check_confidence, check_coverage
     from rig.analysis.selfdischarge import DEFAULT_SAFE_VOLTS, has_delay_sweep, self_discharge
     from rig.analysis.stats import group_stats, limits_from_manifest
+    from rig.store.atomic import atomic_write
 
+    confidence, coverage = check_confidence(confidence), check_coverage(coverage)
     run_dir = Path(run_dir)
     manifest = read_manifest(run_dir)
     metrics = compute_metrics(run_dir)
@@ -328,8 +331,9 @@ def analyze_run(
     groups = group_stats(metrics, plan, limits, confidence=confidence, coverage=coverage, rng=rng)
     metrics_path = run_dir / "metrics.parquet"
     groups_path = run_dir / "groups.csv"
-    metrics.to_parquet(metrics_path, index=False)
-    groups.to_csv(groups_path, index=False)
+    # atomic: a process killed here leaves the previous tables, never a truncated one
+    atomic_write(metrics_path, lambda p: metrics.to_parquet(p, index=False))
+    atomic_write(groups_path, lambda p: groups.to_csv(p, index=False))
     if safe_residual_volts is None:
         bench_limits = (manifest.get("bench") or {}).get("limits") or {}
         found = bench_limits.get("safe_residual_volts") if isinstance(bench_limits, dict) else None
@@ -343,10 +347,11 @@ def analyze_run(
             metrics,
             safe_residual_volts=safe_residual_volts,
             confidence=confidence,
-            hazard_volts=float(hazard) if hazard is not None else DEFAULT_SAFE_VOLTS,
+            # hazardous-live 60 V d.c.: IEC 61010-1 before edition 3 (the bench file's default)
+            hazard_volts=float(hazard) if hazard is not None else 60.0,
         )
         sd_path = run_dir / "selfdischarge.csv"
-        sd.to_csv(sd_path, index=False)
+        atomic_write(sd_path, lambda p: sd.to_csv(p, index=False))
     _record(run_dir, confidence, coverage, seed, safe_residual_volts, sd_path)
     log.info("analysis of %s written", run_dir)
     return AnalysisResult(metrics, groups, sd, metrics_path, groups_path, sd_path)

@@ -30,6 +30,7 @@ from scipy import stats as sps
 
 from rig.analysis.stats import GROUP_KEYS, bootstrap_ci, capture_roles, with_capture
 from rig.store.runfolder import read_manifest
+from rig.store.tables import read_parquet_table
 from rigbase.errors import RunFolderError
 
 __all__ = [
@@ -167,7 +168,7 @@ def _load_metrics(run_dir: Path, what: str = "run") -> pd.DataFrame:
         raise RunFolderError(f"{run_dir}: not a run folder (no manifest.json) given as {what}")
     path = run_dir / "metrics.parquet"
     if path.exists():
-        return with_capture(pd.read_parquet(path))
+        return with_capture(read_parquet_table(path))
     from rig.analysis.analyze import compute_metrics
 
     log.info("%s is not analysed; computing its metrics in memory", run_dir)

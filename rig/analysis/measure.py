@@ -24,6 +24,12 @@ from typing import Any
 import numpy as np
 
 from rig.analysis.metrics import event_metrics
+from rig.analysis.options import (
+    check_charge_volts,
+    check_dt,
+    check_load_ohms,
+    check_shunt_ohms,
+)
 from rigbase.errors import FileFormatError
 
 __all__ = ["measure_file", "read_trace"]
@@ -61,17 +67,33 @@ def _read_npy(path: Path, dt: float | None) -> tuple[np.ndarray, float, float]:
         raise FileFormatError(path, "dt", "a .npy trace needs dt (seconds per sample) > 0")
     try:
         arr = np.load(path, allow_pickle=False)
-    except ValueError as exc:
+    except (ValueError, EOFError, OSError) as exc:
         raise FileFormatError(path, "", f"not a plain NumPy array ({exc})") from None
+    if not isinstance(arr, np.ndarray):
+        raise FileFormatError(path, "", "an .npz archive, not one .npy array")
     arr = np.squeeze(arr)
     if arr.ndim != 1 or arr.dtype.kind not in "iuf":
         raise FileFormatError(
             path, "", f"expected a 1-D numeric array, got {arr.dtype} of shape {arr.shape}"
         )
-    return arr.astype(np.float64), float(dt), 0.0
+    out = arr.astype(np.float64)
+    if not np.isfinite(out).all():
+        raise FileFormatError(path, "", "contains NaN or infinite values")
+    return out, float(dt), 0.0
 
 
 def _read_csv(path: Path, shunt_ohms: float | None) -> tuple[np.ndarray, float, float]:
+    try:
+        return _read_csv_text(path, shunt_ohms)
+    except UnicodeDecodeError as exc:
+        raise FileFormatError(
+            path, "", f"not UTF-8 text (byte 0x{exc.object[exc.start]:02x} at offset {exc.start})"
+        ) from None
+    except csv.Error as exc:
+        raise FileFormatError(path, "", f"not readable as CSV ({exc})") from None
+
+
+def _read_csv_text(path: Path, shunt_ohms: float | None) -> tuple[np.ndarray, float, float]:
     with open(path, newline="", encoding="utf-8-sig") as fh:
         sample = fh.read(4096)
         fh.seek(0)
@@ -147,7 +169,9 @@ def measure_file(
     Returns {metric name: value} with the names of rig.store.schema.METRIC_COLUMNS plus
     ``dt_s``, ``t0_s``, ``n_samples`` and ``file``.
     """
-    i, step, t0 = read_trace(path, dt=dt, shunt_ohms=shunt_ohms)
+    charge_volts = check_charge_volts(charge_volts)
+    load_ohms = check_load_ohms(load_ohms)
+    i, step, t0 = read_trace(path, dt=check_dt(dt), shunt_ohms=check_shunt_ohms(shunt_ohms))
     n_pre = int(math.ceil(-t0 / step)) if t0 < 0 else 0
     n_base = n_pre if n_pre >= _MIN_PRE else max(1, i.size // 10)
     res = event_metrics(

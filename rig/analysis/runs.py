@@ -22,6 +22,7 @@ import pandas as pd
 
 from rig.analysis.analyze import journal_frame
 from rig.analysis.stats import with_capture
+from rig.store.tables import read_parquet_table
 from rig.store.waveform import Waveform, load_waveform
 from rigbase.errors import RunFolderError
 
@@ -35,7 +36,7 @@ def load_run(run_dir: str | Path) -> pd.DataFrame:
     run_dir = Path(run_dir)
     path = run_dir / "metrics.parquet"
     if path.exists():
-        return with_capture(pd.read_parquet(path))
+        return with_capture(read_parquet_table(path))
     if not run_dir.is_dir():
         raise RunFolderError(f"{run_dir}: no such run folder")
     return with_capture(journal_frame(run_dir))

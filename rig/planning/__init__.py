@@ -21,6 +21,7 @@ from rig.planning.benchfile import (
     read_bench_file,
     resolve_meter_model,
 )
+from rig.planning.limits import LIMITS, checked_plan, plan_size
 from rig.planning.plan import (
     EVENT_OVERHEAD_S,
     METER_CHANGE_S,
@@ -46,6 +47,9 @@ from rig.planning.sequence import (
 )
 
 __all__ = [
+    "LIMITS",
+    "checked_plan",
+    "plan_size",
     "Bench",
     "Channels",
     "DEFAULT_CAPTURE",

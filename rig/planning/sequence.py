@@ -187,7 +187,10 @@ def _read_meters(top: Table, bench: Bench, base_dir: Path) -> tuple[MeterSpec, .
                 "sim_model", f"missing required key 'sim_model': bench {bench.path} is simulated"
             )
         if sim_model is not None and bench.uses_simulation:
-            known = netlist_modes(sim_model)
+            try:
+                known = netlist_modes(sim_model)
+            except FileFormatError as exc:  # name the sequence key that pointed there
+                raise t.error("sim_model", str(exc)) from None
             for i, mode in enumerate(modes):
                 if mode not in known:
                     hint = _nearest(mode, known)

@@ -18,6 +18,7 @@ import pandas as pd
 
 from rig.analysis.runs import group_waveforms, load_run
 from rig.analysis.stats import GROUP_KEYS, with_capture
+from rig.store.tables import read_csv_table
 from rigbase.errors import RunFolderError
 from rigbase.units import eng
 
@@ -58,7 +59,7 @@ def _load_groups(run: Path) -> pd.DataFrame:
     path = run / "groups.csv"
     if not path.exists():
         raise RunFolderError(f"{path}: no group statistics; analyse the run before the report")
-    g = pd.read_csv(path, keep_default_na=True)
+    g = read_csv_table(path, keep_default_na=True)
     need = ["meter", "mode", "volts", "metric", "median", "verdict"]
     missing = [c for c in need if c not in g.columns]
     if missing:
@@ -67,7 +68,8 @@ def _load_groups(run: Path) -> pd.DataFrame:
     for c in _GROUP_KEYS + optional:  # older or partial tables: show what is there
         if c not in g.columns:
             g[c] = np.nan
-    g["verdict"] = g["verdict"].astype(object).fillna("").astype(str).str.strip()  # all-NaN: float
+    # an all-empty column reads as float: cast before filling (pandas refuses "" in float64)
+    g["verdict"] = g["verdict"].astype(object).fillna("").astype(str).str.strip()
     return with_capture(g)
 
 

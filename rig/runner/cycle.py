@@ -95,10 +95,20 @@ class RunOutcome:
     done: int
     planned: int
     timing: dict[str, float] = field(default_factory=dict)
+    # groups (meter serial, mode, capture, volts, load, delay) whose events were all done but
+    # none captured a waveform: a scope that never triggered
+    empty_groups: list[str] = field(default_factory=list)
+    # a Ctrl-C or SIGTERM that arrived while the safe state and the bookkeeping were shielded
+    late_signal: str | None = None
 
     @property
     def ok(self) -> bool:
-        return self.status == "complete" and self.safe.reached
+        return (
+            self.status == "complete"
+            and self.safe.reached
+            and not self.empty_groups
+            and self.late_signal is None
+        )
 
 
 class Observer:
@@ -189,23 +199,38 @@ class Runner:
             # procedure or the bookkeeping short (the run folder would say "running" forever)
             in_main = threading.current_thread() is threading.main_thread()
             shielded = {}
+            late: list[str] = []  # signals held back until the bookkeeping is done
+
+            def defer(signum: int, frame: object) -> None:
+                late.append(signal.Signals(signum).name)
+
             if in_main:
                 restore()
                 for sig in (signal.SIGINT, signal.SIGTERM):
-                    shielded[sig] = signal.signal(sig, signal.SIG_IGN)
+                    shielded[sig] = signal.signal(sig, defer)
             try:
                 failed_phase = self.phase
                 safe = self._make_safe()
-                done = len(self.writer.done)
+                # the journal is the count: a signal between a journal line's fsync and the
+                # writer's own tally must not make the printed count differ from the file's
+                try:
+                    done = len(self.writer.reload_done())
+                except (OSError, ValueError):  # an unreadable journal: keep the writer's tally
+                    done = len(self.writer.done)
                 if exit_path is ExitPath.NORMAL and done == planned:
                     status = "complete"
                 elif exit_path in (ExitPath.CTRL_C, ExitPath.SIGTERM):
                     status = "interrupted"
                 else:
                     status = "failed"
+                try:
+                    empty = self._empty_groups() if status == "complete" else []
+                except (OSError, ValueError):
+                    empty = []
                 self.writer.write_event_table()
                 self.writer.update_manifest(
                     status=status,
+                    groups_without_capture=empty,
                     exit_path=exit_path.value,
                     error=error,
                     failed_phase=None if exit_path is ExitPath.NORMAL else failed_phase.value,
@@ -217,9 +242,38 @@ class Runner:
             finally:
                 for sig, old in shielded.items():
                     signal.signal(sig, old)
+        late_signal = late[0] if late and exit_path is ExitPath.NORMAL else None
         return RunOutcome(
-            exit_path, status, error, failed_phase, safe, done, planned, dict(self.timing)
+            exit_path,
+            status,
+            error,
+            failed_phase,
+            safe,
+            done,
+            planned,
+            dict(self.timing),
+            empty,
+            late_signal,
         )
+
+    def _empty_groups(self) -> list[str]:
+        """Groups of the plan in which no journalled event captured a waveform."""
+        from rig.store.runfolder import read_journal
+
+        def group(d: dict[str, Any]) -> tuple[Any, ...]:
+            return tuple(
+                d.get(k) for k in ("meter", "serial", "mode", "capture", "volts", "load", "delay_s")
+            )
+
+        captured = {group(r) for r in read_journal(self.writer.path) if r.get("file")}
+        out: list[str] = []
+        for e in self.plan.events:
+            g = group({**e.to_dict()})
+            if g not in captured:
+                text = "/".join(str(x) for x in g[1:])
+                if text not in out:
+                    out.append(text)
+        return out
 
     def _make_safe(self) -> SafeReport:
         """Safe-state procedure (the caller shields it from a second Ctrl-C)."""
@@ -272,6 +326,7 @@ class Runner:
         b.supply.set_voltage(0.0)
         b.switch.open([ch.charge])
         lock.require_open((ch.charge,), "after charging")
+        lock.verify_isolated(charged_volts, e.volts)
         clock.sleep(e.delay_s)
 
         self._enter(e, Phase.ARM)
@@ -286,9 +341,15 @@ class Runner:
             clock, timeout_s=s.acquisition_timeout_s, poll_s=max(record_s, 1e-3)
         )
 
+        load = next(ld for ld in self.cfg.loads if ld.name == e.load)
+        lock.verify_discharge_path(captured, charged_volts, e.load, load.channel)
+
         self._enter(e, Phase.FETCH)
         t0, io_f0 = time.perf_counter(), self._io_s()
         wf = self._fetch(s) if captured else None
+        if wf is not None:
+            # a readback check of the discharge path, not a metric: |i| within what the load allows
+            lock.check_peak(float(np.max(np.abs(wf.values("current")))), e.volts, load.ohms, e.load)
         t_transfer = time.perf_counter() - t0
         io_fetch = self._io_s() - io_f0
         if not captured:

@@ -79,6 +79,15 @@ class Interlocks:
         self.bleed = int(ch.bleed)
         self.selectors = tuple(int(ld.channel) for ld in config.loads if ld.channel is not None)
         self.divider = config.divider_ratio
+        # contacts the bench's own measurements showed stuck although the coil reads back as
+        # commanded: the safe-state report cannot claim those relays open
+        self.suspects: list[str] = []
+
+    def _stuck(self, text: str, check: str) -> SafetyError:
+        """A stuck-contact alarm: remembered for the safe-state report, one line for the
+        operator with what to check before touching the bench."""
+        self.suspects.append(text)
+        return SafetyError(f"{text}; before touching the bench: {check}")
 
     # -- limits (checked before any command is sent) --------------------------------------------
     def check_voltage(self, volts: float) -> None:
@@ -137,13 +146,76 @@ class Interlocks:
         Less means current is going somewhere else - a shorted input, or a discharge relay
         whose contacts welded while its coil reads back open - so the run stops before the
         discharge. Returns the input voltage (None without a divider probe)."""
+        if volts > 0 and not self.bench.supply.output_is_on():
+            raise SafetyError(
+                f"supply output reads back OFF after the charge dwell at {volts:g} V: "
+                "the supply tripped (current or voltage protection); check its front panel "
+                "and the charge path for a short before going on"
+            )
         v = self.residual()
         if v is not None and volts > 0 and abs(v) < fraction * volts:
-            raise SafetyError(
+            raise self._stuck(
                 f"meter input reached only {v:.3g} V of {volts:g} V after the charge dwell: "
-                "shorted input or welded discharge relay? check the bench before going on"
+                f"shorted input, welded discharge relay (channel {self.discharge}) or a charge "
+                f"relay (channel {self.charge}) that does not close",
+                f"measure the meter input, then check relay channels {self.discharge} and "
+                f"{self.charge} and the input for a short",
             )
         return v
+
+    def verify_isolated(self, charged_volts: float | None, volts: float) -> None:
+        """After ISOLATE (supply off at 0 V, charge relay commanded open): the supply must
+        carry no current. A welded charge contact lets the charged input drain back into the
+        supply, about ``V_in / (R_charge + R_out)``; an open one carries nothing. The limit is
+        a tenth of the least such current, ``V_in / R_charge`` (R_out unknown, >= 0)."""
+        v_in = abs(charged_volts) if charged_volts is not None else volts
+        if v_in <= self.limits.safe_residual_volts:
+            return
+        amps = abs(float(self.bench.supply.measure_current()))
+        limit = 0.1 * v_in / float(self.config.charge_ohms)
+        if amps > limit:
+            raise self._stuck(
+                f"charge relay channel {self.charge} conducts although it reads back open: "
+                f"the supply carries {amps:.3g} A with its output off (limit {limit:.3g} A); "
+                "welded contact",
+                "switch the supply off at the mains, then measure the meter input and replace "
+                f"relay channel {self.charge}",
+            )
+
+    def verify_discharge_path(
+        self, captured: bool, charged_volts: float | None, load: str, selector: int | None
+    ) -> None:
+        """After DISCHARGE, when the scope did not trigger (so the acquisition timeout has
+        passed with the discharge relay closed): through a working path the input is empty by
+        then; charge left above the safe residual and above 1 % of the charge means no
+        current flowed - the discharge relay or the load's selector did not close."""
+        if captured or charged_volts is None:
+            return
+        v = self.residual()
+        floor = max(self.limits.safe_residual_volts, 0.01 * abs(charged_volts))
+        if v is not None and abs(v) > floor:
+            sel = f" or load selector channel {selector} ({load})" if selector else ""
+            raise self._stuck(
+                f"no discharge: the input still holds {v:.3g} V of {charged_volts:.3g} V and the "
+                f"scope did not trigger; discharge relay channel {self.discharge}{sel} does "
+                "not close",
+                f"let the bleed work, measure the meter input, then check relay channel "
+                f"{self.discharge}" + (f" and {selector}" if selector else ""),
+            )
+
+    def check_peak(self, peak_amps: float, volts: float, path_ohms: float, load: str) -> None:
+        """The discharge current cannot exceed twice ``volts / path_ohms`` through the
+        selected load alone (resistive bound, doubled for ringing). More means a second
+        path conducts: another load's selector welded closed."""
+        bound = 2.0 * volts / path_ohms if path_ohms > 0 else math.inf
+        if volts > 0 and abs(peak_amps) > bound:
+            others = list(self.selectors)
+            raise self._stuck(
+                f"discharge peak {abs(peak_amps):.3g} A exceeds {bound:.3g} A that load {load!r} "
+                f"allows at {volts:g} V: another load path conducts; welded load selector "
+                f"(channels {others})?",
+                f"check load selector relays {others} for welded contacts",
+            )
 
     # -- bleeding -------------------------------------------------------------------------------
     def bleed_until_safe(
@@ -250,5 +322,8 @@ class Interlocks:
                 )
                 break
             step *= 2
+        for text in self.suspects:
+            rep.relays_open = False
+            rep.problems.append(f"{text} (the coil readback cannot show it)")
         log.info("%s", rep.summary())
         return rep

@@ -3,7 +3,10 @@ files (`runfolder`, `waveform`), and the column names and group keys every later
 (`schema`). It imports nothing from the instrument layer.
 """
 
+from rig.store.atomic import atomic_write, atomic_write_bytes, atomic_write_text, fsync_dir
+from rig.store.lock import LOCK_NAME, RunLock, RunLockedError
 from rig.store.runfolder import (
+    FAILED_TO_START,
     RunWriter,
     Verification,
     new_run_id,
@@ -18,6 +21,7 @@ from rig.store.schema import (
     LIMIT_METRICS,
     METRIC_COLUMNS,
 )
+from rig.store.tables import read_csv_table, read_parquet_table
 from rig.store.waveform import (
     WAVEFORM_SUFFIX,
     Waveform,
@@ -27,6 +31,14 @@ from rig.store.waveform import (
 )
 
 __all__ = [
+    "FAILED_TO_START",
+    "LOCK_NAME",
+    "RunLock",
+    "RunLockedError",
+    "atomic_write",
+    "atomic_write_bytes",
+    "atomic_write_text",
+    "fsync_dir",
     "DEFAULT_CAPTURE",
     "GROUP_KEYS",
     "LIMIT_METRICS",
@@ -37,7 +49,9 @@ __all__ = [
     "Waveform",
     "load_waveform",
     "new_run_id",
+    "read_csv_table",
     "read_journal",
+    "read_parquet_table",
     "read_manifest",
     "read_plan",
     "save_waveform",

@@ -10,11 +10,17 @@ Layout of ``results/<run-id>/`` (format 1)::
     events.parquet   the journal as a table, written when the run ends
 
 A killed run loses at most the event in flight: a final journal line without its newline is
-ignored (and later overwritten on resume).
+ignored (and later overwritten on resume). A run folder has one writer: :class:`RunWriter`
+holds the folder's exclusive lock (``rig.store.lock``) from creation or reopening to its
+close. Every file but the append-only journal is written atomically (``rig.store.atomic``).
+A new run is assembled in a hidden staging folder and renamed into place, so a crash while
+creating it leaves no half-made run folder; a run whose bench never opened is marked
+``failed to start`` with its error.
 """
 
 from __future__ import annotations
 
+import errno
 import json
 import logging
 import os
@@ -25,10 +31,13 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+from rig.store.atomic import atomic_write, atomic_write_text, fsync_dir
+from rig.store.lock import RunLock
 from rig.store.waveform import WAVEFORM_SUFFIX, Waveform, save_waveform, sha256_file
 from rigbase.errors import RunFolderError
 
 __all__ = [
+    "FAILED_TO_START",
     "RunWriter",
     "Verification",
     "new_run_id",
@@ -45,6 +54,7 @@ PLAN = "plan.json"
 JOURNAL = "journal.jsonl"
 WAVEFORMS = "waveforms"
 EVENTS = "events.parquet"
+FAILED_TO_START = "failed to start"
 
 
 def _read_json(path: Path, missing: str) -> Any:
@@ -58,13 +68,32 @@ def _read_json(path: Path, missing: str) -> Any:
 
 
 def read_manifest(run_dir: str | Path) -> dict[str, Any]:
-    """The run's manifest as a dict (RunFolderError if missing or not JSON)."""
-    return _read_json(Path(run_dir) / MANIFEST, f"no manifest; is {run_dir} a run folder?")
+    """The run's manifest as a dict (RunFolderError if missing, not JSON or not an object)."""
+    path = Path(run_dir) / MANIFEST
+    obj = _read_json(path, f"no manifest; is {run_dir} a run folder?")
+    if not isinstance(obj, dict):
+        raise RunFolderError(f"{path}: expected a JSON object, found {type(obj).__name__}")
+    return obj
 
 
 def read_plan(run_dir: str | Path) -> list[dict[str, Any]]:
-    """The planned events, in order."""
-    return _read_json(Path(run_dir) / PLAN, "no plan file")
+    """The planned events, in order (RunFolderError naming the entry if one is malformed)."""
+    path = Path(run_dir) / PLAN
+    obj = _read_json(path, "no plan file")
+    if not isinstance(obj, list):
+        raise RunFolderError(f"{path}: expected a JSON list of events, found {type(obj).__name__}")
+    for i, p in enumerate(obj):
+        if not isinstance(p, dict) or not isinstance(p.get("key"), str):
+            raise RunFolderError(f"{path}: entry {i} is not an event object with a text 'key'")
+        _event_number(p.get("event", p.get("index")), f"{path}: entry {i}")
+    return obj
+
+
+def _event_number(value: Any, where: str) -> int:
+    """A plan index from a JSON value: an integer (not a bool, not a float), else an error."""
+    if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+        raise RunFolderError(f"{where}: 'event' is {value!r}, not a non-negative integer")
+    return value
 
 
 def read_journal(run_dir: str | Path) -> list[dict[str, Any]]:
@@ -84,10 +113,24 @@ def read_journal(run_dir: str | Path) -> list[dict[str, Any]]:
         if not raw.strip():
             continue
         try:
-            rows.append(json.loads(raw))
-        except json.JSONDecodeError as exc:
-            raise RunFolderError(f"{path}:{lineno}: journal line is not JSON ({exc.msg})") from None
+            row = json.loads(raw)
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            msg = getattr(exc, "msg", None) or "not UTF-8"
+            raise RunFolderError(f"{path}:{lineno}: journal line is not JSON ({msg})") from None
+        if not isinstance(row, dict):
+            raise RunFolderError(
+                f"{path}:{lineno}: journal line is a JSON {type(row).__name__}, not an object"
+            )
+        _event_number(row.get("event"), f"{path}:{lineno}")
+        f = row.get("file")
+        if f is not None and not (isinstance(f, str) and _SAFE_REL.fullmatch(f)):
+            raise RunFolderError(f"{path}:{lineno}: 'file' {f!r} is not a waveforms/ file name")
+        rows.append(row)
     return rows
+
+
+# a journalled waveform name: inside waveforms/, no way out of the run folder
+_SAFE_REL = re.compile(r"waveforms/[A-Za-z0-9_.-]+\.npz")
 
 
 # --------------------------------------------------------------------------------------------
@@ -96,13 +139,7 @@ def read_journal(run_dir: str | Path) -> list[dict[str, Any]]:
 
 def _write_json_atomic(path: Path, obj: Any) -> None:
     """Write JSON to a temporary name, fsync, rename: a reader sees the old or the new file."""
-    tmp = path.with_name(path.name + ".tmp")
-    with open(tmp, "w", encoding="utf-8") as fh:
-        json.dump(obj, fh, indent=2, default=_json_default)
-        fh.write("\n")
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
+    atomic_write_text(path, json.dumps(obj, indent=2, default=_json_default) + "\n")
 
 
 def _json_default(obj: Any) -> Any:
@@ -115,6 +152,10 @@ def _json_default(obj: Any) -> Any:
     raise TypeError(f"not JSON-serialisable: {type(obj).__name__}")
 
 
+def _now_iso() -> str:
+    return datetime.now(UTC).isoformat(timespec="seconds")
+
+
 def new_run_id(name: str, when: datetime | None = None) -> str:
     """A sortable, file-system-safe run id: ``20261201-221530-qualification``."""
     when = when or datetime.now(UTC)
@@ -125,10 +166,11 @@ def new_run_id(name: str, when: datetime | None = None) -> str:
 class RunWriter:
     """Append-only writer of one run folder. Use :meth:`create` or :meth:`reopen`."""
 
-    def __init__(self, path: Path) -> None:
+    def __init__(self, path: Path, lock: RunLock | None = None) -> None:
         self.path = path
         self._journal = None
         self._done: set[int] = set()
+        self._lock = lock
 
     # -- life cycle ---------------------------------------------------------------------------
     @classmethod
@@ -143,50 +185,86 @@ class RunWriter:
         """Make ``results_dir/run_id`` with its manifest, plan and copies of the input files.
 
         ``inputs`` maps a file name in the run folder (``sequence.toml``, ``bench.toml``) to the
-        file to copy, so a run can be resumed and audited without its original files.
+        file to copy, so a run can be resumed and audited without its original files. The
+        folder is assembled under a hidden staging name, locked, and renamed into place: a
+        crash on the way leaves only a ``.staging-*`` folder, never a half-made run.
         """
-        base = Path(results_dir) / run_id
-        path, k = base, 1
-        while path.exists():
-            k += 1
-            path = base.with_name(f"{base.name}-{k}")
-        (path / WAVEFORMS).mkdir(parents=True)
-        for name, src in (inputs or {}).items():
-            shutil.copyfile(src, path / name)
-        manifest = {**manifest, "run_id": path.name, "format": 1, "planned_events": len(plan)}
-        _write_json_atomic(path / PLAN, plan)
-        _write_json_atomic(path / MANIFEST, manifest)
-        writer = cls(path)
+        results = Path(results_dir)
+        results.mkdir(parents=True, exist_ok=True)
+        stage = results / f".staging-{run_id}-{os.getpid()}"
+        if stage.exists():
+            shutil.rmtree(stage)
+        (stage / WAVEFORMS).mkdir(parents=True)
+        lock = RunLock(stage, "run").acquire()
+        try:
+            for name, src in (inputs or {}).items():
+                data = Path(src).read_bytes()
+                atomic_write(stage / name, lambda p, d=data: p.write_bytes(d))
+            base = results / run_id
+            path, k = base, 1
+            while True:
+                manifest_out = {
+                    **manifest,
+                    "run_id": path.name,
+                    "format": 1,
+                    "planned_events": len(plan),
+                }
+                _write_json_atomic(stage / PLAN, plan)
+                _write_json_atomic(stage / MANIFEST, manifest_out)
+                try:
+                    # rename(2) onto an existing non-empty folder fails; an empty one is
+                    # never left by this code, so this also settles a race between two runs
+                    if path.exists():
+                        raise FileExistsError(path)
+                    os.rename(stage, path)
+                    break
+                except OSError as exc:
+                    if exc.errno not in (None, errno.EEXIST, errno.ENOTEMPTY):
+                        raise
+                    k += 1
+                    path = base.with_name(f"{base.name}-{k}")
+            fsync_dir(results)
+        except BaseException:
+            lock.release()
+            shutil.rmtree(stage, ignore_errors=True)
+            raise
+        writer = cls(path, lock)
         writer._open_journal()
         return writer
 
     @classmethod
     def reopen(cls, run_dir: str | Path) -> RunWriter:
-        """Open an interrupted run to continue it: drop a torn last journal line and any
-        waveform file the journal does not name (the event in flight is planned again)."""
+        """Open an interrupted run to continue it: take the folder's lock (RunLockedError when
+        another process writes it), drop a torn last journal line and any waveform file the
+        journal does not name (the event in flight is planned again)."""
         path = Path(run_dir)
         read_manifest(path)
-        read_plan(path)
-        journal = path / JOURNAL
-        if journal.exists():
-            data = journal.read_bytes()
-            cut = data.rfind(b"\n") + 1
-            if cut != len(data):
-                with open(journal, "r+b") as fh:
-                    fh.truncate(cut)
-                    fh.flush()
-                    os.fsync(fh.fileno())
-                log.warning(
-                    "%s: dropped a torn last journal line (%d bytes)", journal, len(data) - cut
-                )
-        rows = read_journal(path)
-        named = {r["file"] for r in rows if r.get("file")}
-        for f in (path / WAVEFORMS).iterdir():
-            rel = f"{WAVEFORMS}/{f.name}"
-            if rel not in named:
-                f.unlink()
-                log.warning("%s: removed %s (not in the journal)", path, rel)
-        writer = cls(path)
+        lock = RunLock(path, "resume").acquire()
+        try:
+            read_plan(path)
+            journal = path / JOURNAL
+            if journal.exists():
+                data = journal.read_bytes()
+                cut = data.rfind(b"\n") + 1
+                if cut != len(data):
+                    with open(journal, "r+b") as fh:
+                        fh.truncate(cut)
+                        fh.flush()
+                        os.fsync(fh.fileno())
+                    log.warning(
+                        "%s: dropped a torn last journal line (%d bytes)", journal, len(data) - cut
+                    )
+            rows = read_journal(path)
+            named = {r["file"] for r in rows if r.get("file")}
+            for f in (path / WAVEFORMS).iterdir():
+                rel = f"{WAVEFORMS}/{f.name}"
+                if rel not in named:
+                    f.unlink()
+                    log.warning("%s: removed %s (not in the journal)", path, rel)
+        except BaseException:
+            lock.release()
+            raise
+        writer = cls(path, lock)
         writer._done = {int(r["event"]) for r in rows}
         writer._open_journal()
         return writer
@@ -195,10 +273,18 @@ class RunWriter:
         self._journal = open(self.path / JOURNAL, "ab")  # noqa: SIM115 - kept open for the run
 
     def close(self) -> None:
-        """Close the journal (safe to call twice)."""
+        """Close the journal and release the folder's lock (safe to call twice)."""
         if self._journal is not None:
             self._journal.close()
             self._journal = None
+        if self._lock is not None:
+            self._lock.release()
+            self._lock = None
+
+    def mark_failed_start(self, error: str) -> None:
+        """Record that the run never reached its first event (the bench did not open, the
+        operator stopped it before, ...): status ``failed to start`` and the error."""
+        self.update_manifest(status=FAILED_TO_START, error=error, ended=_now_iso())
 
     def __enter__(self) -> RunWriter:
         return self
@@ -210,6 +296,11 @@ class RunWriter:
     @property
     def done(self) -> set[int]:
         """Plan indices already journalled."""
+        return set(self._done)
+
+    def reload_done(self) -> set[int]:
+        """Plan indices in the journal file, re-read (the count to report after a stop)."""
+        self._done = {int(r["event"]) for r in read_journal(self.path)}
         return set(self._done)
 
     def waveform_path(self, event: int) -> tuple[Path, str]:
@@ -260,11 +351,7 @@ class RunWriter:
         df = pd.DataFrame(rows)
         if len(df):
             df = df.sort_values("event", kind="stable").reset_index(drop=True)
-        out = self.path / EVENTS
-        tmp = out.with_name(out.name + ".tmp")
-        df.to_parquet(tmp, index=False)
-        os.replace(tmp, out)
-        return out
+        return atomic_write(self.path / EVENTS, lambda p: df.to_parquet(p, index=False))
 
 
 # --------------------------------------------------------------------------------------------
@@ -299,7 +386,11 @@ def verify_run(run_dir: str | Path) -> Verification:
     manifest = read_manifest(path)
     plan = read_plan(path)
     planned_idx = {int(p["event"]) if "event" in p else int(p["index"]) for p in plan}
-    problems: list[str] = []
+    if len(planned_idx) != len(plan):
+        problems_plan = [f"{PLAN}: {len(plan) - len(planned_idx)} event numbers repeat"]
+    else:
+        problems_plan = []
+    problems: list[str] = list(problems_plan)
     notes: list[str] = []
     journal = path / JOURNAL
     if journal.exists():
@@ -317,7 +408,7 @@ def verify_run(run_dir: str | Path) -> Verification:
     seen: set[int] = set()
     captured = 0
     for r in rows:
-        ev = int(r.get("event", -1))
+        ev = int(r["event"])
         if ev in seen:
             problems.append(f"{JOURNAL}: event {ev} appears more than once")
         seen.add(ev)
@@ -340,9 +431,11 @@ def verify_run(run_dir: str | Path) -> Verification:
                 notes.append(f"{rel}: not in the journal (left by an interrupted event)")
     status = str(manifest.get("status", "unknown"))
     missing = len(planned_idx - seen)
+    if status == FAILED_TO_START:
+        notes.append(f"the run failed to start: {manifest.get('error') or 'no error recorded'}")
     if status == "complete" and missing:
         problems.append(f"{MANIFEST}: status complete but {missing} planned events are missing")
-    if missing and status != "complete":
+    if missing and status not in ("complete", FAILED_TO_START):
         notes.append(
             f"{missing} of {len(planned_idx)} planned events not done: `rig resume` continues"
         )
@@ -356,4 +449,12 @@ def verify_run(run_dir: str | Path) -> Verification:
                 problems.append(f"{EVENTS}: {n} rows, journal has {len(rows)}")
         except Exception as exc:  # pyarrow raises several types for a damaged file
             problems.append(f"{EVENTS}: unreadable ({exc})")
+    metrics = path / "metrics.parquet"
+    if metrics.exists():
+        import pyarrow.parquet as pq
+
+        try:
+            _ = pq.ParquetFile(metrics).metadata.num_rows
+        except Exception as exc:  # pyarrow raises several types for a damaged file
+            problems.append(f"metrics.parquet: unreadable ({exc}); re-run `rig analyze`")
     return Verification(path, status, len(planned_idx), len(rows), captured, problems, notes)

@@ -37,6 +37,7 @@ from pathlib import Path
 import numpy as np
 
 from rig.store.zarrwave import ZARR_SUFFIX, read_zarr_waveform, write_zarr_waveform
+from rigbase.errors import RunFolderError
 
 __all__ = ["WAVEFORM_SUFFIX", "Waveform", "load_waveform", "save_waveform", "sha256_file"]
 
@@ -116,26 +117,34 @@ def save_waveform(path: str | Path, wf: Waveform) -> str:
 
 
 def load_waveform(path: str | Path) -> Waveform:
-    """Read a waveform file of either format; ValueError naming the file and key if it is
-    incomplete."""
+    """Read a waveform file of either format; RunFolderError (a ValueError) naming the file
+    when it is incomplete, truncated or not an archive; FileNotFoundError when it is missing."""
     path = Path(path)
+    try:
+        return _load_waveform(path)
+    except FileNotFoundError:
+        raise
+    except (zipfile.BadZipFile, EOFError, KeyError, ValueError, OSError, TypeError) as exc:
+        if isinstance(exc, RunFolderError):
+            raise
+        raise RunFolderError(f"{path}: unreadable waveform file ({exc})") from None
+
+
+def _load_waveform(path: Path) -> Waveform:
     if _format(path) == "zarr":
         fields = read_zarr_waveform(path)
         codes = fields["codes"]
         if codes.ndim != 2 or codes.dtype not in (np.int8, np.int16):
-            raise ValueError(f"{path} [codes]: expected a 2-D int8 or int16 array")
+            raise RunFolderError(f"{path} [codes]: expected a 2-D int8 or int16 array")
         return Waveform(**fields)
-    try:
-        z = np.load(path, allow_pickle=False)
-    except (ValueError, zipfile.BadZipFile) as exc:  # not an npz archive (pickle refused, junk)
-        raise ValueError(f"{path}: not a readable .npz waveform file ({exc})") from exc
-    with z:
+    # the file is opened here so that it is closed however np.load fails on it
+    with open(path, "rb") as fh, np.load(fh, allow_pickle=False) as z:
         missing = [k for k in _KEYS if k not in z.files]
         if missing:
-            raise ValueError(f"{path}: waveform file lacks {', '.join(missing)}")
+            raise RunFolderError(f"{path}: waveform file lacks {', '.join(missing)}")
         codes = z["codes"]
         if codes.ndim != 2 or codes.dtype not in (np.int8, np.int16):
-            raise ValueError(f"{path} [codes]: expected a 2-D int8 or int16 array")
+            raise RunFolderError(f"{path} [codes]: expected a 2-D int8 or int16 array")
         return Waveform(
             codes=codes,
             gain=z["gain"],

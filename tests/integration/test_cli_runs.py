@@ -63,16 +63,17 @@ def test_killed_run_verifies_and_resumes(tmp_path, seed, sig):
         stderr=subprocess.PIPE,
         text=True,
     )
-    # wait until the run has started journalling, then strike at a random moment
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
+    # strike when the journal holds a random count of events (the run's own progress, not a
+    # time: a kill after the last event would silently skip the checks below)
+    at = int(rng.integers(1, 26))
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline and proc.poll() is None:
         runs = [p for p in results.glob("*") if (p / "journal.jsonl").exists()]
-        if runs and (runs[0] / "journal.jsonl").stat().st_size > 0:
+        if runs and len(read_journal(runs[0])) >= at:
             break
-        time.sleep(0.05)
-    time.sleep(float(rng.uniform(0.0, 1.5)))
-    if proc.poll() is None:
-        os.kill(proc.pid, sig)
+        time.sleep(0.005)
+    assert proc.poll() is None, "the run ended before the chosen moment"
+    os.kill(proc.pid, sig)
     out, err = proc.communicate(timeout=120)
     run = only_run(results)
     manifest = json.loads((run / "manifest.json").read_text())
@@ -83,6 +84,7 @@ def test_killed_run_verifies_and_resumes(tmp_path, seed, sig):
         assert manifest["exit_path"] == "Ctrl-C" and manifest["safe_state"]["reached"]
 
     journal_before = read_journal(run)  # readable whatever the moment of the kill
+    assert at <= len(journal_before) < len(read_plan(run))  # the kill landed inside the run
     v = rig("verify", str(run))
     assert "events journalled" in v.stdout
     if len(journal_before) < len(read_plan(run)):

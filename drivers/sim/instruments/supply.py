@@ -42,7 +42,7 @@ class SimSupply(ScpiDevice):
         self.add(
             f"[SOURce]:CURRent{lev}", set=self._set_amps, query=self._get_amps, query_args=(0, 1)
         )
-        self.add("OUTPut[:STATe]", set=self._set_output, query=lambda c: str(int(self.output)))
+        self.add("OUTPut[:STATe]", set=self._set_output, query=self._get_output)
         self.add("MEASure[:SCALar]:VOLTage[:DC]", query=lambda c: self._measure(0))
         self.add("MEASure[:SCALar]:CURRent[:DC]", query=lambda c: self._measure(1))
 
@@ -66,8 +66,14 @@ class SimSupply(ScpiDevice):
         limit = _optional_limit(call, 0.0, self.max_amps, self.max_amps)
         return limit or format_number(self.amps)
 
+    def _get_output(self, call: Call) -> str:
+        # a protection trip turns the output off behind the setting's back
+        return str(int(self.output and not getattr(self.world, "tripped", False)))
+
     def _set_output(self, call: Call) -> None:
         self.output = call.params[0].boolean()
+        if self.output and getattr(self.world, "tripped", False):
+            self.world.tripped = False  # switching on again resets the trip
         self.world.supply_program(output=self.output)
 
     def _measure(self, which: int) -> str:

@@ -106,7 +106,9 @@ def fig_strip(
             ax.set_xlim(-0.6, len(volts) - 0.4)
             ax.set_xlabel("Charge voltage")
             ax.set_title(mpl_text(mode), loc="left")
-        top = float(np.nanmax(df[value].to_numpy(float))) * factor if len(df) else 1.0
+        vals = df[value].to_numpy(float)
+        # a run without one captured event has only NaN here (a scope that never triggered)
+        top = float(np.nanmax(vals)) * factor if np.isfinite(vals).any() else 1.0
         axes[0].set_ylim(0, 1.08 * top if np.isfinite(top) and top > 0 else 1.0)
         axes[0].set_ylabel(axis_label(quantity, unit, yunit[: -len(unit)] if unit else ""))
         handles = [

@@ -1,0 +1,49 @@
+"""Reading the run folder's tables (parquet, CSV) with one-line errors naming the file.
+
+A damaged table (truncated by a crash of a version that wrote in place, edited by hand,
+half-copied) raises :class:`rigbase.errors.RunFolderError` with the file and what the reader
+said, never a parser traceback. The writers (``rig.store.atomic``) make truncation by a crash
+impossible from now on.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from rigbase.errors import RunFolderError
+
+__all__ = ["read_csv_table", "read_parquet_table"]
+
+
+def read_parquet_table(path: str | Path) -> Any:
+    """A parquet file as a pandas DataFrame; RunFolderError if it cannot be read."""
+    import pandas as pd
+
+    try:
+        return pd.read_parquet(path)
+    except FileNotFoundError:
+        raise
+    except Exception as exc:  # pyarrow raises several types (ArrowInvalid, OSError, ...)
+        raise RunFolderError(
+            f"{path}: unreadable table ({_first_line(exc)}); re-run `rig analyze`"
+        ) from None
+
+
+def read_csv_table(path: str | Path, **kw: Any) -> Any:
+    """A CSV file as a pandas DataFrame; RunFolderError if it cannot be read."""
+    import pandas as pd
+
+    try:
+        return pd.read_csv(path, **kw)
+    except FileNotFoundError:
+        raise
+    except (ValueError, UnicodeDecodeError, pd.errors.ParserError) as exc:
+        raise RunFolderError(
+            f"{path}: unreadable table ({_first_line(exc)}); re-run `rig analyze`"
+        ) from None
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()
+    return text[0] if text else type(exc).__name__
