@@ -130,7 +130,8 @@ def read_journal(run_dir: str | Path) -> list[dict[str, Any]]:
 
 
 # a journalled waveform name: inside waveforms/, no way out of the run folder
-_SAFE_REL = re.compile(r"waveforms/[A-Za-z0-9_.-]+\.npz")
+# (``.zarr.zip`` since the compressed store, ``.npz`` in older runs)
+_SAFE_REL = re.compile(r"waveforms/[A-Za-z0-9_-]+(\.zarr\.zip|\.npz)")
 
 
 # --------------------------------------------------------------------------------------------
