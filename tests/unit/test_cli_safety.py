@@ -6,7 +6,8 @@ from types import SimpleNamespace
 
 import pytest
 
-from rig.cli import _confirm_hv, main
+from rig.cli import main
+from rig.cli.running import _confirm_hv
 from rigbase.errors import LimitError, SafetyError
 
 
@@ -78,7 +79,7 @@ def test_demo_exit_code_follows_the_readme(monkeypatch, run_code, demo_code):
     ran); bad input, bench trouble and interruptions keep their codes."""
     import argparse
 
-    from rig import cli
+    from rig.cli import running
 
-    monkeypatch.setattr(cli, "cmd_run", lambda ns: run_code)
-    assert cli.cmd_demo(argparse.Namespace(results="results", quiet=True)) == demo_code
+    monkeypatch.setattr(running, "cmd_run", lambda ns: run_code)
+    assert running.cmd_demo(argparse.Namespace(results="results", quiet=True)) == demo_code

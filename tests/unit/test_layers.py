@@ -43,7 +43,7 @@ def test_the_tree_keeps_every_contract():
         ("rig/analysis/stats.py", "import drivers.session", "never touch the instrument layer"),
         ("drivers/scope.py", "import rig.store.schema", "knows nothing of the controller"),
         ("rig/store/schema.py", "import rig.analysis.stats", "data flow runs one way"),
-        ("rig/cli.py", "import drivers.sim.bench", "only through the bench opener"),
+        ("rig/cli/running.py", "import drivers.sim.bench", "only through the bench opener"),
         ("rigbase/units.py", "import rig", "base layer stands alone"),
         ("rig/dataset/query.py", "import rig.runner.cycle", "never reaches the runner"),
     ],
