@@ -37,7 +37,7 @@ log = logging.getLogger("rig")
 
 def cmd_check(args: argparse.Namespace) -> int:
     from rig.planning.limits import checked_plan
-    from rig.planning.plan import describe, safety_review
+    from rig.planning.review import describe, safety_review
     from rig.planning.sequence import load_sequence
     from rig.runner.opener import check_meter_netlists, load_bench, meter_time_constants
 
@@ -178,7 +178,7 @@ def _analyse_and_report(run_dir: Path, baseline: Path | None) -> dict[str, int]:
 
 def cmd_run(args: argparse.Namespace) -> int:
     from rig.planning.limits import checked_plan
-    from rig.planning.plan import describe, safety_review
+    from rig.planning.review import describe, safety_review
     from rig.planning.sequence import load_sequence
     from rig.runner.cycle import host_info
     from rig.runner.opener import check_meter_netlists, load_bench, meter_time_constants

@@ -31,10 +31,9 @@ from rig.planning.plan import (
     Finding,
     Plan,
     build_plan,
-    describe,
     meter_capacitance_f,
-    safety_review,
 )
+from rig.planning.review import RECORD_TAUS, describe, record_findings, safety_review
 from rig.planning.sequence import (
     DEFAULT_CAPTURE,
     METRICS,
@@ -47,6 +46,8 @@ from rig.planning.sequence import (
 )
 
 __all__ = [
+    "RECORD_TAUS",
+    "record_findings",
     "LIMITS",
     "checked_plan",
     "plan_size",

@@ -18,9 +18,10 @@ import numpy as np
 import pytest
 
 from drivers.clock import VirtualClock
+from drivers.sim.arcs import ARC_VOLTS
 from drivers.sim.circuit import Probe
 from drivers.sim.interfaces import BounceSpec
-from drivers.sim.world import ARC_VOLTS, BenchWorld
+from drivers.sim.world import BenchWorld
 from rig.runner.opener import load_bench
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -17,11 +17,10 @@ from rig.planning.plan import (
     MODE_CHANGE_SCPI_S,
     Event,
     build_plan,
-    describe,
     event_key,
     meter_capacitance_f,
-    safety_review,
 )
+from rig.planning.review import describe, safety_review
 from rig.planning.sequence import load_sequence
 from rig.runner.opener import load_bench
 
