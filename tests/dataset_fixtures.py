@@ -98,7 +98,9 @@ def write_metrics_run(
     with open(run / "journal.jsonl", "w", encoding="utf-8") as fh:
         for rec in journal.to_dict("records"):
             fh.write(json.dumps(rec) + "\n")
-    (run / "plan.json").write_text(json.dumps([{"event": int(e)} for e in m["event"]]))
+    (run / "plan.json").write_text(
+        json.dumps([{"event": int(e), "key": f"e{int(e)}"} for e in m["event"]])
+    )
     manifest = {
         "format": 1,
         "run_id": run_id,

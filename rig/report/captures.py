@@ -68,6 +68,8 @@ def fast_resolved(m: pd.DataFrame, capture: str) -> bool:
 def measures(m: pd.DataFrame) -> dict[str, set[str]]:
     """{capture: families it measures} for the captures of the events ``m``."""
     caps = [str(c) for c in dict.fromkeys(m["capture"])] if "capture" in m else ["main"]
+    if not caps:  # no captured event at all (a scope that never triggered)
+        return {}
     peak_cap, charge_cap = capture_roles(m) if len(caps) > 1 else (caps[0], caps[0])
     out: dict[str, set[str]] = {}
     for c in caps:

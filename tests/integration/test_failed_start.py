@@ -27,7 +27,7 @@ def test_closed_port_is_a_failed_start(tmp_path, capsys):
     seq.write_text(seq.read_text().replace('sim_model = "demo-a"\n', ""))
     results = tmp_path / "results"
     args = ["run", str(seq), "--bench", str(bench), "--results", str(results), "--quiet"]
-    assert main([*args, "--confirm-hv", "500"]) == 3
+    assert main([*args, "--confirm-hv", "500", "--operator", "Test operator"]) == 3
     (run,) = _runs(results)
     m = read_manifest(run)
     assert m["status"] == "failed to start"

@@ -98,7 +98,8 @@ def test_an_old_run_folder_of_npz_files_still_opens_and_resumes_in_the_new_forma
 
 def test_a_resumed_run_writes_new_events_as_zarr_beside_old_npz(tmp_path):
     run = tmp_path / "run"
-    writer = RunWriter.create(tmp_path, "run", {"status": "running"}, [{"event": 0}, {"event": 1}])
+    plan = [{"event": 0, "key": "k0"}, {"event": 1, "key": "k1"}]
+    writer = RunWriter.create(tmp_path, "run", {"status": "running"}, plan)
     wf = _wf(np.random.default_rng(3), n=500)
     old = run / "waveforms" / "e000000.npz"
     sha = save_waveform(old, wf)
