@@ -23,7 +23,7 @@ import numpy as np
 
 from drivers.sim.circuit import Circuit, Probe
 
-__all__ = ["SpiceResult", "ngspice_available", "run_ngspice", "to_deck"]
+__all__ = ["SpiceResult", "ngspice_available", "run_deck", "run_ngspice", "to_deck"]
 
 log = logging.getLogger(__name__)
 
@@ -135,13 +135,22 @@ def run_ngspice(
     timeout_s: float = 600.0,
 ) -> SpiceResult:
     """Run ``ngspice -b`` on the exported deck in a temporary folder and parse the results."""
-    exe = shutil.which("ngspice")
-    if exe is None:
-        raise FileNotFoundError("ngspice is not on PATH")
     closed = list(closed)
     deck = to_deck(
         circuit, closed, inputs, x0, t_stop, t_step, outputs, "out.txt", max_step, reltol
     )
+    return run_deck(deck, t_stop, outputs, timeout_s)
+
+
+def run_deck(
+    deck: str, t_stop: float, outputs: Sequence[str | Probe], timeout_s: float = 600.0
+) -> SpiceResult:
+    """Run ``ngspice -b`` on ``deck`` (which writes ``out.txt`` with ``wrdata``) in a
+    temporary folder; RuntimeError naming ngspice's last lines when it fails or stops short
+    of ``t_stop``."""
+    exe = shutil.which("ngspice")
+    if exe is None:
+        raise FileNotFoundError("ngspice is not on PATH")
     with tempfile.TemporaryDirectory(prefix="rig-spice-") as tmp:
         path = Path(tmp) / "deck.cir"
         path.write_text(deck, encoding="ascii")

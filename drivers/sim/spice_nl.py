@@ -12,18 +12,13 @@ the explicit RS and CJ elements instead, so both engines still solve the same ne
 from __future__ import annotations
 
 import re
-import shutil
-import subprocess
-import tempfile
-import time
 from collections.abc import Iterable, Mapping, Sequence
-from pathlib import Path
 
 import numpy as np
 
 from drivers.sim.circuit import Probe
 from drivers.sim.nonlinear import NonlinearCircuit
-from drivers.sim.spice import SpiceResult, _name, _sanitize, to_deck
+from drivers.sim.spice import SpiceResult, _sanitize, run_deck, to_deck
 
 __all__ = ["run_ngspice_nl", "to_deck_nl"]
 
@@ -117,23 +112,5 @@ def run_ngspice_nl(
     timeout_s: float = 600.0,
 ) -> SpiceResult:
     """Run ``ngspice -b`` on :func:`to_deck_nl`'s deck; results as :class:`SpiceResult`."""
-    exe = shutil.which("ngspice")
-    if exe is None:
-        raise FileNotFoundError("ngspice is not on PATH")
     deck = to_deck_nl(nl, closed, x0, t_stop, t_step, outputs, max_step, reltol, own_parts)
-    with tempfile.TemporaryDirectory(prefix="rig-spice-") as tmp:
-        path = Path(tmp) / "deck.cir"
-        path.write_text(deck, encoding="ascii")
-        t0 = time.perf_counter()
-        proc = subprocess.run(
-            [exe, "-b", str(path)], cwd=tmp, capture_output=True, text=True, timeout=timeout_s
-        )
-        seconds = time.perf_counter() - t0
-        out = Path(tmp) / "out.txt"
-        failed = proc.returncode != 0 or not out.exists() or "aborted" in proc.stderr
-        data = np.loadtxt(out, skiprows=1, ndmin=2) if not failed else np.zeros((0, 1))
-        if failed or data.shape[0] < 2 or data[-1, 0] < t_stop * (1 - 1e-6):
-            tail = " | ".join((proc.stderr or proc.stdout).strip().splitlines()[-3:])
-            raise RuntimeError(f"ngspice failed (exit {proc.returncode}): {tail}")
-    names = tuple(_name(o) for o in outputs)
-    return SpiceResult(data[:, 0], data[:, 1:].T, names, deck, seconds)
+    return run_deck(deck, t_stop, outputs, timeout_s)

@@ -23,7 +23,7 @@ from rig.report.data import (
     _peak_metric,
     _several_captures,
 )
-from rig.report.html import _dict, _plain, _table, _verdict_cell, esc, group_cells
+from rig.report.html import GROUP_HEADERS, _dict, _plain, _table, _verdict_cell, esc, group_cells
 from rigbase.units import eng, metric_label, metric_unit
 
 
@@ -378,12 +378,7 @@ def _section_verdicts(g: pd.DataFrame) -> str:
             "<h3>Checks that did not pass</h3>"
             + _table(
                 [
-                    "Meter",
-                    "Mode",
-                    "Capture",
-                    "Voltage",
-                    "Load",
-                    "Delay",
+                    *GROUP_HEADERS,
                     "Metric",
                     "Upper tolerance bound",
                     "Max",

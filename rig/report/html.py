@@ -140,6 +140,10 @@ a{color:inherit;text-decoration:none}
 """
 
 
+#: headers of the group-key columns, in the order of :func:`group_cells`
+GROUP_HEADERS = ("Meter", "Mode", "Capture", "Voltage", "Load", "Delay")
+
+
 def group_cells(r: Any, capture: bool = True) -> list[str]:
     """Escaped cells of a group's keys: meter, mode, capture (blank when the run has only
     one), voltage, load and delay - the same columns in every table of the report."""

@@ -25,7 +25,17 @@ from rig.analysis.provenance import mismatch
 from rig.report import figures as F
 from rig.report.captures import shown_groups
 from rig.report.data import FLAG_TEXT, _capture_text, _several_captures
-from rig.report.html import _dict, _kv, _plain, _short, _table, _verdict_cell, esc, group_cells
+from rig.report.html import (
+    GROUP_HEADERS,
+    _dict,
+    _kv,
+    _plain,
+    _short,
+    _table,
+    _verdict_cell,
+    esc,
+    group_cells,
+)
 from rig.store.waveform import load_waveform
 from rigbase.units import eng, metric_label, metric_unit
 
@@ -237,12 +247,7 @@ def _section_flagged(run: Path, m: pd.DataFrame, colours: dict[str, str]) -> str
         + _table(
             [
                 "Event",
-                "Meter",
-                "Mode",
-                "Capture",
-                "Voltage",
-                "Load",
-                "Delay",
+                *GROUP_HEADERS,
                 "|Peak|",
                 "Charge",
                 "Flags",
@@ -307,12 +312,7 @@ def _section_groups(g: pd.DataFrame, m: pd.DataFrame | None = None) -> str:
         + "<div class='wide'>"
         + _table(
             [
-                "Meter",
-                "Mode",
-                "Capture",
-                "Voltage",
-                "Load",
-                "Delay",
+                *GROUP_HEADERS,
                 "Metric",
                 "n",
                 "Mean",
