@@ -110,6 +110,7 @@ def event_metrics(
     noise_factor: float = 6.0,
     pulse_fraction: float = 0.25,
     chunk_bytes: int = 16 << 20,
+    tail_fit: bool = True,
 ) -> dict[str, np.ndarray]:
     """Metrics of every event (row) of ``data``; one 1-D array per name in METRIC_COLUMNS.
 
@@ -124,6 +125,10 @@ def event_metrics(
     noise_factor: a peak must exceed this multiple of the noise, or the event is flagged
         below noise. pulse_fraction: pulse-count threshold as a fraction of the peak.
     chunk_bytes: working-memory budget of one chunk of float rows (bytes).
+    tail_fit: fit the tail beyond the record (rig.analysis.wholecharge). False (the live
+        display of a peak capture, which shows only the peak): ``charge_c`` is the record's
+        integral, ``charge_tail_c`` and ``charge_u_c`` are NaN and ``flag_truncated`` is
+        False because nobody judged it; the analysis always fits.
     """
     out = _metrics(
         data,
@@ -139,6 +144,7 @@ def event_metrics(
         noise_factor=noise_factor,
         pulse_fraction=pulse_fraction,
         chunk_bytes=chunk_bytes,
+        tail_fit=tail_fit,
     )
     del out["t_onset_s"], out["tail_start"]
     return out
@@ -193,6 +199,7 @@ def _metrics(
     noise_factor: float = 6.0,
     pulse_fraction: float = 0.25,
     chunk_bytes: int = 16 << 20,
+    tail_fit: bool = True,
 ) -> dict[str, np.ndarray]:
     """:func:`event_metrics` plus ``t_onset_s`` (10 % point of the leading edge, s)."""
     data = np.asarray(data)
@@ -248,6 +255,7 @@ def _metrics(
             out,
             slice(a, b),
             trig_index=-t0_r[a:b] / dt,
+            tail_fit=tail_fit,
         )
 
     # Scale code units to amperes and derive the rest; all per event, cheap.
@@ -310,9 +318,11 @@ def _chunk(
     out: dict[str, np.ndarray],
     sl: slice,
     trig_index: np.ndarray,
+    tail_fit: bool = True,
 ) -> None:
     """Metrics of one chunk of rows in code units (samples for times), written into ``out``.
-    ``trig_index``: the trigger's (fractional) sample index per row."""
+    ``trig_index``: the trigger's (fractional) sample index per row; ``tail_fit``: see
+    :func:`event_metrics`."""
     r, n = raw.shape
     rows = np.arange(r)
     pre = raw[:, base_lo:base_hi]
@@ -353,12 +363,13 @@ def _chunk(
     q_rec = total - base * n_int
     out["charge_record_c"][sl] = q_rec
     out["charge_c"][sl] = q_rec
-    out["charge_tail_c"][sl] = 0.0
-    out["charge_u_c"][sl] = u_base * n_int
+    out["charge_tail_c"][sl] = 0.0 if tail_fit else np.nan
+    out["charge_u_c"][sl] = u_base * n_int if tail_fit else np.nan
     out["energy_j"][sl] = np.einsum("ij,ij->i", y, y)
     out["flag_below_noise"][sl] = below
     if not ok.any():
-        _whole_charge(raw, base, pol, noise, u_base, corr, p, trig_index, n_int, ok, out, sl)
+        if tail_fit:
+            _whole_charge(raw, base, pol, noise, u_base, corr, p, trig_index, n_int, ok, out, sl)
         return
     out["polarity"][sl] = np.where(ok, pol, 0).astype(np.int8)
     out["abs_peak_a"][sl] = np.where(ok, ip, np.nan)
@@ -399,7 +410,8 @@ def _chunk(
             after = end[i] + int(hi_idx[-1]) + 1
             below = np.flatnonzero(y[i, after:] < floor[i])
             start[i] = after + int(below[0]) if below.size else after
-    _whole_charge(raw, base, pol, noise, u_base, corr, start, trig_index, n_int, ok, out, sl)
+    if tail_fit:
+        _whole_charge(raw, base, pol, noise, u_base, corr, start, trig_index, n_int, ok, out, sl)
     above, under = pulse_masks(raw, y, base, pol, thr_hi, thr_lo, integer)
     # an event whose peak clears the noise but not the upper threshold is one pulse
     out["pulses"][sl] = np.where(ok, np.maximum(count_pulses(above, under), 1), 0)
@@ -473,10 +485,14 @@ def _whole_charge(
         out["flag_truncated"][k] = bool(share > TAIL_SHARE_LIMIT or not np.isfinite(share))
 
 
-def quick_metrics(wf: Waveform, channel: str = "current") -> dict[str, Any]:
+def quick_metrics(
+    wf: Waveform, channel: str = "current", *, tail_fit: bool = True
+) -> dict[str, Any]:
     """Metrics of one waveform as it is captured (live display): METRIC_COLUMNS values as
     Python scalars, ``abs_peak_a`` None below noise, and ``flagged`` (clipped, truncated or
-    below noise). No charge voltage or load is known here, so c_equiv and energy are NaN."""
+    below noise). No charge voltage or load is known here, so c_equiv and energy are NaN.
+    ``tail_fit=False``: no tail fit (see :func:`event_metrics`; a peak capture's live figure
+    is its peak, and the fit of its microsecond record cost 20 times the rest)."""
     k = wf.index(channel)
     res = event_metrics(
         wf.codes[k : k + 1],
@@ -486,6 +502,7 @@ def quick_metrics(wf: Waveform, channel: str = "current") -> dict[str, Any]:
         offset=wf.offset[k],
         code_min=wf.code_min[k],
         code_max=wf.code_max[k],
+        tail_fit=tail_fit,
     )
     out: dict[str, Any] = {name: v[0].item() for name, v in res.items()}
     if not np.isfinite(out["abs_peak_a"]):

@@ -66,11 +66,12 @@ class _GroupRow:
     last: float | None = None
 
 
-def _event_figures(wf: Waveform) -> dict[str, Any]:
-    """|Peak current|, charge and the analysis flag of one event (via rig.analysis.metrics)."""
+def _event_figures(wf: Waveform, charge: bool) -> dict[str, Any]:
+    """|Peak current|, charge and the analysis flag of one event (via rig.analysis.metrics);
+    the tail beyond the record is fitted only when the live figure is the ``charge``."""
     from rig.analysis.metrics import quick_metrics
 
-    return quick_metrics(wf)
+    return quick_metrics(wf, tail_fit=charge)
 
 
 class LiveDisplay(Observer):
@@ -144,9 +145,10 @@ class LiveDisplay(Observer):
             g.flags += 1
             g.last = None
         else:
-            m = _event_figures(waveform)
+            charge = key[2] in self.charge_captures
+            m = _event_figures(waveform, charge)
             g.flags += int(m["flagged"])
-            value = m["charge_c"] if key[2] in self.charge_captures else m["abs_peak_a"]
+            value = m["charge_c"] if charge else m["abs_peak_a"]
             g.last = value
             if value is not None and value == value:  # NaN-safe
                 g.values.add(abs(value))
