@@ -212,7 +212,9 @@ def test_query_interrupted(rm: pyvisa.ResourceManager, bench: SimBench) -> None:
         bench.world.clock.sleep(5.0)
         assert scope.query("STAT:OPER:COND?") == "0"
         scope.write("TRAC:DATA? INT1")
-        time.sleep(1.0)
+        # the answer has begun (its block header is here) however loaded the machine is:
+        # a fixed wait let *OPC overtake the answer's start now and then under load
+        assert scope.read_bytes(1) == b"#"
         scope.write("*OPC")
         time.sleep(0.5)
         scope.clear()  # drop what already reached our socket
