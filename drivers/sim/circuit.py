@@ -39,6 +39,7 @@ import numpy as np
 from drivers.sim.assembly import build_model
 from drivers.sim.netlist import Element, MeterNetlist
 from drivers.sim.statespace import EIG_COND_LIMIT, StateSpace
+from rigbase.graph import connected_groups
 
 __all__ = ["GMIN_OHMS", "STRAY_FARADS", "Circuit", "Probe", "StateSpace", "Step", "Trace"]
 
@@ -301,24 +302,7 @@ def _probe_name(p: Probe) -> str:
 
 
 def _components(nodes: Iterable[str], edges: Iterable[Element]) -> list[set[str]]:
-    parent = {n: n for n in nodes}
-
-    def find(n: str) -> str:
-        while parent[n] != n:
-            parent[n] = parent[parent[n]]
-            n = parent[n]
-        return n
-
-    for e in edges:
-        parent.setdefault(e.a, e.a)
-        parent.setdefault(e.b, e.b)
-        ra, rb = find(e.a), find(e.b)
-        if ra != rb:
-            parent[ra] = rb
-    groups: dict[str, set[str]] = {}
-    for n in parent:
-        groups.setdefault(find(n), set()).add(n)
-    return list(groups.values())
+    return connected_groups(nodes, ((e.a, e.b) for e in edges))
 
 
 def _connected(a: str, b: str, edges: Sequence[Element]) -> bool:

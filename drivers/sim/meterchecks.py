@@ -27,6 +27,7 @@ from drivers.sim.circuit import Probe
 from drivers.sim.interfaces import WorldConfig
 from drivers.sim.netlist import MeterNetlist, load_netlist
 from rigbase.errors import FileFormatError
+from rigbase.graph import connected_groups
 
 __all__ = ["SELECT_RELATIVE", "check_netlist", "discharge_time_constants"]
 
@@ -51,20 +52,14 @@ def check_netlist(path: str | Path) -> MeterNetlist:
                 f"the terminals are {net.input!r} and {net.common!r})",
             )
     # DC paths in any mode: R, L, and every switch (closed in at least one mode)
-    parent = {n: n for n in ends}
-
-    def find(n: str) -> str:
-        while parent[n] != n:
-            parent[n] = parent[parent[n]]
-            n = parent[n]
-        return n
-
-    for e in net.elements:
-        if e.kind in "RL" or (e.kind == "S" and net.closed_in.get(e.name)):
-            parent[find(e.a)] = find(e.b)
-    root = find(net.common)
+    dc = [
+        (e.a, e.b)
+        for e in net.elements
+        if e.kind in "RL" or (e.kind == "S" and net.closed_in.get(e.name))
+    ]
+    bled = next(g for g in connected_groups(ends, dc) if net.common in g)
     for node in sorted(ends):
-        if find(node) != root:
+        if node not in bled:
             raise FileFormatError(
                 path,
                 f"element.{ends[node][0]}.nodes",

@@ -138,11 +138,19 @@ def test_a_tail_longer_than_the_capture_is_warned_and_flagged(tmp_path: Path, ca
 
 def test_check_refuses_a_misspelt_netlist(tmp_path: Path, capsys) -> None:
     """The netlist check `rig check` and `rig run` share: a misspelt key and a node name
-    that matches nothing (GND for COM) are refused with exit 2, naming file and key."""
+    that matches nothing (GND for COM) and a node without a DC path to COM are refused with
+    exit 2, naming file and key."""
     good = SLOW_METER.read_text()
+    # two capacitors in series: their middle node has no DC path to COM, so its charge could
+    # never be bled (a connectivity fact, no source needed)
+    floating = (
+        '\n[[element]]\nname = "C_f1"\nkind = "C"\nnodes = ["VIN", "f1"]\nfarads = 1e-9\n'
+        '\n[[element]]\nname = "C_f2"\nkind = "C"\nnodes = ["f1", "COM"]\nfarads = 1e-9\n'
+    )
     for bad, key in (
         (good.replace("farads = 100e-9", "farad = 100e-9"), "element.C_couple.farad"),
         (good.replace('nodes = ["e1", "COM"]', 'nodes = ["e1", "GND"]'), "element.R_acv.nodes"),
+        (good + floating, "element.C_f1.nodes"),
     ):
         meter = tmp_path / "bad-meter.toml"
         meter.write_text(bad)
