@@ -29,6 +29,7 @@ import pandas as pd
 from scipy import stats as sps
 
 from rig.analysis.stats import GROUP_KEYS, bootstrap_ci, capture_roles, with_capture
+from rig.store.atomic import atomic_write
 from rig.store.runfolder import read_manifest
 from rig.store.tables import read_parquet_table
 from rigbase.errors import RunFolderError
@@ -326,7 +327,8 @@ def write_comparison(
     from rig.analysis.provenance import record_options
 
     path = comparison_path(run_dir, baseline_dir)
-    df.to_csv(path, index=False)
+    # atomic: a comparison killed half-way leaves the previous file, never a torn one
+    atomic_write(path, lambda p: df.to_csv(p, index=False))
     opts = dict(options if options is not None else compare_options())
     opts["baseline"] = str(Path(baseline_dir).resolve())
     record_options(path, "compare", opts, comparison_inputs(run_dir, baseline_dir))
