@@ -57,6 +57,7 @@ from rig.analysis.runs import (
     group_waveforms,
     load_event_waveform,
     load_run,
+    stack_waveforms,
 )
 from rig.analysis.selfdischarge import (
     DEFAULT_SAFE_VOLTS,
@@ -142,6 +143,7 @@ __all__ = [
     "quick_metrics",
     "read_trace",
     "self_discharge",
+    "stack_waveforms",
     "tolerance_factor",
     "tolerance_factor_approx",
     "tost_log",

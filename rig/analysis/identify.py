@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 from scipy.optimize import least_squares
 
-from rig.analysis.runs import group_waveforms, load_run
+from rig.analysis.runs import load_run, stack_waveforms
 from rig.analysis.sourcenet import FosterSource, linear_current
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
@@ -113,34 +113,35 @@ def _before_break(t: np.ndarray, i: np.ndarray, noise: float) -> np.ndarray:
 
 
 def _dataset(
-    run: Path,
-    manifest: Mapping[str, Any],
-    rows: pd.DataFrame,
-    load: str,
-    capture: str,
-    keys: Mapping[str, Any],
+    run: Path, manifest: Mapping[str, Any], rows: pd.DataFrame, load: str, capture: str
 ) -> DataSet | None:
-    t, i, sel = group_waveforms(run, load=load, capture=capture, **keys)
+    sel = rows[(rows["load"] == load) & (rows["capture"] == capture)]
     if not len(sel):
         return None
+    t, i = stack_waveforms(run, sel)
     dt = float(t[1] - t[0])
-    pre = t < -5 * dt
-    base = np.median(i[:, pre], axis=1) if pre.any() else np.zeros(len(i))
-    i = i - base[:, None]
-    noise = float(np.median(np.std(i[:, pre], axis=1))) if pre.any() else 0.0
-    valid = _before_break(t, i, noise) if dt < SLOW_DT else np.ones(i.shape, dtype=bool)
+    n_pre = int(np.searchsorted(t, -5 * dt))  # samples before the edge: t < -5 dt
+    if n_pre:
+        base = np.median(i[:, :n_pre], axis=1)
+        i -= base[:, None]  # our own stacked copy: in place (a record is millions of samples)
+        noise = float(np.median(np.std(i[:, :n_pre], axis=1)))
+    else:
+        noise = 0.0
     edges = _bins(t, dt)
-    k = np.searchsorted(t, edges)
-    k = np.unique(np.clip(k, 0, t.size))
-    counts = np.diff(k)
-    ok = counts > 0
-    k0, k1, n_b = k[:-1][ok], k[1:][ok], counts[ok]
-    cs = np.concatenate([np.zeros((len(i), 1)), np.cumsum(np.where(valid, i, 0.0), axis=1)], 1)
-    cv = np.concatenate([np.zeros((len(i), 1)), np.cumsum(valid, axis=1)], axis=1)
-    ct = np.concatenate([[0.0], np.cumsum(t)])
-    full = (cv[:, k1] - cv[:, k0]) == n_b  # the event is valid over the whole bin
-    ev = np.where(full, (cs[:, k1] - cs[:, k0]) / n_b, np.nan)
-    tb = (ct[k1] - ct[k0]) / n_b
+    k = np.unique(np.clip(np.searchsorted(t, edges), 0, t.size))
+    k0, k1 = k[:-1], k[1:]
+    n_b = k1 - k0  # no empty bins: k strictly increases
+    # sums over the bins only, one pass (np.add.reduceat) over the span they cover
+    span = slice(int(k[0]), int(k[-1]))
+    sums = np.add.reduceat(i[:, span], k0 - k[0], axis=1)
+    tb = np.add.reduceat(t[span], k0 - k[0]) / n_b
+    if dt < SLOW_DT:
+        valid = _before_break(t, i, noise)[:, span]
+        # valid over the whole bin (counted as integers: a sum of booleans is their "or")
+        full = np.add.reduceat(valid, k0 - k[0], axis=1, dtype=np.intp) == n_b
+    else:
+        full = np.ones(sums.shape, dtype=bool)
+    ev = np.where(full, sums / n_b, np.nan)
     n_ok = full.sum(axis=0)
     keep = n_ok >= 3
     ev, tb, n_ok, n_b = ev[:, keep], tb[keep], n_ok[keep], n_b[keep]
@@ -155,7 +156,9 @@ def _dataset(
     settings = _capture_settings(manifest, capture)
     ohms, henry = path_of_load(manifest, load, float(sel["load_ohms"].iloc[0]))
     bw = settings.get("bandwidth_hz")
-    post = t >= 0
+    # trapezoid rule on the uniform grid from the trigger on, without a copy of the records
+    j = int(np.searchsorted(t, 0.0))
+    charges = dt * (i[:, j:].sum(axis=1) - 0.5 * (i[:, j] + i[:, -1]))
     return DataSet(
         load,
         capture,
@@ -166,8 +169,8 @@ def _dataset(
         henry,
         float(bw) if bw else None,
         float(settings.get("trigger_level_amps", 0.2)),
-        np.abs(i).max(axis=1),
-        np.trapezoid(i[:, post], t[post], axis=1),
+        np.maximum(i.max(axis=1), -i.min(axis=1)),
+        charges,
         float(t[-1]),
         dt,
     )
@@ -193,7 +196,7 @@ def collect(run_dir: str | Path, loads: list[str], **keys: Any) -> tuple[list[Da
     sets = []
     for load in loads:
         for cap in sorted(rows.loc[rows["load"] == load, "capture"].unique()):
-            ds = _dataset(run, manifest, rows, load, str(cap), keys)
+            ds = _dataset(run, manifest, rows, load, str(cap))
             if ds is not None:
                 sets.append(ds)
     return sets, v0
