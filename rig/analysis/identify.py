@@ -32,7 +32,7 @@ import pandas as pd
 from scipy.optimize import least_squares
 
 from rig.analysis.runs import load_run, stack_waveforms
-from rig.analysis.sourcenet import FosterSource, linear_current
+from rig.analysis.sourcenet import FosterSource, linear_current, linear_currents
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
 
@@ -202,30 +202,74 @@ def collect(run_dir: str | Path, loads: list[str], **keys: Any) -> tuple[list[Da
     return sets, v0
 
 
-def _model(theta: np.ndarray, v0: float, ds: DataSet, shift: float = 0.0) -> np.ndarray:
-    # the model's own trigger instant: where its (filtered) current first crosses the level,
-    # plus ``shift`` sample intervals (the scope triggers on a sample at or after it)
-    tf = np.concatenate([[0.0], np.geomspace(1e-12, 2e-5, 240)])
-    yf = linear_current(theta, v0, ds.ohms, ds.henry, tf, ds.pole_hz)
-    hit = np.nonzero(yf >= ds.trigger_amps)[0]
-    t_trig = 0.0
-    if hit.size and hit[0] > 0:
-        j = hit[0]
-        t_trig = tf[j - 1] + (ds.trigger_amps - yf[j - 1]) * (tf[j] - tf[j - 1]) / (
-            yf[j] - yf[j - 1]
-        )
-    t_trig += shift * ds.dt
-    return linear_current(theta, v0, ds.ohms, ds.henry, ds.t + t_trig, ds.pole_hz)
+_TF = np.concatenate([[0.0], np.geomspace(1e-12, 2e-5, 240)])  # where the trigger is sought
+
+
+def _models(thetas: np.ndarray, shifts: np.ndarray, v0: float, ds: DataSet) -> np.ndarray:
+    """The model of ``ds`` (batch x bins) for parameter rows ``thetas`` (batch x p) and
+    trigger shifts (batch,). Time zero is the model's own trigger instant: where its
+    (filtered) current first crosses the level, plus ``shift`` sample intervals (the scope
+    triggers on a sample at or after it)."""
+    yf = linear_currents(thetas, v0, ds.ohms, ds.henry, _TF, ds.pole_hz)
+    above = yf >= ds.trigger_amps
+    j = np.where(above.any(axis=1), above.argmax(axis=1), 0)
+    rows = np.arange(len(yf))
+    jm = np.maximum(j - 1, 0)
+    y0, y1 = yf[rows, jm], yf[rows, j]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        frac = (ds.trigger_amps - y0) / (y1 - y0)
+    t_trig = np.where(j > 0, _TF[jm] + frac * (_TF[j] - _TF[jm]), 0.0)
+    t_trig = t_trig + np.asarray(shifts) * ds.dt
+    return linear_currents(
+        thetas, v0, ds.ohms, ds.henry, ds.t[None, :] + t_trig[:, None], ds.pole_hz
+    )
+
+
+def _split(full: np.ndarray, nd: int) -> tuple[np.ndarray, np.ndarray]:
+    return full[:-nd], full[-nd:]
 
 
 def _residuals(full: np.ndarray, v0: float, sets: list[DataSet]) -> np.ndarray:
-    theta, shifts = full[: -len(sets)], full[-len(sets) :]
+    theta, shifts = _split(full, len(sets))
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         r = np.concatenate(
-            [(_model(theta, v0, d, s) - d.y) / d.sigma for d, s in zip(sets, shifts, strict=True)]
+            [
+                (_models(theta[None], shifts[d : d + 1], v0, ds)[0] - ds.y) / ds.sigma
+                for d, ds in enumerate(sets)
+            ]
         )
     # a trial step whose model is not finite is a very bad fit, not an error: the fit steps back
     return np.where(np.isfinite(r), r, 1e6)
+
+
+def _jacobian(
+    full: np.ndarray, v0: float, sets: list[DataSet], lo: np.ndarray, hi: np.ndarray
+) -> np.ndarray:
+    """Forward-difference Jacobian of :func:`_residuals`, the steps scipy's ``2-point``
+    scheme takes (sqrt(eps) max(1, |x|), backward where the bound is near), with every
+    data set's steps evaluated as one batch (one batched eigen-decomposition instead of one
+    per parameter)."""
+    nd = len(sets)
+    theta, shifts = _split(full, nd)
+    h = np.sqrt(np.finfo(float).eps) * np.maximum(1.0, np.abs(full)) * np.where(full < 0, -1, 1)
+    h = np.where((full + h > hi) | (full + h < lo), -h, h)
+    h = (full + h) - full
+    npar = theta.size
+    blocks = []
+    for d, ds in enumerate(sets):
+        # rows: the point, each source parameter stepped, this set's trigger shift stepped
+        th = np.repeat(theta[None], npar + 2, axis=0)
+        th[1 : npar + 1] += np.diag(h[:npar])
+        sh = np.full(npar + 2, shifts[d])
+        sh[-1] += h[npar + d]
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            r = (_models(th, sh, v0, ds) - ds.y) / ds.sigma
+        r = np.where(np.isfinite(r), r, 1e6)
+        J = np.zeros((ds.t.size, full.size))
+        J[:, :npar] = ((r[1 : npar + 1] - r[0]) / h[:npar, None]).T
+        J[:, npar + d] = (r[-1] - r[0]) / h[npar + d]
+        blocks.append(J)
+    return np.vstack(blocks)
 
 
 def _starts(v0: float, sets: list[DataSet], order: int) -> list[np.ndarray]:
@@ -272,6 +316,7 @@ def fit_source(sets: list[DataSet], v0: float, max_order: int = MAX_ORDER) -> Fo
             least_squares(
                 _residuals,
                 np.clip(c, lo + 1e-9, hi - 1e-9),
+                jac=lambda x, *_, lo=lo, hi=hi: _jacobian(x, v0, sets, lo, hi),
                 args=(v0, sets),
                 method="trf",
                 bounds=(lo, hi),
