@@ -155,7 +155,13 @@ __all__ = [
 # Source identification and prediction into any load (identify, sourcenet, predict,
 # predictrun), kept in one block of their own.
 from rig.analysis.identify import DataSet, collect, fit_source, identify, path_of_load  # noqa: E402
-from rig.analysis.predict import METRICS, Prediction, predict, simulate_into  # noqa: E402
+from rig.analysis.predict import (  # noqa: E402
+    METRICS,
+    Prediction,
+    predict,
+    simulate_into,
+    simulate_many,
+)
 from rig.analysis.predictrun import (  # noqa: E402
     PREDICT_COLUMNS,
     PREDICT_GROUP_KEYS,
@@ -165,7 +171,13 @@ from rig.analysis.predictrun import (  # noqa: E402
     record_after_trigger,
     resolve_load,
 )
-from rig.analysis.sourcenet import FosterSource, linear_current, source_parts  # noqa: E402
+from rig.analysis.sourcenet import (  # noqa: E402
+    FosterSource,
+    linear_current,
+    modes_at,
+    response_modes,
+    source_parts,
+)
 
 __all__ += [
     "DataSet",
@@ -180,11 +192,14 @@ __all__ += [
     "identify",
     "identify_groups",
     "linear_current",
+    "modes_at",
     "path_of_load",
     "predict",
     "predict_run",
     "record_after_trigger",
     "resolve_load",
+    "response_modes",
     "simulate_into",
+    "simulate_many",
     "source_parts",
 ]

@@ -32,7 +32,7 @@ import pandas as pd
 from scipy.optimize import least_squares
 
 from rig.analysis.runs import load_run, stack_waveforms
-from rig.analysis.sourcenet import FosterSource, linear_current, linear_currents
+from rig.analysis.sourcenet import FosterSource, linear_current, modes_at, response_modes
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
 
@@ -210,7 +210,8 @@ def _models(thetas: np.ndarray, shifts: np.ndarray, v0: float, ds: DataSet) -> n
     trigger shifts (batch,). Time zero is the model's own trigger instant: where its
     (filtered) current first crosses the level, plus ``shift`` sample intervals (the scope
     triggers on a sample at or after it)."""
-    yf = linear_currents(thetas, v0, ds.ohms, ds.henry, _TF, ds.pole_hz)
+    amp, lam = response_modes(thetas, v0, ds.ohms, ds.henry, ds.pole_hz)
+    yf = modes_at(amp, lam, _TF)
     above = yf >= ds.trigger_amps
     j = np.where(above.any(axis=1), above.argmax(axis=1), 0)
     rows = np.arange(len(yf))
@@ -220,9 +221,7 @@ def _models(thetas: np.ndarray, shifts: np.ndarray, v0: float, ds: DataSet) -> n
         frac = (ds.trigger_amps - y0) / (y1 - y0)
     t_trig = np.where(j > 0, _TF[jm] + frac * (_TF[j] - _TF[jm]), 0.0)
     t_trig = t_trig + np.asarray(shifts) * ds.dt
-    return linear_currents(
-        thetas, v0, ds.ohms, ds.henry, ds.t[None, :] + t_trig[:, None], ds.pole_hz
-    )
+    return modes_at(amp, lam, ds.t[None, :] + t_trig[:, None])
 
 
 def _split(full: np.ndarray, nd: int) -> tuple[np.ndarray, np.ndarray]:

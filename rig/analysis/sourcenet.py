@@ -28,7 +28,7 @@ import numpy as np
 from rigbase.errors import FileFormatError
 from rigbase.nonlinear import Part
 
-__all__ = ["FosterSource", "linear_current", "linear_currents", "source_parts"]
+__all__ = ["FosterSource", "linear_current", "modes_at", "response_modes", "source_parts"]
 
 TERMINAL = "src:t"
 
@@ -142,16 +142,12 @@ def _matrices(thetas: np.ndarray, load_ohms: float, load_henry: float, pole_hz: 
     return M, k
 
 
-def linear_currents(
-    thetas: np.ndarray,
-    volts: float,
-    load_ohms: float,
-    load_henry: float,
-    t: np.ndarray,
-    pole_hz: float | None = None,
-) -> np.ndarray:
-    """:func:`linear_current` for a batch of parameter rows ``thetas`` (batch x p) at times
-    ``t`` (samples, or batch x samples): currents (A), batch x samples. One batched
+def response_modes(
+    thetas: np.ndarray, volts: float, load_ohms: float, load_henry: float, pole_hz: float | None
+) -> tuple[np.ndarray, np.ndarray]:
+    """The response into a series R-L load as a sum of modes, for a batch of parameter rows
+    ``thetas`` (batch x p): (amplitudes in A, rates in 1/s), each batch x modes, complex in
+    general; the current is ``real(sum(amp exp(rate t)))`` (:func:`modes_at`). One batched
     eigen-decomposition for all rows (the fit's Jacobian is such a batch)."""
     thetas = np.atleast_2d(np.asarray(thetas, dtype=float))
     M, k = _matrices(thetas, load_ohms, load_henry, pole_hz)
@@ -160,9 +156,15 @@ def linear_currents(
     lam, V = np.linalg.eig(M)
     coef = np.linalg.solve(V, np.broadcast_to(x0[None, :, None], (len(M), x0.size, 1)))[..., 0]
     row = V[:, -1] if pole_hz is not None else V[:, k]
+    return row * coef, lam
+
+
+def modes_at(amp: np.ndarray, lam: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Currents (A, batch x samples) of the modes (:func:`response_modes`) at times ``t`` (s from
+    contact, 0 before; samples, or batch x samples)."""
     t = np.asarray(t, dtype=float)
-    tt = np.clip(np.broadcast_to(t, (len(M), t.shape[-1])), 0.0, None)
-    y = np.real(np.einsum("bn,bnt->bt", row * coef, np.exp(lam[:, :, None] * tt[:, None, :])))
+    tt = np.clip(np.broadcast_to(t, (len(amp), t.shape[-1])), 0.0, None)
+    y = np.real(np.einsum("bn,bnt->bt", amp, np.exp(lam[:, :, None] * tt[:, None, :])))
     return np.where(np.broadcast_to(t, y.shape) >= 0, y, 0.0)
 
 
@@ -176,7 +178,8 @@ def linear_current(
 ) -> np.ndarray:
     """Current (A) into a series R-L load at times ``t`` (s, from contact; 0 before), seen
     through a first-order pole at ``pole_hz`` when given (a scope's bandwidth)."""
-    return linear_currents(np.asarray(theta)[None], volts, load_ohms, load_henry, t, pole_hz)[0]
+    amp, lam = response_modes(np.asarray(theta)[None], volts, load_ohms, load_henry, pole_hz)
+    return modes_at(amp, lam, t)[0]
 
 
 def source_parts(

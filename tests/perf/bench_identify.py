@@ -27,7 +27,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from rig.analysis.identify import collect, fit_source  # noqa: E402
-from rig.analysis.predict import _time_grid, predict  # noqa: E402
+from rig.analysis.predict import _SPREAD_OF, Z95, _time_grid, predict  # noqa: E402
 from rig.analysis.runs import load_run  # noqa: E402
 from rigbase.loadfile import load_from_spec  # noqa: E402
 from tests.nonlinear_support import (  # noqa: E402
@@ -83,7 +83,9 @@ def timing(tmp: Path) -> None:
 
 def sweep(tmp: Path) -> None:
     loads = ["10", "100", "logic-3v3", "led-string"]
-    hits = total = 0
+    hits = total = hits_mean = 0
+    widths: dict[str, list[float]] = {"peak_a": [], "charge_c": []}
+    widths_mean: dict[str, list[float]] = {"peak_a": [], "charge_c": []}
     worst = {"peak": 0.0, "charge": 0.0, "C": 0.0, "tau": 0.0}
     print(
         "meter   seed load        peak pred/true (err)         charge pred/true (err)"
@@ -115,6 +117,12 @@ def sweep(tmp: Path) -> None:
                     ok = p.low[m] <= truth <= p.high[m]
                     hits, total = hits + ok, total + 1
                     cov.append("yes" if ok else "NO")
+                    # the interval without the events' own spread: one for the mean response
+                    sd = np.log(p.high[m] / p.value[m]) / Z95
+                    sd_mean = np.sqrt(max(sd**2 - src.spread[_SPREAD_OF[m]] ** 2, 0.0))
+                    hits_mean += abs(np.log(truth / p.value[m])) <= Z95 * sd_mean
+                    widths[m].append(np.expm1(Z95 * sd))
+                    widths_mean[m].append(np.expm1(Z95 * sd_mean))
                 e_p, e_q = p.value["peak_a"] / pk - 1, p.value["charge_c"] / q - 1
                 worst["peak"] = max(worst["peak"], abs(e_p))
                 worst["charge"] = max(worst["charge"], abs(e_q))
@@ -129,6 +137,15 @@ def sweep(tmp: Path) -> None:
     )
     print(
         f"95 % intervals covering the truth: {hits}/{total} = {hits / total:.0%} (target >= 90 %)"
+    )
+    print(
+        "95 % interval half-width, median (max): "
+        + ", ".join(f"{m} {np.median(w):.2%} ({np.max(w):.2%})" for m, w in widths.items())
+    )
+    print(
+        "without the events' spread (the mean response's interval): "
+        + ", ".join(f"{m} {np.median(w):.2%} ({np.max(w):.2%})" for m, w in widths_mean.items())
+        + f"; covering the truth {hits_mean}/{total}"
     )
 
 

@@ -12,7 +12,13 @@ import math
 import numpy as np
 import pytest
 
-from rig.analysis.sourcenet import FosterSource, linear_current, linear_currents, source_parts
+from rig.analysis.sourcenet import (
+    FosterSource,
+    linear_current,
+    modes_at,
+    response_modes,
+    source_parts,
+)
 from rigbase.errors import FileFormatError
 from rigbase.loadfile import load_from_spec, read_load
 from rigbase.nonlinear import VT_300K, DiodeParams, Part, assemble, integrate, stack
@@ -80,7 +86,7 @@ def test_batched_responses_equal_one_at_a_time():
     th = src.theta + np.array([[0.0] * 5, [0.1, -0.2, 0.0, 0.3, 0.0], [0.0, 0.0, 0.5, 0.0, -0.1]])
     t = np.geomspace(1e-10, 1e-3, 50)
     for pole in (None, 5e6):
-        got = linear_currents(th, 100.0, 5.0, 1e-7, t, pole)
+        got = modes_at(*response_modes(th, 100.0, 5.0, 1e-7, pole), t)
         for k in range(len(th)):
             np.testing.assert_allclose(got[k], linear_current(th[k], 100.0, 5.0, 1e-7, t, pole))
 
