@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -48,7 +48,10 @@ SLOW_START_S = 30e-6  # its bins start here: after any contact bounce (the bench
 class DataSet:
     """One load x capture: bin times ``t`` (s from trigger), median current ``y`` (A), its
     standard error ``sigma`` (A); the path's ``ohms`` and ``henry``; the capture's bandwidth
-    pole ``pole_hz`` (None = full) and trigger level (A); per-event ``peaks`` and ``charges``."""
+    pole ``pole_hz`` (None = full) and trigger level (A); per-event ``peaks`` and ``charges``
+    (A, C); the record's end ``record_after_s`` and sample interval ``dt`` (s); ``noise``, the
+    per-sample noise (A, standard deviation before the edge); per event (rows of ``tails``,
+    C) the charge from each time of ``tail_t`` (s) to the record's end."""
 
     load: str
     capture: str
@@ -63,6 +66,9 @@ class DataSet:
     charges: np.ndarray
     record_after_s: float
     dt: float
+    noise: float = 0.0
+    tail_t: np.ndarray = field(default_factory=lambda: np.empty(0))
+    tails: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
 
 
 def path_of_load(
@@ -159,6 +165,10 @@ def _dataset(
     # trapezoid rule on the uniform grid from the trigger on, without a copy of the records
     j = int(np.searchsorted(t, 0.0))
     charges = dt * (i[:, j:].sum(axis=1) - 0.5 * (i[:, j] + i[:, -1]))
+    # charge from each of a few log-spaced times to the end: one pass of segment sums
+    m = np.unique(np.searchsorted(t, np.geomspace(max(10 * dt, 1e-7), t[-1], 48)))
+    m = m[m < t.size]
+    tails = dt * np.cumsum(np.add.reduceat(i[:, m[0] :], m - m[0], axis=1)[:, ::-1], axis=1)
     return DataSet(
         load,
         capture,
@@ -173,6 +183,9 @@ def _dataset(
         charges,
         float(t[-1]),
         dt,
+        noise,
+        t[m],
+        tails[:, ::-1],
     )
 
 
@@ -371,29 +384,64 @@ def _sorted_perm(theta: np.ndarray) -> list[int]:
 
 
 def _spreads(src: FosterSource, sets: list[DataSet]) -> tuple[dict[str, float], dict[str, float]]:
-    """Relative event spread and fit misfit of peak (finest capture) and charge (longest)."""
+    """Relative event spread and fit misfit of peak (finest capture) and charge
+    (:func:`_event_charge`), the largest over the loads."""
     th = src.theta
     spread: dict[str, float] = {"peak": 0.0, "charge": 0.0}
     misfit: dict[str, float] = {"peak": 0.0, "charge": 0.0}
     for load in {d.load for d in sets}:
         mine = [d for d in sets if d.load == load]
-        fine = min(mine, key=lambda d: np.min(np.diff(d.t)))
+        fine = min(mine, key=lambda d: d.dt)
         long = max(mine, key=lambda d: d.record_after_s)
         spread["peak"] = max(spread["peak"], _rel_sd(fine.peaks))
-        spread["charge"] = max(spread["charge"], _rel_sd(long.charges))
         tt = np.linspace(0, 2e-6, 20001)
         pk = float(
             np.abs(linear_current(th, src.volts, fine.ohms, fine.henry, tt, fine.pole_hz)).max()
         )
         misfit["peak"] = max(misfit["peak"], abs(pk / np.median(fine.peaks) - 1))
+        q_med, q_sd = _event_charge(fine, long)
+        spread["charge"] = max(spread["charge"], q_sd / abs(q_med) if q_med else 0.0)
         q = _model_charge(th, src.volts, long)
-        misfit["charge"] = max(misfit["charge"], abs(q / np.median(long.charges) - 1))
+        misfit["charge"] = max(misfit["charge"], abs(q / q_med - 1) if q_med else 0.0)
     return spread, misfit
+
+
+def _event_charge(fine: DataSet, long: DataSet) -> tuple[float, float]:
+    """(median, standard deviation) in C of the events' own charge over the long record.
+
+    With a finer capture beside the long one, the charge up to the fine record's end comes
+    from it and the rest from the long one (medians and variances added: the captures are
+    separate events): a coarse capture undersamples a fast spike at the edge, so its
+    charge there depends on where the samples fall. From the long capture's variance goes
+    the scope's noise integrated over the span, sigma^2 dt^2 N (white noise; any
+    measurement text), which is the capture's and not the discharge's. Standard deviations
+    are the robust 1.4826 MAD."""
+    t_split = fine.record_after_s if fine is not long and long.tail_t.size else 0.0
+    if t_split > 0 and t_split < long.record_after_s:
+        late = np.array([np.interp(t_split, long.tail_t, q) for q in long.tails])
+        early = fine.charges
+        var_e = _sd(early) ** 2 - _noise_var(fine, 0.0)
+        med = float(np.median(early) + np.median(late))
+    else:
+        late, var_e, med = long.charges, 0.0, float(np.median(long.charges))
+    var_l = _sd(late) ** 2 - _noise_var(long, t_split)
+    return med, float(np.sqrt(max(var_e, 0.0) + max(var_l, 0.0)))
+
+
+def _noise_var(ds: DataSet, t_from: float) -> float:
+    """Variance (C^2) of the noise integrated from ``t_from`` to the record's end."""
+    n = max(ds.record_after_s - t_from, 0.0) / ds.dt
+    return (ds.noise * ds.dt) ** 2 * n
 
 
 def _model_charge(theta: np.ndarray, v0: float, ds: DataSet) -> float:
     t = np.concatenate([[0.0], np.geomspace(1e-12, ds.record_after_s, 4000)])
     return float(np.trapezoid(linear_current(theta, v0, ds.ohms, ds.henry, t), t))
+
+
+def _sd(x: np.ndarray) -> float:
+    x = np.asarray(x, dtype=float)
+    return float(1.4826 * np.median(np.abs(x - np.median(x)))) if x.size >= 2 else 0.0
 
 
 def _rel_sd(x: np.ndarray) -> float:

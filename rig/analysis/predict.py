@@ -11,8 +11,10 @@ each above the part's quiescent dissipation at the load's initial operating poin
 Prediction intervals (95 %) combine, on the logarithm of each metric, three independent parts
 in quadrature: the identified parameters' uncertainty (``samples`` draws from their fitted
 covariance, each simulated into the load), the events' own relative spread in the loads the
-source was fitted to (a new event varies as those did) and the fit's largest relative misfit
-on those loads' median metrics (what the model could not reproduce where it was checked).
+source was fitted to (a new event varies as those did; of the charge, without the scope's
+noise integrated over the record, see ``rig.analysis.identify._event_charge``) and the fit's
+largest relative misfit on those loads' median metrics (what the model could not reproduce
+where it was checked).
 """
 
 from __future__ import annotations

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from scipy.optimize._numdiff import approx_derivative
 
-from rig.analysis.identify import DataSet, _jacobian, _residuals, fit_source
+from rig.analysis.identify import DataSet, _event_charge, _jacobian, _residuals, fit_source
 from rig.analysis.sourcenet import FosterSource, linear_current
 
 SRC = FosterSource(1000.0, 3e-9, (20.0, 1200.0, 220e3), (0.5e-9, 2.2e-9, 100e-9))
@@ -59,3 +59,31 @@ def test_fit_recovers_a_known_source_network():
     assert c == pytest.approx(100e-9, rel=5e-3)
     assert tau == pytest.approx(220e3 * 100e-9, rel=5e-3)
     assert src.stored_charge() == pytest.approx(SRC.stored_charge(), rel=5e-3)
+
+
+def _capture(dt: float, record: float, charges: np.ndarray, noise: float, **tail) -> DataSet:
+    e = np.empty(0)
+    return DataSet(
+        "short", "c", e, e, e, 0.1, 0.0, None, 0.2, e, charges, record, dt, noise, **tail
+    )
+
+
+def test_event_charge_takes_the_edge_from_the_fine_capture_and_leaves_out_scope_noise():
+    """Events whose charge truly varies by 1 %, seen by a coarse capture with white noise
+    (integrated over N samples: sigma dt sqrt(N), any measurement text) that hits or misses
+    the fast spike at the edge, and by a fine capture of the edge."""
+    rng = np.random.default_rng(7)
+    n = 400
+    early = 1e-6 * (1 + 2e-3 * rng.normal(size=n))
+    late = 30e-6 * (1 + 1e-2 * rng.normal(size=n))
+    dt, record, noise = 2e-7, 0.05, 4e-3
+    late_seen = late + noise * dt * np.sqrt(record / dt) * rng.normal(size=n)
+    coarse = late_seen + early * rng.uniform(0.0, 2.0, n)  # the spike's samples hit or miss
+    tails = np.column_stack([late_seen + 0.5 * early, late_seen, 0.5 * late_seen])
+    long = _capture(dt, record, coarse, noise, tail_t=np.array([1e-6, 1e-5, 1e-3]), tails=tails)
+    fine = _capture(1e-9, 1e-5, early, 1e-6)
+    med, sd = _event_charge(fine, long)
+    assert med == pytest.approx(np.median(early) + np.median(late), rel=2e-3)
+    true_sd = np.hypot(np.std(early), np.std(late))
+    assert sd == pytest.approx(true_sd, rel=0.15)
+    assert _event_charge(long, long)[1] > 2 * true_sd  # the coarse capture alone: far wider
