@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy.optimize._numdiff import approx_derivative
+from scipy.optimize import approx_fprime
 
 from rig.analysis.identify import DataSet, _event_charge, _jacobian, _residuals, fit_source
 from rig.analysis.sourcenet import FosterSource, linear_current
@@ -47,9 +47,16 @@ def test_batched_jacobian_matches_scipy_finite_differences():
     x = np.concatenate([SRC.theta + 0.05, np.full(len(sets), 0.3)])
     lo, hi = np.full(x.size, -np.inf), np.full(x.size, np.inf)
     ours = _jacobian(x, SRC.volts, sets, lo, hi)
-    # the same forward steps as scipy's 2-point scheme (what the fit used before it had its
-    # own Jacobian): the same numbers
-    same = approx_derivative(_residuals, x, method="2-point", args=(SRC.volts, sets))
+    # scipy's forward differences with the steps its least_squares takes by default
+    # (sqrt(eps) max(1, |x|), signed as x): what the fit used before it had its own Jacobian
+    step = np.sqrt(np.finfo(float).eps) * np.maximum(1.0, np.abs(x)) * np.where(x < 0, -1, 1)
+    same = approx_fprime(x, _residuals, step, SRC.volts, sets)
+    np.testing.assert_allclose(ours, same, rtol=1e-6, atol=1e-6 * np.abs(same).max())
+    # an upper bound within one step: that parameter steps backward, as scipy's does
+    hi[1] = x[1] + 1e-12
+    step[1] = -step[1]
+    ours = _jacobian(x, SRC.volts, sets, lo, hi)
+    same = approx_fprime(x, _residuals, step, SRC.volts, sets)
     np.testing.assert_allclose(ours, same, rtol=1e-6, atol=1e-6 * np.abs(same).max())
 
 
