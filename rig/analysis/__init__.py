@@ -57,6 +57,7 @@ from rig.analysis.runs import (
     group_waveforms,
     load_event_waveform,
     load_run,
+    stack_waveforms,
 )
 from rig.analysis.selfdischarge import (
     DEFAULT_SAFE_VOLTS,
@@ -142,6 +143,7 @@ __all__ = [
     "quick_metrics",
     "read_trace",
     "self_discharge",
+    "stack_waveforms",
     "tolerance_factor",
     "tolerance_factor_approx",
     "tost_log",
@@ -153,7 +155,13 @@ __all__ = [
 # Source identification and prediction into any load (identify, sourcenet, predict,
 # predictrun), kept in one block of their own.
 from rig.analysis.identify import DataSet, collect, fit_source, identify, path_of_load  # noqa: E402
-from rig.analysis.predict import METRICS, Prediction, predict, simulate_into  # noqa: E402
+from rig.analysis.predict import (  # noqa: E402
+    METRICS,
+    Prediction,
+    predict,
+    simulate_into,
+    simulate_many,
+)
 from rig.analysis.predictrun import (  # noqa: E402
     PREDICT_COLUMNS,
     PREDICT_GROUP_KEYS,
@@ -163,7 +171,13 @@ from rig.analysis.predictrun import (  # noqa: E402
     record_after_trigger,
     resolve_load,
 )
-from rig.analysis.sourcenet import FosterSource, linear_current, source_parts  # noqa: E402
+from rig.analysis.sourcenet import (  # noqa: E402
+    FosterSource,
+    linear_current,
+    modes_at,
+    response_modes,
+    source_parts,
+)
 
 __all__ += [
     "DataSet",
@@ -178,11 +192,14 @@ __all__ += [
     "identify",
     "identify_groups",
     "linear_current",
+    "modes_at",
     "path_of_load",
     "predict",
     "predict_run",
     "record_after_trigger",
     "resolve_load",
+    "response_modes",
     "simulate_into",
+    "simulate_many",
     "source_parts",
 ]

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -31,8 +31,8 @@ import numpy as np
 import pandas as pd
 from scipy.optimize import least_squares
 
-from rig.analysis.runs import group_waveforms, load_run
-from rig.analysis.sourcenet import FosterSource, linear_current
+from rig.analysis.runs import load_run, stack_waveforms
+from rig.analysis.sourcenet import FosterSource, linear_current, modes_at, response_modes
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
 
@@ -48,7 +48,10 @@ SLOW_START_S = 30e-6  # its bins start here: after any contact bounce (the bench
 class DataSet:
     """One load x capture: bin times ``t`` (s from trigger), median current ``y`` (A), its
     standard error ``sigma`` (A); the path's ``ohms`` and ``henry``; the capture's bandwidth
-    pole ``pole_hz`` (None = full) and trigger level (A); per-event ``peaks`` and ``charges``."""
+    pole ``pole_hz`` (None = full) and trigger level (A); per-event ``peaks`` and ``charges``
+    (A, C); the record's end ``record_after_s`` and sample interval ``dt`` (s); ``noise``, the
+    per-sample noise (A, standard deviation before the edge); per event (rows of ``tails``,
+    C) the charge from each time of ``tail_t`` (s) to the record's end."""
 
     load: str
     capture: str
@@ -63,6 +66,9 @@ class DataSet:
     charges: np.ndarray
     record_after_s: float
     dt: float
+    noise: float = 0.0
+    tail_t: np.ndarray = field(default_factory=lambda: np.empty(0))
+    tails: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
 
 
 def path_of_load(
@@ -113,34 +119,35 @@ def _before_break(t: np.ndarray, i: np.ndarray, noise: float) -> np.ndarray:
 
 
 def _dataset(
-    run: Path,
-    manifest: Mapping[str, Any],
-    rows: pd.DataFrame,
-    load: str,
-    capture: str,
-    keys: Mapping[str, Any],
+    run: Path, manifest: Mapping[str, Any], rows: pd.DataFrame, load: str, capture: str
 ) -> DataSet | None:
-    t, i, sel = group_waveforms(run, load=load, capture=capture, **keys)
+    sel = rows[(rows["load"] == load) & (rows["capture"] == capture)]
     if not len(sel):
         return None
+    t, i = stack_waveforms(run, sel)
     dt = float(t[1] - t[0])
-    pre = t < -5 * dt
-    base = np.median(i[:, pre], axis=1) if pre.any() else np.zeros(len(i))
-    i = i - base[:, None]
-    noise = float(np.median(np.std(i[:, pre], axis=1))) if pre.any() else 0.0
-    valid = _before_break(t, i, noise) if dt < SLOW_DT else np.ones(i.shape, dtype=bool)
+    n_pre = int(np.searchsorted(t, -5 * dt))  # samples before the edge: t < -5 dt
+    if n_pre:
+        base = np.median(i[:, :n_pre], axis=1)
+        i -= base[:, None]  # our own stacked copy: in place (a record is millions of samples)
+        noise = float(np.median(np.std(i[:, :n_pre], axis=1)))
+    else:
+        noise = 0.0
     edges = _bins(t, dt)
-    k = np.searchsorted(t, edges)
-    k = np.unique(np.clip(k, 0, t.size))
-    counts = np.diff(k)
-    ok = counts > 0
-    k0, k1, n_b = k[:-1][ok], k[1:][ok], counts[ok]
-    cs = np.concatenate([np.zeros((len(i), 1)), np.cumsum(np.where(valid, i, 0.0), axis=1)], 1)
-    cv = np.concatenate([np.zeros((len(i), 1)), np.cumsum(valid, axis=1)], axis=1)
-    ct = np.concatenate([[0.0], np.cumsum(t)])
-    full = (cv[:, k1] - cv[:, k0]) == n_b  # the event is valid over the whole bin
-    ev = np.where(full, (cs[:, k1] - cs[:, k0]) / n_b, np.nan)
-    tb = (ct[k1] - ct[k0]) / n_b
+    k = np.unique(np.clip(np.searchsorted(t, edges), 0, t.size))
+    k0, k1 = k[:-1], k[1:]
+    n_b = k1 - k0  # no empty bins: k strictly increases
+    # sums over the bins only, one pass (np.add.reduceat) over the span they cover
+    span = slice(int(k[0]), int(k[-1]))
+    sums = np.add.reduceat(i[:, span], k0 - k[0], axis=1)
+    tb = np.add.reduceat(t[span], k0 - k[0]) / n_b
+    if dt < SLOW_DT:
+        valid = _before_break(t, i, noise)[:, span]
+        # valid over the whole bin (counted as integers: a sum of booleans is their "or")
+        full = np.add.reduceat(valid, k0 - k[0], axis=1, dtype=np.intp) == n_b
+    else:
+        full = np.ones(sums.shape, dtype=bool)
+    ev = np.where(full, sums / n_b, np.nan)
     n_ok = full.sum(axis=0)
     keep = n_ok >= 3
     ev, tb, n_ok, n_b = ev[:, keep], tb[keep], n_ok[keep], n_b[keep]
@@ -155,7 +162,13 @@ def _dataset(
     settings = _capture_settings(manifest, capture)
     ohms, henry = path_of_load(manifest, load, float(sel["load_ohms"].iloc[0]))
     bw = settings.get("bandwidth_hz")
-    post = t >= 0
+    # trapezoid rule on the uniform grid from the trigger on, without a copy of the records
+    j = int(np.searchsorted(t, 0.0))
+    charges = dt * (i[:, j:].sum(axis=1) - 0.5 * (i[:, j] + i[:, -1]))
+    # charge from each of a few log-spaced times to the end: one pass of segment sums
+    m = np.unique(np.searchsorted(t, np.geomspace(max(10 * dt, 1e-7), t[-1], 48)))
+    m = m[m < t.size]
+    tails = dt * np.cumsum(np.add.reduceat(i[:, m[0] :], m - m[0], axis=1)[:, ::-1], axis=1)
     return DataSet(
         load,
         capture,
@@ -166,10 +179,13 @@ def _dataset(
         henry,
         float(bw) if bw else None,
         float(settings.get("trigger_level_amps", 0.2)),
-        np.abs(i).max(axis=1),
-        np.trapezoid(i[:, post], t[post], axis=1),
+        np.maximum(i.max(axis=1), -i.min(axis=1)),
+        charges,
         float(t[-1]),
         dt,
+        noise,
+        t[m],
+        tails[:, ::-1],
     )
 
 
@@ -193,36 +209,79 @@ def collect(run_dir: str | Path, loads: list[str], **keys: Any) -> tuple[list[Da
     sets = []
     for load in loads:
         for cap in sorted(rows.loc[rows["load"] == load, "capture"].unique()):
-            ds = _dataset(run, manifest, rows, load, str(cap), keys)
+            ds = _dataset(run, manifest, rows, load, str(cap))
             if ds is not None:
                 sets.append(ds)
     return sets, v0
 
 
-def _model(theta: np.ndarray, v0: float, ds: DataSet, shift: float = 0.0) -> np.ndarray:
-    # the model's own trigger instant: where its (filtered) current first crosses the level,
-    # plus ``shift`` sample intervals (the scope triggers on a sample at or after it)
-    tf = np.concatenate([[0.0], np.geomspace(1e-12, 2e-5, 240)])
-    yf = linear_current(theta, v0, ds.ohms, ds.henry, tf, ds.pole_hz)
-    hit = np.nonzero(yf >= ds.trigger_amps)[0]
-    t_trig = 0.0
-    if hit.size and hit[0] > 0:
-        j = hit[0]
-        t_trig = tf[j - 1] + (ds.trigger_amps - yf[j - 1]) * (tf[j] - tf[j - 1]) / (
-            yf[j] - yf[j - 1]
-        )
-    t_trig += shift * ds.dt
-    return linear_current(theta, v0, ds.ohms, ds.henry, ds.t + t_trig, ds.pole_hz)
+_TF = np.concatenate([[0.0], np.geomspace(1e-12, 2e-5, 240)])  # where the trigger is sought
+
+
+def _models(thetas: np.ndarray, shifts: np.ndarray, v0: float, ds: DataSet) -> np.ndarray:
+    """The model of ``ds`` (batch x bins) for parameter rows ``thetas`` (batch x p) and
+    trigger shifts (batch,). Time zero is the model's own trigger instant: where its
+    (filtered) current first crosses the level, plus ``shift`` sample intervals (the scope
+    triggers on a sample at or after it)."""
+    amp, lam = response_modes(thetas, v0, ds.ohms, ds.henry, ds.pole_hz)
+    yf = modes_at(amp, lam, _TF)
+    above = yf >= ds.trigger_amps
+    j = np.where(above.any(axis=1), above.argmax(axis=1), 0)
+    rows = np.arange(len(yf))
+    jm = np.maximum(j - 1, 0)
+    y0, y1 = yf[rows, jm], yf[rows, j]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        frac = (ds.trigger_amps - y0) / (y1 - y0)
+    t_trig = np.where(j > 0, _TF[jm] + frac * (_TF[j] - _TF[jm]), 0.0)
+    t_trig = t_trig + np.asarray(shifts) * ds.dt
+    return modes_at(amp, lam, ds.t[None, :] + t_trig[:, None])
+
+
+def _split(full: np.ndarray, nd: int) -> tuple[np.ndarray, np.ndarray]:
+    return full[:-nd], full[-nd:]
 
 
 def _residuals(full: np.ndarray, v0: float, sets: list[DataSet]) -> np.ndarray:
-    theta, shifts = full[: -len(sets)], full[-len(sets) :]
+    theta, shifts = _split(full, len(sets))
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         r = np.concatenate(
-            [(_model(theta, v0, d, s) - d.y) / d.sigma for d, s in zip(sets, shifts, strict=True)]
+            [
+                (_models(theta[None], shifts[d : d + 1], v0, ds)[0] - ds.y) / ds.sigma
+                for d, ds in enumerate(sets)
+            ]
         )
     # a trial step whose model is not finite is a very bad fit, not an error: the fit steps back
     return np.where(np.isfinite(r), r, 1e6)
+
+
+def _jacobian(
+    full: np.ndarray, v0: float, sets: list[DataSet], lo: np.ndarray, hi: np.ndarray
+) -> np.ndarray:
+    """Forward-difference Jacobian of :func:`_residuals`, the steps scipy's ``2-point``
+    scheme takes (sqrt(eps) max(1, |x|), backward where the bound is near), with every
+    data set's steps evaluated as one batch (one batched eigen-decomposition instead of one
+    per parameter)."""
+    nd = len(sets)
+    theta, shifts = _split(full, nd)
+    h = np.sqrt(np.finfo(float).eps) * np.maximum(1.0, np.abs(full)) * np.where(full < 0, -1, 1)
+    h = np.where((full + h > hi) | (full + h < lo), -h, h)
+    h = (full + h) - full
+    npar = theta.size
+    blocks = []
+    for d, ds in enumerate(sets):
+        # rows: the point, each source parameter stepped, this set's trigger shift stepped
+        th = np.repeat(theta[None], npar + 2, axis=0)
+        th[1 : npar + 1] += np.diag(h[:npar])
+        sh = np.full(npar + 2, shifts[d])
+        sh[-1] += h[npar + d]
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            r = (_models(th, sh, v0, ds) - ds.y) / ds.sigma
+        r = np.where(np.isfinite(r), r, 1e6)
+        J = np.zeros((ds.t.size, full.size))
+        J[:, :npar] = ((r[1 : npar + 1] - r[0]) / h[:npar, None]).T
+        J[:, npar + d] = (r[-1] - r[0]) / h[npar + d]
+        blocks.append(J)
+    return np.vstack(blocks)
 
 
 def _starts(v0: float, sets: list[DataSet], order: int) -> list[np.ndarray]:
@@ -269,6 +328,7 @@ def fit_source(sets: list[DataSet], v0: float, max_order: int = MAX_ORDER) -> Fo
             least_squares(
                 _residuals,
                 np.clip(c, lo + 1e-9, hi - 1e-9),
+                jac=lambda x, *_, lo=lo, hi=hi: _jacobian(x, v0, sets, lo, hi),
                 args=(v0, sets),
                 method="trf",
                 bounds=(lo, hi),
@@ -324,29 +384,64 @@ def _sorted_perm(theta: np.ndarray) -> list[int]:
 
 
 def _spreads(src: FosterSource, sets: list[DataSet]) -> tuple[dict[str, float], dict[str, float]]:
-    """Relative event spread and fit misfit of peak (finest capture) and charge (longest)."""
+    """Relative event spread and fit misfit of peak (finest capture) and charge
+    (:func:`_event_charge`), the largest over the loads."""
     th = src.theta
     spread: dict[str, float] = {"peak": 0.0, "charge": 0.0}
     misfit: dict[str, float] = {"peak": 0.0, "charge": 0.0}
     for load in {d.load for d in sets}:
         mine = [d for d in sets if d.load == load]
-        fine = min(mine, key=lambda d: np.min(np.diff(d.t)))
+        fine = min(mine, key=lambda d: d.dt)
         long = max(mine, key=lambda d: d.record_after_s)
         spread["peak"] = max(spread["peak"], _rel_sd(fine.peaks))
-        spread["charge"] = max(spread["charge"], _rel_sd(long.charges))
         tt = np.linspace(0, 2e-6, 20001)
         pk = float(
             np.abs(linear_current(th, src.volts, fine.ohms, fine.henry, tt, fine.pole_hz)).max()
         )
         misfit["peak"] = max(misfit["peak"], abs(pk / np.median(fine.peaks) - 1))
+        q_med, q_sd = _event_charge(fine, long)
+        spread["charge"] = max(spread["charge"], q_sd / abs(q_med) if q_med else 0.0)
         q = _model_charge(th, src.volts, long)
-        misfit["charge"] = max(misfit["charge"], abs(q / np.median(long.charges) - 1))
+        misfit["charge"] = max(misfit["charge"], abs(q / q_med - 1) if q_med else 0.0)
     return spread, misfit
+
+
+def _event_charge(fine: DataSet, long: DataSet) -> tuple[float, float]:
+    """(median, standard deviation) in C of the events' own charge over the long record.
+
+    With a finer capture beside the long one, the charge up to the fine record's end comes
+    from it and the rest from the long one (medians and variances added: the captures are
+    separate events): a coarse capture undersamples a fast spike at the edge, so its
+    charge there depends on where the samples fall. From the long capture's variance goes
+    the scope's noise integrated over the span, sigma^2 dt^2 N (white noise; any
+    measurement text), which is the capture's and not the discharge's. Standard deviations
+    are the robust 1.4826 MAD."""
+    t_split = fine.record_after_s if fine is not long and long.tail_t.size else 0.0
+    if t_split > 0 and t_split < long.record_after_s:
+        late = np.array([np.interp(t_split, long.tail_t, q) for q in long.tails])
+        early = fine.charges
+        var_e = _sd(early) ** 2 - _noise_var(fine, 0.0)
+        med = float(np.median(early) + np.median(late))
+    else:
+        late, var_e, med = long.charges, 0.0, float(np.median(long.charges))
+    var_l = _sd(late) ** 2 - _noise_var(long, t_split)
+    return med, float(np.sqrt(max(var_e, 0.0) + max(var_l, 0.0)))
+
+
+def _noise_var(ds: DataSet, t_from: float) -> float:
+    """Variance (C^2) of the noise integrated from ``t_from`` to the record's end."""
+    n = max(ds.record_after_s - t_from, 0.0) / ds.dt
+    return (ds.noise * ds.dt) ** 2 * n
 
 
 def _model_charge(theta: np.ndarray, v0: float, ds: DataSet) -> float:
     t = np.concatenate([[0.0], np.geomspace(1e-12, ds.record_after_s, 4000)])
     return float(np.trapezoid(linear_current(theta, v0, ds.ohms, ds.henry, t), t))
+
+
+def _sd(x: np.ndarray) -> float:
+    x = np.asarray(x, dtype=float)
+    return float(1.4826 * np.median(np.abs(x - np.median(x)))) if x.size >= 2 else 0.0
 
 
 def _rel_sd(x: np.ndarray) -> float:

@@ -28,7 +28,7 @@ import numpy as np
 from rigbase.errors import FileFormatError
 from rigbase.nonlinear import Part
 
-__all__ = ["FosterSource", "linear_current", "source_parts"]
+__all__ = ["FosterSource", "linear_current", "modes_at", "response_modes", "source_parts"]
 
 TERMINAL = "src:t"
 
@@ -117,27 +117,55 @@ class FosterSource:
         )
 
 
-def _matrix(src_theta: np.ndarray, load_ohms: float, load_henry: float, pole_hz: float | None):
+def _matrices(thetas: np.ndarray, load_ohms: float, load_henry: float, pole_hz: float | None):
+    """State matrices (batch x n x n) for the log-parameter rows ``thetas`` (batch x p)."""
     # log-parameters; a trial step of the fit far outside any physical value (e^60 = 1e26)
     # is held at that bound so the model stays finite and the fit steps back
-    p = np.exp(np.clip(src_theta, -60.0, 60.0))
-    ls, r, c = p[0], p[1::2], p[2::2]
-    k = r.size
+    p = np.exp(np.clip(thetas, -60.0, 60.0))
+    ls, r, c = p[:, 0], p[:, 1::2], p[:, 2::2]
+    nb, k = r.shape
     g = 1.0 / r
-    gs = g.sum()
+    gs = g.sum(axis=1)
     n = k + 1 + (pole_hz is not None)
-    M = np.zeros((n, n))
+    M = np.zeros((nb, n, n))
     # v_n = (sum u_k g_k - i) / gs; C_k u_k' = -g_k (u_k - v_n); L i' = v_n - R i
-    vn_u, vn_i = g / gs, -1.0 / gs
-    M[:k, :k] = -(g[:, None] / c[:, None]) * (np.eye(k) - vn_u[None, :])
-    M[:k, k] = (g / c) * vn_i
+    vn_u, vn_i = g / gs[:, None], -1.0 / gs
+    gc = g / c
+    M[:, :k, :k] = -gc[:, :, None] * (np.eye(k)[None] - vn_u[:, None, :])
+    M[:, :k, k] = gc * vn_i[:, None]
     lt = ls + load_henry
-    M[k, :k] = vn_u / lt
-    M[k, k] = (vn_i - load_ohms) / lt
+    M[:, k, :k] = vn_u / lt[:, None]
+    M[:, k, k] = (vn_i - load_ohms) / lt
     if pole_hz is not None:
         w = 2 * np.pi * pole_hz
-        M[k + 1, k], M[k + 1, k + 1] = w, -w
+        M[:, k + 1, k], M[:, k + 1, k + 1] = w, -w
     return M, k
+
+
+def response_modes(
+    thetas: np.ndarray, volts: float, load_ohms: float, load_henry: float, pole_hz: float | None
+) -> tuple[np.ndarray, np.ndarray]:
+    """The response into a series R-L load as a sum of modes, for a batch of parameter rows
+    ``thetas`` (batch x p): (amplitudes in A, rates in 1/s), each batch x modes, complex in
+    general; the current is ``real(sum(amp exp(rate t)))`` (:func:`modes_at`). One batched
+    eigen-decomposition for all rows (the fit's Jacobian is such a batch)."""
+    thetas = np.atleast_2d(np.asarray(thetas, dtype=float))
+    M, k = _matrices(thetas, load_ohms, load_henry, pole_hz)
+    x0 = np.zeros(M.shape[1], dtype=complex)
+    x0[:k] = volts
+    lam, V = np.linalg.eig(M)
+    coef = np.linalg.solve(V, np.broadcast_to(x0[None, :, None], (len(M), x0.size, 1)))[..., 0]
+    row = V[:, -1] if pole_hz is not None else V[:, k]
+    return row * coef, lam
+
+
+def modes_at(amp: np.ndarray, lam: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Currents (A, batch x samples) of the modes (:func:`response_modes`) at times ``t`` (s from
+    contact, 0 before; samples, or batch x samples)."""
+    t = np.asarray(t, dtype=float)
+    tt = np.clip(np.broadcast_to(t, (len(amp), t.shape[-1])), 0.0, None)
+    y = np.real(np.einsum("bn,bnt->bt", amp, np.exp(lam[:, :, None] * tt[:, None, :])))
+    return np.where(np.broadcast_to(t, y.shape) >= 0, y, 0.0)
 
 
 def linear_current(
@@ -150,15 +178,8 @@ def linear_current(
 ) -> np.ndarray:
     """Current (A) into a series R-L load at times ``t`` (s, from contact; 0 before), seen
     through a first-order pole at ``pole_hz`` when given (a scope's bandwidth)."""
-    M, k = _matrix(theta, load_ohms, load_henry, pole_hz)
-    x0 = np.zeros(M.shape[0])
-    x0[:k] = volts
-    lam, V = np.linalg.eig(M)
-    coef = np.linalg.solve(V, x0.astype(complex))
-    row = V[-1] if pole_hz is not None else V[k]
-    tt = np.clip(np.asarray(t, dtype=float), 0.0, None)
-    y = np.real((row * coef) @ np.exp(np.outer(lam, tt)))
-    return np.where(np.asarray(t) >= 0, y, 0.0)
+    amp, lam = response_modes(np.asarray(theta)[None], volts, load_ohms, load_henry, pole_hz)
+    return modes_at(amp, lam, t)[0]
 
 
 def source_parts(

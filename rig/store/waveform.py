@@ -116,23 +116,42 @@ def save_waveform(path: str | Path, wf: Waveform) -> str:
     return sha256_file(path)
 
 
-def load_waveform(path: str | Path) -> Waveform:
-    """Read a waveform file of either format; RunFolderError (a ValueError) naming the file
-    when it is incomplete, truncated or not an archive; FileNotFoundError when it is missing."""
+def load_waveform(path: str | Path, channels: tuple[str, ...] | None = None) -> Waveform:
+    """Read a waveform file of either format, only ``channels`` when given (a ``.zarr.zip``
+    then decompresses no other); RunFolderError (a ValueError) naming the file when it is
+    incomplete, truncated, not an archive or lacks a channel; FileNotFoundError when it is
+    missing."""
     path = Path(path)
     try:
-        return _load_waveform(path)
+        wf = _load_waveform(path, channels)
     except FileNotFoundError:
         raise
     except (zipfile.BadZipFile, EOFError, KeyError, ValueError, OSError, TypeError) as exc:
         if isinstance(exc, RunFolderError):
             raise
         raise RunFolderError(f"{path}: unreadable waveform file ({exc})") from None
+    if channels is not None and wf.channels != tuple(channels):  # an .npz holds them all
+        missing = [c for c in channels if c not in wf.channels]
+        if missing:
+            raise RunFolderError(f"{path} [channels]: no {missing[0]!r} channel")
+        k = [wf.index(c) for c in channels]
+        wf = Waveform(
+            wf.codes[k],
+            wf.gain[k],
+            wf.offset[k],
+            wf.code_min[k],
+            wf.code_max[k],
+            wf.dt,
+            wf.t0,
+            tuple(channels),
+            tuple(wf.units[j] for j in k),
+        )
+    return wf
 
 
-def _load_waveform(path: Path) -> Waveform:
+def _load_waveform(path: Path, channels: tuple[str, ...] | None) -> Waveform:
     if _format(path) == "zarr":
-        fields = read_zarr_waveform(path)
+        fields = read_zarr_waveform(path, channels)
         codes = fields["codes"]
         if codes.ndim != 2 or codes.dtype not in (np.int8, np.int16):
             raise RunFolderError(f"{path} [codes]: expected a 2-D int8 or int16 array")

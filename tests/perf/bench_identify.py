@@ -9,10 +9,14 @@ intervals), the time of one nonlinear engine simulation of the meter's full netl
 same load over the same window, and the ratios. Targets (the issue): identification and
 prediction each under a second on this machine.
 
-``--sweep`` also runs both demo meters with bench seeds 1..3 and prints, per meter, seed and
-load (10 ohm, 100 ohm, logic input, LED string), the predicted and true peak and charge, the
-errors, whether the 95 % intervals cover the truth, the identified dominant capacitance and
-time constant against the netlist's, and the coverage over the sweep.
+``--sweep`` also runs both demo meters with bench seeds 1..3 and prints, per meter and seed,
+the identified dominant capacitance and time constant against the netlist's with the events'
+relative spread and the fit's misfit (peak / charge) that widen the intervals; per load (10
+ohm, 100 ohm, logic input, LED string) the predicted and true peak and charge, the errors,
+whether the 95 % intervals cover the truth and their relative half-widths (peak/charge); then
+the worst errors, the coverage over the sweep, and the median (max) half-widths, also of the
+interval without the events' spread (one for the mean response rather than a new event) with
+its coverage.
 """
 
 from __future__ import annotations
@@ -27,7 +31,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from rig.analysis.identify import collect, fit_source  # noqa: E402
-from rig.analysis.predict import _time_grid, predict  # noqa: E402
+from rig.analysis.predict import _SPREAD_OF, Z95, _time_grid, predict  # noqa: E402
 from rig.analysis.runs import load_run  # noqa: E402
 from rigbase.loadfile import load_from_spec  # noqa: E402
 from tests.nonlinear_support import (  # noqa: E402
@@ -83,11 +87,13 @@ def timing(tmp: Path) -> None:
 
 def sweep(tmp: Path) -> None:
     loads = ["10", "100", "logic-3v3", "led-string"]
-    hits = total = 0
+    hits = total = hits_mean = 0
+    widths: dict[str, list[float]] = {"peak_a": [], "charge_c": []}
+    widths_mean: dict[str, list[float]] = {"peak_a": [], "charge_c": []}
     worst = {"peak": 0.0, "charge": 0.0, "C": 0.0, "tau": 0.0}
     print(
         "meter   seed load        peak pred/true (err)         charge pred/true (err)"
-        "           covered"
+        "           covered  half-widths"
     )
     for seed in (1, 2, 3):
         for meter in ("demo-a", "demo-b"):
@@ -103,7 +109,9 @@ def sweep(tmp: Path) -> None:
             worst["C"], worst["tau"] = max(worst["C"], abs(ec)), max(worst["tau"], abs(et))
             print(
                 f"{meter} {seed}    dominant C {c_id * 1e9:.2f} nF ({ec:+.2%}), tau "
-                f"{tau_id * 1e3:.3f} ms vs {tau * 1e3:.3f} ms ({et:+.2%}), {src.order} branches"
+                f"{tau_id * 1e3:.3f} ms vs {tau * 1e3:.3f} ms ({et:+.2%}), {src.order} branches;"
+                f" events' spread peak {src.spread['peak']:.2%} charge {src.spread['charge']:.2%},"
+                f" misfit {src.misfit['peak']:.2%} / {src.misfit['charge']:.2%}"
             )
             rng = np.random.default_rng(seed)
             for name in loads:
@@ -115,13 +123,20 @@ def sweep(tmp: Path) -> None:
                     ok = p.low[m] <= truth <= p.high[m]
                     hits, total = hits + ok, total + 1
                     cov.append("yes" if ok else "NO")
+                    # the interval without the events' own spread: one for the mean response
+                    sd = np.log(p.high[m] / p.value[m]) / Z95
+                    sd_mean = np.sqrt(max(sd**2 - src.spread[_SPREAD_OF[m]] ** 2, 0.0))
+                    hits_mean += abs(np.log(truth / p.value[m])) <= Z95 * sd_mean
+                    widths[m].append(np.expm1(Z95 * sd))
+                    widths_mean[m].append(np.expm1(Z95 * sd_mean))
                 e_p, e_q = p.value["peak_a"] / pk - 1, p.value["charge_c"] / q - 1
                 worst["peak"] = max(worst["peak"], abs(e_p))
                 worst["charge"] = max(worst["charge"], abs(e_q))
                 print(
                     f"{meter} {seed}    {name:11s} {p.value['peak_a']:7.3f}/{pk:7.3f} A "
                     f"({e_p:+.2%})   {p.value['charge_c'] * 1e6:7.3f}/{q * 1e6:7.3f} uC "
-                    f"({e_q:+.2%})   {'/'.join(cov)}"
+                    f"({e_q:+.2%})   {'/'.join(cov):7s}  {widths['peak_a'][-1]:.2%}/"
+                    f"{widths['charge_c'][-1]:.2%}"
                 )
     print(
         f"worst |error|: peak {worst['peak']:.2%} (target 5 %), charge {worst['charge']:.2%}"
@@ -129,6 +144,15 @@ def sweep(tmp: Path) -> None:
     )
     print(
         f"95 % intervals covering the truth: {hits}/{total} = {hits / total:.0%} (target >= 90 %)"
+    )
+    print(
+        "95 % interval half-width, median (max): "
+        + ", ".join(f"{m} {np.median(w):.2%} ({np.max(w):.2%})" for m, w in widths.items())
+    )
+    print(
+        "without the events' spread (the mean response's interval): "
+        + ", ".join(f"{m} {np.median(w):.2%} ({np.max(w):.2%})" for m, w in widths_mean.items())
+        + f"; covering the truth {hits_mean}/{total}"
     )
 
 

@@ -12,10 +12,16 @@ import math
 import numpy as np
 import pytest
 
-from rig.analysis.sourcenet import FosterSource, linear_current, source_parts
+from rig.analysis.sourcenet import (
+    FosterSource,
+    linear_current,
+    modes_at,
+    response_modes,
+    source_parts,
+)
 from rigbase.errors import FileFormatError
 from rigbase.loadfile import load_from_spec, read_load
-from rigbase.nonlinear import VT_300K, DiodeParams, Part, assemble, integrate
+from rigbase.nonlinear import VT_300K, DiodeParams, Part, assemble, integrate, stack
 
 D = DiodeParams(is_a=1e-14, n=1.2, rs_ohms=2.0, cjo_farads=5e-12)
 
@@ -49,6 +55,40 @@ def test_rc_discharge_matches_the_exponential():
     X = integrate(sysm, sysm.state_vector({"a": 10.0}), t, rtol=1e-9, atol=1e-12)
     # first-order RC discharge (textbook): v = V0 exp(-t / RC)
     np.testing.assert_allclose(X[0], 10.0 * np.exp(-t / 1e-3), rtol=1e-6, atol=1e-9)
+
+
+def test_stacked_systems_integrate_as_each_alone():
+    """Two RC discharges and a diode clamp integrated as one stacked system: each RC still
+    follows v = V0 exp(-t / RC) (first-order RC discharge, textbook), the clamp its own
+    separate integration."""
+    rc = [
+        assemble([Part("C", "C", "a", "0", 1e-6), Part("R", "R", "a", "0", r)]) for r in (1e3, 2e2)
+    ]
+    dio = assemble(
+        [
+            Part("C", "C", "a", "0", 1e-6),
+            Part("D", "D", "a", "0", 0.0, DiodeParams(1e-14, 1.0, 2.0, 1e-12)),
+        ]
+    )
+    t = np.linspace(0, 5e-3, 51)
+    parts = [(rc[0], {"a": 10.0}), (dio, {"a": 3.0}), (rc[1], {"a": 5.0})]
+    x0 = np.concatenate([s.state_vector(v) for s, v in parts])
+    X = integrate(stack([s for s, _ in parts]), x0, t, rtol=1e-9, atol=1e-12)
+    n0, n1 = rc[0].A.shape[0], dio.A.shape[0]
+    np.testing.assert_allclose(X[0], 10.0 * np.exp(-t / 1e-3), rtol=1e-6, atol=1e-9)
+    np.testing.assert_allclose(X[n0 + n1], 5.0 * np.exp(-t / 2e-4), rtol=1e-6, atol=1e-9)
+    alone = integrate(dio, dio.state_vector({"a": 3.0}), t, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(X[n0 : n0 + n1], alone, rtol=1e-5, atol=1e-9)
+
+
+def test_batched_responses_equal_one_at_a_time():
+    src = FosterSource(100.0, 50e-9, (20.0, 1e4), (1e-9, 1e-7))
+    th = src.theta + np.array([[0.0] * 5, [0.1, -0.2, 0.0, 0.3, 0.0], [0.0, 0.0, 0.5, 0.0, -0.1]])
+    t = np.geomspace(1e-10, 1e-3, 50)
+    for pole in (None, 5e6):
+        got = modes_at(*response_modes(th, 100.0, 5.0, 1e-7, pole), t)
+        for k in range(len(th)):
+            np.testing.assert_allclose(got[k], linear_current(th[k], 100.0, 5.0, 1e-7, t, pole))
 
 
 def test_source_network_agrees_with_its_closed_form():
