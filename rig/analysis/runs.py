@@ -14,6 +14,7 @@ Nothing here writes into the run folder.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
@@ -26,7 +27,13 @@ from rig.store.tables import read_parquet_table
 from rig.store.waveform import Waveform, load_waveform
 from rigbase.errors import RunFolderError
 
-__all__ = ["group_waveforms", "load_event_waveform", "load_run"]
+__all__ = [
+    "group_waveforms",
+    "iter_group_values",
+    "load_event_waveform",
+    "load_run",
+    "select_events",
+]
 
 
 def load_run(run_dir: str | Path) -> pd.DataFrame:
@@ -87,17 +94,10 @@ def load_event_waveform(run_dir: str | Path, event: int) -> Waveform:
     return load_waveform(path)
 
 
-def group_waveforms(
-    run_dir: str | Path, channel: str = "current", **filters: Any
-) -> tuple[np.ndarray, np.ndarray, pd.DataFrame]:
-    """Waveforms of the captured events that match ``filters`` (column=value; a list or tuple
-    matches any of its values), stacked: (t in s, values in SI units (events x samples),
-    rows of those events). All matching records must share length and dt, and their t0 may
-    differ by less than one sample (a free-running sample clock): such a record is
-    interpolated linearly onto the first's time grid. In a run with several scope captures,
-    filter on ``capture`` too."""
-    run_dir = Path(run_dir)
-    df = load_run(run_dir)
+def select_events(df: pd.DataFrame, run_dir: str | Path, **filters: Any) -> pd.DataFrame:
+    """The captured events of ``df`` (a :func:`load_run` table of ``run_dir``) that match
+    ``filters`` (column=value; a list or tuple matches any of its values; numbers match to
+    1e-9 relative), renumbered from 0. KeyError names a column the table lacks."""
     sel = df["status"] == "captured"
     for col, want in filters.items():
         if col not in df:
@@ -108,27 +108,65 @@ def group_waveforms(
             sel &= np.isclose(pd.to_numeric(df[col], errors="coerce"), want, rtol=1e-9, atol=0)
         else:
             sel &= df[col] == want
-    rows = df[sel].reset_index(drop=True)
-    if rows.empty:
-        return np.empty(0), np.empty((0, 0)), rows
+    return df[sel].reset_index(drop=True)
+
+
+def _shifted(values: np.ndarray, shift: float) -> np.ndarray:
+    """``values`` read ``shift`` samples later (|shift| < 1), linearly interpolated; the ends
+    hold the end samples (as numpy.interp does outside the data)."""
+    out = values.copy()
+    if shift > 0:
+        out[:-1] = values[:-1] * (1 - shift) + values[1:] * shift
+    elif shift < 0:
+        out[1:] = values[1:] * (1 + shift) - values[:-1] * shift
+    return out
+
+
+def iter_group_values(
+    run_dir: str | Path, rows: pd.DataFrame, channel: str = "current"
+) -> Iterator[tuple[Waveform, np.ndarray]]:
+    """One event of ``rows`` at a time (its waveform file read when reached): (waveform, its
+    ``channel`` in SI units on the first record's time grid). All records must share length and
+    dt, and their t0 may differ by less than one sample (a free-running sample clock): such a
+    record is interpolated linearly onto the first's grid. RunFolderError otherwise."""
+    run_dir = Path(run_dir)
     first: Waveform | None = None
-    values = None
-    for k, rel in enumerate(rows["file"]):
+    for rel in rows["file"]:
         path = run_dir / rel
         wf = load_waveform(path)
         if channel not in wf.channels:
             raise RunFolderError(f"{path} [channels]: no {channel!r} channel")
         if first is None:
             first = wf
-            values = np.empty((len(rows), wf.n))
         elif (wf.n, wf.dt) != (first.n, first.dt) or abs(wf.t0 - first.t0) >= first.dt:
             raise RunFolderError(
                 f"{path}: record ({wf.n} samples, dt {wf.dt}, t0 {wf.t0}) "
                 "differs from the group's first; filter further"
             )
+        values = wf.values(channel)
         if wf.t0 != first.t0:
-            values[k] = np.interp(first.time(), wf.time(), wf.values(channel))
-            continue
-        values[k] = wf.values(channel)
-    assert first is not None and values is not None
-    return first.time(), values, rows
+            values = _shifted(values, (first.t0 - wf.t0) / first.dt)
+        yield wf, values
+
+
+def group_waveforms(
+    run_dir: str | Path, channel: str = "current", **filters: Any
+) -> tuple[np.ndarray, np.ndarray, pd.DataFrame]:
+    """Waveforms of the captured events that match ``filters`` (see :func:`select_events`),
+    stacked: (t in s, values in SI units (events x samples), rows of those events), aligned as
+    :func:`iter_group_values` does. In a run with several scope captures, filter on
+    ``capture`` too. The stack grows with the group (events x samples float64): for large
+    groups, stream with :func:`iter_group_values` instead."""
+    run_dir = Path(run_dir)
+    rows = select_events(load_run(run_dir), run_dir, **filters)
+    if rows.empty:
+        return np.empty(0), np.empty((0, 0)), rows
+    t: np.ndarray | None = None
+    values = None
+    for k, (wf, v) in enumerate(iter_group_values(run_dir, rows, channel)):
+        if values is None:
+            t = wf.time()
+            values = np.empty((len(rows), wf.n))
+        values[k] = v
+    assert t is not None and values is not None
+    return t, values, rows
