@@ -31,6 +31,7 @@ from __future__ import annotations
 import hashlib
 import os
 import zipfile
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -116,12 +117,14 @@ def save_waveform(path: str | Path, wf: Waveform) -> str:
     return sha256_file(path)
 
 
-def load_waveform(path: str | Path) -> Waveform:
-    """Read a waveform file of either format; RunFolderError (a ValueError) naming the file
-    when it is incomplete, truncated or not an archive; FileNotFoundError when it is missing."""
+def load_waveform(path: str | Path, channels: Sequence[str] | None = None) -> Waveform:
+    """Read a waveform file of either format, with only ``channels`` (all by default; a
+    ``.zarr.zip`` then decodes only those); RunFolderError (a ValueError) naming the file when
+    it is incomplete, truncated, not an archive or lacks a wanted channel; FileNotFoundError
+    when it is missing."""
     path = Path(path)
     try:
-        return _load_waveform(path)
+        return _load_waveform(path, channels)
     except FileNotFoundError:
         raise
     except (zipfile.BadZipFile, EOFError, KeyError, ValueError, OSError, TypeError) as exc:
@@ -130,13 +133,34 @@ def load_waveform(path: str | Path) -> Waveform:
         raise RunFolderError(f"{path}: unreadable waveform file ({exc})") from None
 
 
-def _load_waveform(path: Path) -> Waveform:
+def _load_waveform(path: Path, channels: Sequence[str] | None = None) -> Waveform:
     if _format(path) == "zarr":
-        fields = read_zarr_waveform(path)
+        fields = read_zarr_waveform(path, channels)
         codes = fields["codes"]
         if codes.ndim != 2 or codes.dtype not in (np.int8, np.int16):
             raise RunFolderError(f"{path} [codes]: expected a 2-D int8 or int16 array")
         return Waveform(**fields)
+    wf = _load_npz(path)
+    if channels is None:
+        return wf
+    missing = [c for c in channels if c not in wf.channels]
+    if missing:
+        raise RunFolderError(f"{path} [channels]: no {missing[0]!r} channel")
+    rows = [wf.index(c) for c in channels]
+    return Waveform(
+        codes=wf.codes[rows],
+        gain=wf.gain[rows],
+        offset=wf.offset[rows],
+        code_min=wf.code_min[rows],
+        code_max=wf.code_max[rows],
+        dt=wf.dt,
+        t0=wf.t0,
+        channels=tuple(wf.channels[r] for r in rows),
+        units=tuple(wf.units[r] for r in rows),
+    )
+
+
+def _load_npz(path: Path) -> Waveform:
     # the file is opened here so that it is closed however np.load fails on it
     with open(path, "rb") as fh, np.load(fh, allow_pickle=False) as z:
         missing = [k for k in _KEYS if k not in z.files]
