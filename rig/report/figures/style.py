@@ -97,9 +97,10 @@ def house_style() -> Iterator[None]:
         yield
 
 
-def new_figure(width_in: float, height_in: float) -> Figure:
-    """An empty figure of the given size (inches) on its own Agg canvas, constrained layout."""
-    fig = Figure(figsize=(width_in, height_in), dpi=DPI, layout="constrained")
+def new_figure(width_in: float, height_in: float, layout: str | None = "constrained") -> Figure:
+    """An empty figure of the given size (inches) on its own Agg canvas, constrained layout
+    (``layout=None``: none, the caller places the axes)."""
+    fig = Figure(figsize=(width_in, height_in), dpi=DPI, layout=layout)
     FigureCanvasAgg(fig)
     return fig
 

@@ -117,7 +117,21 @@ def fig_waveforms(
     titled "peak").
     """
     with house_style():
-        fig = new_figure(10.5, 0.7 + 2.9 * len(rows))
+        height = 0.7 + 2.9 * len(rows)
+        # fixed margins (inches) instead of the constrained layout: solving that layout took
+        # about a third of the report's drawing time, and these panels always carry the same
+        # labels (tick labels of at most 6 characters)
+        fig = new_figure(10.5, height, layout=None)
+        top, bottom, gap = 0.78, 0.55, 0.85
+        panel = (height - top - bottom - gap * (len(rows) - 1)) / len(rows)
+        fig.subplots_adjust(
+            left=0.075,
+            right=0.97,
+            top=1 - top / height,
+            bottom=bottom / height,
+            wspace=0.27,
+            hspace=gap / panel,
+        )
         axes = fig.subplots(len(rows), 2, squeeze=False)
         fig.suptitle(mpl_text(title), fontweight="bold", fontsize=12.5)
         for (row_title, series, window), (ax_l, ax_r) in zip(rows, axes, strict=True):
