@@ -35,6 +35,7 @@ __all__ = ["EXACT_CAP", "FLOOR_RATIO", "REL_ERROR", "GridQuantiles"]
 EXACT_CAP = 1000  # rows kept exactly; the histogram takes over at the 1001st
 REL_ERROR = 0.01  # relative error of a bucket's value (DDSketch's alpha)
 FLOOR_RATIO = 1e-9  # |value| below FLOOR_RATIO * span counts as 0 (absolute error bound)
+_BLOCK = 64  # rows counted at a time
 
 
 class GridQuantiles:
@@ -122,11 +123,12 @@ class GridQuantiles:
         self._count_rows(rows)
 
     def _count_rows(self, rows: np.ndarray) -> None:
-        if rows.size == 0:
-            return
         assert self._counts is not None
-        cols = np.broadcast_to(np.arange(self.width), rows.shape)
-        np.add.at(self._counts, (cols, self._bucket(rows)), 1)
+        # in blocks, so counting the kept rows at the switch needs little temporary memory
+        for start in range(0, rows.shape[0], _BLOCK):
+            block = rows[start : start + _BLOCK]
+            cols = np.broadcast_to(np.arange(self.width), block.shape)
+            np.add.at(self._counts, (cols, self._bucket(block)), 1)
 
     def add(self, rows: np.ndarray) -> None:
         """Add one row (``width`` values) or a block of rows (k x width); finite values only."""
