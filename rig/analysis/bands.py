@@ -147,7 +147,9 @@ class BandGrid:
             top = np.maximum.reduceat(seg, self.lin_starts)
             bottom = np.minimum.reduceat(seg, self.lin_starts)
             lin = np.where(-bottom > top, bottom, top)
-        first = int(self.log_starts[0]) if self.log_starts.size else self.n
+        if not self.log_starts.size:  # no sample after the trigger
+            return lin.astype(np.float64)
+        first = int(self.log_starts[0])
         tail = np.add.reduceat(x[first:], self.log_starts - first) / self.log_counts
         return np.concatenate([lin, tail])
 

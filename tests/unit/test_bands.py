@@ -176,3 +176,14 @@ def test_bad_input_is_refused():
     with pytest.raises(ValueError):
         GridQuantiles(3, 0.0)
     assert np.isnan(q.quantile([0.5])).all()
+
+
+def test_a_record_that_ends_before_the_trigger_has_no_tail():
+    grid = band_grid(-1e-6, 1e-7, 10, (-1e-6, 0.0))
+    assert grid.log_t.size == 0 and grid.width == 10
+    acc = BandAccumulator(grid, span=100.0)
+    acc.add(np.arange(10.0))
+    b = acc.result()
+    assert b.log_mid.size == 0 and b.lin_mid.size == 10
+    # baseline (mean of the 10 pre-trigger samples, 4.5) removed; largest |value| made positive
+    np.testing.assert_allclose(b.lin_mid, np.arange(10.0) - 4.5)
