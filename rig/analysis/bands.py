@@ -57,7 +57,7 @@ def method_note() -> str:
         f"samples themselves, or each record's largest value per bin) and {LOG_BINS} "
         "log-spaced bins over the tail (each record's mean per bin, which keeps its charge). "
         f"Quantiles are exact up to {EXACT_CAP} events per group; beyond, they come from "
-        f"log-spaced histograms per point (DDSketch buckets) within {REL_ERROR:.0%} of the "
+        f"log-spaced histograms per point (DDSketch buckets) within {REL_ERROR * 100:g} % of the "
         "value."
     )
 
@@ -66,7 +66,7 @@ def caption_note() -> str:
     """The bands' accuracy in a few words, for a figure caption (plain text)."""
     return (
         f"Bands: exact quantiles up to {EXACT_CAP} events per group, "
-        f"within {REL_ERROR:.0%} beyond (streamed on a decimated time grid)."
+        f"within {REL_ERROR * 100:g} % beyond (streamed on a decimated time grid)."
     )
 
 
