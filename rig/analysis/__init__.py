@@ -15,6 +15,18 @@ from rig.analysis.analyze import (
     journal_frame,
     recorded_analysis_options,
 )
+from rig.analysis.bands import (
+    LIN_POINTS,
+    LOG_BINS,
+    MIN_PRE_SAMPLES,
+    BandAccumulator,
+    BandGrid,
+    Bands,
+    band_grid,
+    caption_note,
+    method_note,
+    peak_window,
+)
 from rig.analysis.compare import (
     COMPARE_COLUMNS,
     COMPARE_KEYS,
@@ -31,6 +43,7 @@ from rig.analysis.compare import (
     verdict_table,
     write_comparison,
 )
+from rig.analysis.gridquantiles import EXACT_CAP, FLOOR_RATIO, REL_ERROR, GridQuantiles
 from rig.analysis.measure import (
     measure_file,
     read_trace,
@@ -55,8 +68,10 @@ from rig.analysis.provenance import (
 )
 from rig.analysis.runs import (
     group_waveforms,
+    iter_group_values,
     load_event_waveform,
     load_run,
+    select_events,
     stack_waveforms,
 )
 from rig.analysis.selfdischarge import (
@@ -86,6 +101,22 @@ from rig.analysis.stats import (
 )
 
 __all__ = [
+    "EXACT_CAP",
+    "FLOOR_RATIO",
+    "LIN_POINTS",
+    "LOG_BINS",
+    "MIN_PRE_SAMPLES",
+    "REL_ERROR",
+    "BandAccumulator",
+    "BandGrid",
+    "Bands",
+    "GridQuantiles",
+    "band_grid",
+    "caption_note",
+    "iter_group_values",
+    "method_note",
+    "peak_window",
+    "select_events",
     "analysis_mismatch",
     "analysis_options",
     "recorded_analysis_options",

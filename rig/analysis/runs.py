@@ -14,6 +14,7 @@ Nothing here writes into the run folder.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
@@ -26,7 +27,14 @@ from rig.store.tables import read_parquet_table
 from rig.store.waveform import Waveform, load_waveform
 from rigbase.errors import RunFolderError
 
-__all__ = ["group_waveforms", "load_event_waveform", "load_run", "stack_waveforms"]
+__all__ = [
+    "group_waveforms",
+    "iter_group_values",
+    "load_event_waveform",
+    "load_run",
+    "select_events",
+    "stack_waveforms",
+]
 
 
 def load_run(run_dir: str | Path) -> pd.DataFrame:
@@ -87,17 +95,10 @@ def load_event_waveform(run_dir: str | Path, event: int) -> Waveform:
     return load_waveform(path)
 
 
-def group_waveforms(
-    run_dir: str | Path, channel: str = "current", **filters: Any
-) -> tuple[np.ndarray, np.ndarray, pd.DataFrame]:
-    """Waveforms of the captured events that match ``filters`` (column=value; a list or tuple
-    matches any of its values), stacked: (t in s, values in SI units (events x samples),
-    rows of those events). All matching records must share length and dt, and their t0 may
-    differ by less than one sample (a free-running sample clock): such a record is
-    interpolated linearly onto the first's time grid. In a run with several scope captures,
-    filter on ``capture`` too."""
-    run_dir = Path(run_dir)
-    df = load_run(run_dir)
+def select_events(df: pd.DataFrame, run_dir: str | Path, **filters: Any) -> pd.DataFrame:
+    """The captured events of ``df`` (a :func:`load_run` table of ``run_dir``) that match
+    ``filters`` (column=value; a list or tuple matches any of its values; numbers match to
+    1e-9 relative), renumbered from 0. KeyError names a column the table lacks."""
     sel = df["status"] == "captured"
     for col, want in filters.items():
         if col not in df:
@@ -108,48 +109,71 @@ def group_waveforms(
             sel &= np.isclose(pd.to_numeric(df[col], errors="coerce"), want, rtol=1e-9, atol=0)
         else:
             sel &= df[col] == want
-    rows = df[sel].reset_index(drop=True)
-    t, values = stack_waveforms(run_dir, rows, channel)
-    return t, values, rows
+    return df[sel].reset_index(drop=True)
+
+
+def _shifted(values: np.ndarray, shift: float) -> np.ndarray:
+    """``values`` read ``shift`` samples later (|shift| < 1), linearly interpolated; the ends
+    hold the end samples (as numpy.interp does outside the data)."""
+    out = values.copy()
+    if shift > 0:
+        out[:-1] = values[:-1] * (1 - shift) + values[1:] * shift
+    elif shift < 0:
+        out[1:] = values[1:] * (1 + shift) - values[:-1] * shift
+    return out
+
+
+def iter_group_values(
+    run_dir: str | Path, rows: pd.DataFrame, channel: str = "current"
+) -> Iterator[tuple[Waveform, np.ndarray]]:
+    """One event of ``rows`` at a time (its waveform file read when reached): (waveform, its
+    ``channel`` in SI units on the first record's time grid). All records must share length and
+    dt, and their t0 may differ by less than one sample (a free-running sample clock): such a
+    record is interpolated linearly onto the first's grid. RunFolderError otherwise."""
+    run_dir = Path(run_dir)
+    first: Waveform | None = None
+    for rel in rows["file"]:
+        path = run_dir / rel
+        wf = load_waveform(path, channels=(channel,))  # only that channel is decoded
+        if first is None:
+            first = wf
+        elif (wf.n, wf.dt) != (first.n, first.dt) or abs(wf.t0 - first.t0) >= first.dt:
+            raise RunFolderError(
+                f"{path}: record ({wf.n} samples, dt {wf.dt}, t0 {wf.t0}) "
+                "differs from the group's first; filter further"
+            )
+        values = wf.values(channel)
+        if wf.t0 != first.t0:
+            values = _shifted(values, (first.t0 - wf.t0) / first.dt)
+        yield wf, values
 
 
 def stack_waveforms(
     run_dir: str | Path, rows: pd.DataFrame, channel: str = "current"
 ) -> tuple[np.ndarray, np.ndarray]:
     """(t in s, values in SI units (events x samples)) of ``channel`` of the events in
-    ``rows`` (journal rows of captured events, in order; only that channel is read). The
-    records must share length and dt, and their t0 may differ by less than one sample (a
-    free-running sample clock): such a record is interpolated linearly onto the first's time
-    grid. RunFolderError naming the file otherwise."""
-    run_dir = Path(run_dir)
-    if rows.empty:
-        return np.empty(0), np.empty((0, 0))
-    first: Waveform | None = None
+    ``rows`` (journal rows of captured events, in order; only that channel is read), aligned
+    as :func:`iter_group_values` does. The stack grows with the events (events x samples
+    float64): for large groups, stream with :func:`iter_group_values` instead."""
+    t: np.ndarray | None = None
     values = None
-    for k, rel in enumerate(rows["file"]):
-        path = run_dir / rel
-        wf = load_waveform(path, (channel,))
-        if first is None:
-            first = wf
+    for k, (wf, v) in enumerate(iter_group_values(run_dir, rows, channel)):
+        if values is None:
+            t = wf.time()
             values = np.empty((len(rows), wf.n))
-        elif (wf.n, wf.dt) != (first.n, first.dt) or abs(wf.t0 - first.t0) >= first.dt:
-            raise RunFolderError(
-                f"{path}: record ({wf.n} samples, dt {wf.dt}, t0 {wf.t0}) "
-                "differs from the group's first; filter further"
-            )
-        np.multiply(wf.codes[0], wf.gain[0], out=values[k])
-        values[k] += wf.offset[0]
-        if wf.t0 != first.t0:
-            _shift(values[k], (first.t0 - wf.t0) / first.dt)
-    assert first is not None and values is not None
-    return first.time(), values
+        values[k] = v
+    if t is None or values is None:
+        return np.empty(0), np.empty((0, 0))
+    return t, values
 
 
-def _shift(v: np.ndarray, f: float) -> None:
-    """Resample ``v`` in place at sample positions ``j + f`` (-1 < f < 1), linear between
-    samples and held at the ends: what ``np.interp`` gives onto a grid shifted by ``f``
-    samples, without its search (a record is a few hundred thousand samples)."""
-    if f > 0:
-        v[:-1] += f * (v[1:] - v[:-1])
-    elif f < 0:
-        v[1:] += f * (v[1:] - v[:-1])
+def group_waveforms(
+    run_dir: str | Path, channel: str = "current", **filters: Any
+) -> tuple[np.ndarray, np.ndarray, pd.DataFrame]:
+    """Waveforms of the captured events that match ``filters`` (see :func:`select_events`),
+    stacked by :func:`stack_waveforms`: (t in s, values in SI units (events x samples), rows
+    of those events). In a run with several scope captures, filter on ``capture`` too."""
+    run_dir = Path(run_dir)
+    rows = select_events(load_run(run_dir), run_dir, **filters)
+    t, values = stack_waveforms(run_dir, rows, channel)
+    return t, values, rows

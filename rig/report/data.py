@@ -9,21 +9,16 @@ record_s, never from the capture names.
 
 from __future__ import annotations
 
-import logging
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from rig.analysis.runs import group_waveforms, load_run
+from rig.analysis.runs import load_run
 from rig.analysis.stats import GROUP_KEYS, with_capture
 from rig.store.tables import read_csv_table
 from rigbase.errors import RunFolderError
 from rigbase.units import eng
-
-log = logging.getLogger(__name__)
-
 
 FLAG_TEXT = {
     "flag_not_captured": "not captured",
@@ -71,19 +66,6 @@ def _load_groups(run: Path) -> pd.DataFrame:
     # an all-empty column reads as float: cast before filling (pandas refuses "" in float64)
     g["verdict"] = g["verdict"].astype(object).fillna("").astype(str).str.strip()
     return with_capture(g)
-
-
-def _group_waveforms(run: Path, **filters: Any):
-    """(t, values events x samples, rows) of the captured events matching ``filters``, or None
-    when there are none or their records differ in shape (logged; the panel goes without)."""
-    try:
-        t, values, rows = group_waveforms(run, channel="current", **filters)
-    except RunFolderError as exc:
-        log.warning("report: group %s of %s left out of the waveform figure: %s", filters, run, exc)
-        return None
-    if len(rows) == 0:
-        return None
-    return np.asarray(t, float), np.atleast_2d(np.asarray(values, float)), rows
 
 
 def _peak_metric(g: pd.DataFrame) -> str:

@@ -13,18 +13,19 @@ from pathlib import Path
 
 import pandas as pd
 
+from rig.analysis.bands import caption_note, method_note
 from rig.analysis.stats import capture_roles, with_capture
 from rig.report import figures as F
 from rig.report.captures import measures
 from rig.report.data import (
     _at_zero_delay,
     _capture_text,
-    _group_waveforms,
     _load_metrics,
     _peak_metric,
 )
 from rig.report.html import _img, _slug, _table, esc
 from rig.report.tables import _compare_table
+from rig.report.wavebands import group_bands, open_group
 from rig.store.runfolder import read_manifest
 from rigbase.units import eng
 
@@ -61,7 +62,8 @@ def _wave_rows(
         combos = [c for c in combos if c in have][:1]
     rows = []
     for volts, load in sorted(combos[:MAX_WAVE_ROWS], key=lambda k: (str(k[1]), k[0])):
-        loaded = []
+        # each group streamed (rig.report.wavebands): never more than a few records in memory
+        opened = []
         for meter in colours:
             sel = d[(d["meter"] == meter) & (d["volts"] == volts) & (d["load"] == load)]
             if sel.empty:
@@ -73,28 +75,25 @@ def _wave_rows(
                 "load": load,
                 "delay_s": sel["delay_s"].iloc[0],
             }
-            got = _group_waveforms(run, **filt, **({"capture": capture} if capture else {}))
+            got = open_group(run, m, **filt, **({"capture": capture} if capture else {}))
             if got is not None:
-                loaded.append((meter, "", got))
+                opened.append((meter, "", got))
             if other is not None:
                 cap_b = {"capture": other_capture} if other_capture else {}
-                got_b = _group_waveforms(other[0], **filt, **cap_b)
+                got_b = open_group(other[0], other[1], **filt, **cap_b)
                 if got_b is not None:
-                    loaded.append((meter, " (baseline)", got_b))
-        if not loaded:
+                    opened.append((meter, " (baseline)", got_b))
+        if not opened:
             continue
-        windows = [F.linear_window(t, v) for _, _, (t, v, _r) in loaded]
-        window = (min(w[0] for w in windows), max(w[1] for w in windows))
-        series = [
-            F.Series(
-                F.summarise_traces(t, v, window),
-                f"{meter}{tag}",
-                colours[meter],
-                "--" if tag else "-",
-            )
-            for meter, tag, (t, v, _r) in loaded
-        ]
-        rows.append((f"{eng(volts, 'V')}, load {load}", series, window))
+        window = (min(g.window[0] for *_, g in opened), max(g.window[1] for *_, g in opened))
+        series = []
+        for meter, tag, group in opened:
+            bands = group_bands(group, window)
+            if bands is not None:
+                style = "--" if tag else "-"
+                series.append(F.Series(bands, f"{meter}{tag}", colours[meter], style))
+        if series:
+            rows.append((f"{eng(volts, 'V')}, load {load}", series, window))
     return rows
 
 
@@ -102,7 +101,8 @@ def _section_waveforms(run: Path, m: pd.DataFrame, modes: list[str], colours, ou
     parts = [
         "<p>Median current of each meter with the band holding 5 % to 95 % of the "
         "events at each instant. Left: linear time around the nanosecond peak. Right: "
-        "logarithmic time and current, so the millisecond tail shows as well.</p>"
+        "logarithmic time and current, so the millisecond tail shows as well. "
+        f"{esc(method_note())}</p>"
     ]
     captures = [str(c) for c in dict.fromkeys(m["capture"])]
     several = len(captures) > 1
@@ -131,8 +131,9 @@ def _section_waveforms(run: Path, m: pd.DataFrame, modes: list[str], colours, ou
             sfx = f"-{_slug(capture)}" if several else ""
             r = F.render(fig, f"waveforms-{_slug(mode)}{sfx}", out)
             caption = f"Discharge current in mode {esc(mode)}" + (
-                f", {esc(_capture_text(m, capture))}." if several else "."
+                f", {esc(_capture_text(m, capture))}. " if several else ". "
             )
+            caption += esc(caption_note())
             parts.append(head + _img(r, f"Discharge waveforms, {what}", caption))
             head = ""
     return "".join(parts)
@@ -331,7 +332,7 @@ def _section_baseline(
                     r,
                     f"Baseline overlay, {what}",
                     f"Mode {esc(mode)}, capture {esc(capture)}: this run (solid) and the "
-                    f"baseline's capture {esc(base_capture)} (dashed).",
+                    f"baseline's capture {esc(base_capture)} (dashed). {esc(caption_note())}",
                 )
             )
     parts.append("<h3>Equivalence</h3>" + _compare_table(run, base, base_man))

@@ -223,7 +223,7 @@ def _section_flagged(run: Path, m: pd.DataFrame, colours: dict[str, str]) -> str
         thumb = "<span class='n'>no waveform</span>"
         if isinstance(r.file, str) and i < MAX_THUMBNAILS:
             try:
-                wf = load_waveform(run / r.file)
+                wf = load_waveform(run / r.file, channels=("current",))
                 thumb = F.sparkline_svg(
                     wf.time(), wf.values("current"), colours.get(r.meter, "#000")
                 )

@@ -168,8 +168,13 @@ def _read_direct(path: Path, channels: tuple[str, ...] | None) -> dict[str, Any]
             return None
         attrs = group.get("attributes") or {}
         shape = meta.get("shape")
+        # the bytes codec names its byte order only for multi-byte types (Zarr v3 core
+        # specification, "bytes" codec): an int8 array's may leave it out
         codecs = [
-            {k: v for k, v in c.items() if k != "configuration" or c.get("name") == "bytes"}
+            {"name": "bytes", "configuration": {"endian": "little"}}
+            if c.get("name") == "bytes"
+            and c.get("configuration", {}).get("endian") in (None, "little")
+            else {k: v for k, v in c.items() if k != "configuration" or c.get("name") == "bytes"}
             for c in meta.get("codecs") or []
         ]
         dtype = {"int8": "i1", "int16": "<i2"}.get(str(meta.get("data_type")))

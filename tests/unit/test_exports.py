@@ -24,6 +24,8 @@ FACES = {
         "sourcenet",
         "predict",
         "predictrun",
+        "bands",
+        "gridquantiles",
     ),
     "rig.report": ("page", "certificate"),
     "rig.dataset": ("catalog", "build", "query", "variance", "control", "cluster", "distribute"),

@@ -97,9 +97,10 @@ def house_style() -> Iterator[None]:
         yield
 
 
-def new_figure(width_in: float, height_in: float) -> Figure:
-    """An empty figure of the given size (inches) on its own Agg canvas, constrained layout."""
-    fig = Figure(figsize=(width_in, height_in), dpi=DPI, layout="constrained")
+def new_figure(width_in: float, height_in: float, layout: str | None = "constrained") -> Figure:
+    """An empty figure of the given size (inches) on its own Agg canvas, constrained layout
+    (``layout=None``: none, the caller places the axes)."""
+    fig = Figure(figsize=(width_in, height_in), dpi=DPI, layout=layout)
     FigureCanvasAgg(fig)
     return fig
 
@@ -152,6 +153,9 @@ def eng_ticks(ax: Any, axis: str, unit: str) -> None:
     fmt = FuncFormatter(lambda v, _pos: eng(v, unit, 3))
     target = ax.xaxis if axis == "x" else ax.yaxis
     target.set_major_locator(LogLocator(base=10.0, numticks=12))
+    # minor marks at 2 and 5 only: every tick is a set of artists, and the default eight per
+    # decade made building them the largest cost of drawing a log panel
+    target.set_minor_locator(LogLocator(base=10.0, subs=(2.0, 5.0), numticks=12))
     target.set_major_formatter(fmt)
     target.set_minor_formatter(NullFormatter())
 

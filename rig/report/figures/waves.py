@@ -1,9 +1,10 @@
 """Waveform figures: many records of a group reduced to quantile bands, and one-event sparklines.
 
-The report may hold hundreds of 10^5-sample records per group, so waveforms are reduced before
-plotting (:func:`summarise_traces`): the 5/50/95 % quantiles across events are computed on a
-linear window around the peak (:func:`linear_window`) and on log-spaced time bins for the
-tail, then thinned to a min/max envelope of a few thousand points. :func:`fig_waveforms` draws
+The report may hold thousands of 10^5-sample records per group, so waveforms are reduced before
+plotting: the 5/50/95 % quantiles across events on a decimated grid (a linear window around
+the peak, :func:`linear_window`, and log-spaced time bins for the tail), streamed one record
+at a time by :mod:`rig.analysis.bands`; :func:`summarise_traces` does the same for records
+already in memory. :func:`fig_waveforms` draws
 the reduced groups (linear time for the peak, log time and log current for the tail);
 :func:`sparkline_svg` is the small inline SVG of one event in the tables.
 """
@@ -17,6 +18,15 @@ from dataclasses import dataclass
 import numpy as np
 from matplotlib.figure import Figure
 
+from rig.analysis.bands import (
+    LIN_POINTS,
+    LOG_BINS,
+    BandAccumulator,
+    Bands,
+    align,
+    band_grid,
+    peak_window,
+)
 from rig.report.figures.style import (
     GREY,
     SERIES,
@@ -38,81 +48,23 @@ __all__ = [
 ]
 
 
-@dataclass(frozen=True)
-class TraceSummary:
-    """5/50/95 % quantiles across events of one group, reduced for plotting.
-
-    Linear panel: ``lin_t`` (s) with ``lin_lo/mid/hi`` (A, dominant polarity kept).
-    Log panel: ``log_t`` (s, > 0) with ``log_lo/mid/hi`` (A, magnitude, bin means).
-    ``noise`` is the median pre-trigger rms (A) and ``peak`` the largest |median| (A).
-    """
-
-    n: int
-    lin_t: np.ndarray
-    lin_lo: np.ndarray
-    lin_mid: np.ndarray
-    lin_hi: np.ndarray
-    log_t: np.ndarray
-    log_lo: np.ndarray
-    log_mid: np.ndarray
-    log_hi: np.ndarray
-    noise: float
-    peak: float
+TraceSummary = Bands  # one group's bands, reduced for plotting (rig.analysis.bands)
 
 
-def _aligned(t: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, float, float]:
-    """Baseline-removed events with one polarity (the dominant one); (rows, sign, noise)."""
+def _aligned_mean(t: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """|Mean| of the records (events x samples) after rig.analysis.bands.align."""
     v = np.atleast_2d(np.asarray(values, dtype=float))
-    pre = t < 0
-    if pre.sum() >= 8:
-        v = v - v[:, pre].mean(axis=1, keepdims=True)
-        noise = float(np.median(v[:, pre].std(axis=1)))
-    else:
-        noise = float("nan")
-    k = np.argmax(np.abs(v), axis=1)
-    signs = np.sign(v[np.arange(v.shape[0]), k])
-    signs[signs == 0] = 1.0
-    dominant = 1.0 if signs.sum() >= 0 else -1.0
-    return v * (signs * dominant)[:, None], dominant, noise
+    total = np.zeros(v.shape[1])
+    for row in v:
+        total += align(t, row)[0]
+    return np.abs(total / max(v.shape[0], 1))
 
 
 def linear_window(t: np.ndarray, values: np.ndarray) -> tuple[float, float]:
-    """Time window (s) that shows the fast peak on a linear axis.
-
-    From a little before the trigger to eight times the time the mean trace takes to fall from
-    its peak to half of it: the fast part fills the panel even when a slow tail follows at a
-    tenth of the peak (common practice for a readable zoom, no source).
-    """
-    v, _, _ = _aligned(t, values)
-    mean = np.abs(v.mean(axis=0))
-    k = int(np.argmax(mean))
-    after = np.flatnonzero(mean[k:] < 0.5 * mean[k])
-    fall = t[k + int(after[0])] - t[k] if after.size else t[-1] - t[k]
-    dt = float(t[1] - t[0]) if t.size > 1 else 1e-9
-    end = min(float(t[-1]), float(t[k]) + max(8.0 * float(fall), 40 * dt))
-    start = max(float(t[0]), -0.15 * end)
-    return start, end
-
-
-def _thin(t: np.ndarray, lo: np.ndarray, mid: np.ndarray, hi: np.ndarray, max_points: int):
-    """Min/max envelope: at most ``max_points`` points, narrow peaks kept."""
-    n = t.size
-    if n <= max_points:
-        return t, lo, mid, hi
-    k = math.ceil(n / (max_points // 2))
-    m = n // k
-    sl = slice(0, m * k)
-    tb = t[sl].reshape(m, k)
-    mb = mid[sl].reshape(m, k)
-    imin, imax = mb.argmin(axis=1), mb.argmax(axis=1)
-    first = np.minimum(imin, imax)
-    second = np.maximum(imin, imax)
-    rows = np.arange(m)
-    t2 = np.column_stack([tb[rows, first], tb[rows, second]]).ravel()
-    mid2 = np.column_stack([mb[rows, first], mb[rows, second]]).ravel()
-    lo2 = np.repeat(lo[sl].reshape(m, k).min(axis=1), 2)
-    hi2 = np.repeat(hi[sl].reshape(m, k).max(axis=1), 2)
-    return t2, lo2, mid2, hi2
+    """Time window (s) that shows the fast peak of ``values`` (events x samples, A) on a
+    linear axis: :func:`rig.analysis.bands.peak_window` of their aligned mean."""
+    t = np.asarray(t, dtype=float)
+    return peak_window(t, _aligned_mean(t, values))
 
 
 def _half_step(t: np.ndarray) -> float:
@@ -124,41 +76,22 @@ def summarise_traces(
     t: np.ndarray,
     values: np.ndarray,
     window: tuple[float, float],
-    max_points: int = 1500,
-    log_bins: int = 200,
+    max_points: int = LIN_POINTS,
+    log_bins: int = LOG_BINS,
 ) -> TraceSummary:
-    """Reduce ``values`` (events x samples, A) sampled at ``t`` (s) for the waveform panels."""
+    """Reduce ``values`` (events x samples, A) sampled at ``t`` (s, evenly spaced) for the
+    waveform panels: the records go one by one through a
+    :class:`rig.analysis.bands.BandAccumulator` (at most ``max_points`` linear points,
+    ``log_bins`` tail bins), as the report streams them from disk."""
     t = np.asarray(t, dtype=float)
-    v, dominant, noise = _aligned(t, values)
-    sel = (t >= window[0]) & (t <= window[1])
-    q = np.quantile(v[:, sel], [0.05, 0.5, 0.95], axis=0) * dominant
-    lo, mid, hi = (np.minimum(q[0], q[2]), q[1], np.maximum(q[0], q[2]))
-    lin = _thin(t[sel], lo, mid, hi, max_points)
-    # log panel: per-event means over log-spaced bins after the trigger, then quantiles across
-    # events; t0 + k dt leaves ~1e-22 s instead of 0 at the trigger sample, hence dt / 2
-    pos = np.flatnonzero(t > _half_step(t))
-    tp = t[pos]
-    edges = np.geomspace(tp[0], tp[-1], log_bins + 1)
-    starts = np.unique(np.searchsorted(tp, edges[:-1]))
-    starts = starts[starts < tp.size]
-    counts = np.diff(np.append(starts, tp.size))
-    sums = np.add.reduceat(v[:, pos], starts, axis=1)
-    binned = sums / counts
-    tb = np.add.reduceat(tp, starts) / counts
-    qb = np.quantile(binned, [0.05, 0.5, 0.95], axis=0)
-    return TraceSummary(
-        n=v.shape[0],
-        lin_t=lin[0],
-        lin_lo=lin[1],
-        lin_mid=lin[2],
-        lin_hi=lin[3],
-        log_t=tb,
-        log_lo=qb[0],
-        log_mid=qb[1],
-        log_hi=qb[2],
-        noise=noise,
-        peak=float(np.max(np.abs(mid))) if mid.size else 0.0,
-    )
+    v = np.atleast_2d(np.asarray(values, dtype=float))
+    dt = float(t[-1] - t[0]) / (t.size - 1) if t.size > 1 else 1e-9
+    grid = band_grid(float(t[0]), dt, t.size, window, max_points, log_bins)
+    top = float(np.max(np.abs(v))) if v.size else 0.0
+    acc = BandAccumulator(grid, 2.0 * top if top > 0 else 1.0)
+    for row in v:
+        acc.add(row)
+    return acc.result()
 
 
 @dataclass(frozen=True)
@@ -184,7 +117,21 @@ def fig_waveforms(
     titled "peak").
     """
     with house_style():
-        fig = new_figure(10.5, 0.7 + 2.9 * len(rows))
+        height = 0.7 + 2.9 * len(rows)
+        # fixed margins (inches) instead of the constrained layout: solving that layout took
+        # about a third of the report's drawing time, and these panels always carry the same
+        # labels (tick labels of at most 6 characters)
+        fig = new_figure(10.5, height, layout=None)
+        top, bottom, gap = 0.78, 0.55, 0.85
+        panel = (height - top - bottom - gap * (len(rows) - 1)) / len(rows)
+        fig.subplots_adjust(
+            left=0.075,
+            right=0.97,
+            top=1 - top / height,
+            bottom=bottom / height,
+            wspace=0.27,
+            hspace=gap / panel,
+        )
         axes = fig.subplots(len(rows), 2, squeeze=False)
         fig.suptitle(mpl_text(title), fontweight="bold", fontsize=12.5)
         for (row_title, series, window), (ax_l, ax_r) in zip(rows, axes, strict=True):
@@ -226,6 +173,12 @@ def fig_waveforms(
             ax_r.set_yscale("log")
             if top > 0 and np.isfinite(floor) and floor > 0:
                 ax_r.set_ylim(floor, top * 2)
+                # end the time axis soon after the last band sinks below the floor: a tail
+                # of noise around zero would otherwise stretch it over an empty panel
+                shown = np.concatenate([s.summary.log_t[s.summary.log_hi >= floor] for s in series])
+                ends = [float(s.summary.log_t[-1]) for s in series if s.summary.log_t.size]
+                if shown.size and ends:
+                    ax_r.set_xlim(right=min(3.0 * float(shown.max()), max(ends)))
             eng_ticks(ax_r, "x", "s")
             eng_ticks(ax_r, "y", "A")
             ax_r.set_xlabel("Time after trigger (s, log)")
