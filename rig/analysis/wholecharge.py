@@ -49,6 +49,7 @@ TAIL_SHARE_LIMIT = 0.01
 TAU_MAX_SPANS = 10.0
 BAD_FIT = 9.0  # reduced chi^2 above which the tail model is rejected (3 sigma per bin)
 _GRID = 24  # trial time constants per added term (log-spaced) before the polish
+COLLAPSED = 1e-3  # two fitted ln(tau) this close are one term (0.1 % apart)
 
 
 @dataclass
@@ -188,7 +189,9 @@ def _polish(
             done = cost - cost_new <= 1e-10 * cost or float(np.max(np.abs(x_new - x))) < 1e-7
             x, r, jac, cost = x_new, r_new, jac_new, cost_new
             lam = max(lam / 3.0, 1e-9)
-            if done:
+            # two time constants merging: the model has become one term fewer, which the
+            # information criterion has already weighed (two equal modes are no RC network's)
+            if done or (x.size > 1 and float(np.min(np.diff(np.sort(x)))) < COLLAPSED):
                 break
         else:
             lam *= 4.0
