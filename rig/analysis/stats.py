@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import logging
 import math
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -309,6 +309,14 @@ def _key(row: Mapping[str, Any]) -> tuple:
     )
 
 
+def _keys(metrics: pd.DataFrame) -> Iterator[tuple]:
+    """:func:`_key` of every row of ``metrics``, one row at a time (not a dict per row of
+    the whole table at once)."""
+    cols = [metrics[k].tolist() if k in metrics.columns else None for k in GROUP_KEYS]
+    for i in range(len(metrics)):
+        yield _key({k: c[i] for k, c in zip(GROUP_KEYS, cols, strict=True) if c is not None})
+
+
 def _summary(
     v: np.ndarray, confidence: float, coverage: float, rng: np.random.Generator, n_boot: int
 ) -> dict[str, Any]:
@@ -372,11 +380,14 @@ def group_stats(
     if missing:
         raise KeyError(f"metrics table lacks column(s) {', '.join(missing)} named by a limit")
     planned: dict[tuple, int] = {}
-    for row in plan if plan is not None else metrics.to_dict("records"):
-        planned[_key(row)] = planned.get(_key(row), 0) + 1
+    for key in _keys(metrics) if plan is None else map(_key, plan):
+        planned[key] = planned.get(key, 0) + 1
     captured = ~metrics["flag_not_captured"].astype(bool)
     keys = list(GROUP_KEYS)
-    frame = with_capture(metrics).copy()
+    # only the columns summarised here: a copy of the whole table (some 80 columns) would
+    # cost memory in proportion to it for nothing
+    used = [c for c in dict.fromkeys([*keys, *names, "polarity"]) if c in metrics.columns]
+    frame = with_capture(metrics[used]).copy()
     for k in keys:  # groupby drops None keys; keep them as a visible value
         if k not in frame:
             frame[k] = None
