@@ -340,10 +340,10 @@ def _record(
     sd_path: Path | None,
     channel: str,
 ) -> None:
-    from rig.analysis.incremental import metrics_options
+    from rig.analysis.incremental import metrics_options, stats_options
     from rig.analysis.provenance import record_options
 
-    opts = analysis_options(confidence, coverage, seed, safe_volts)
+    opts = {**analysis_options(confidence, coverage, seed, safe_volts), **stats_options()}
     from rig.store.waveform import sha256_file
 
     metrics_path = run_dir / "metrics.parquet"
@@ -418,7 +418,8 @@ def analyze_run(
     Incremental: when metrics.parquet was written by the same metric code, only the events
     that are new or whose journal row changed are read and analysed, the others keep their
     stored rows (the same numbers a full analysis gives; :mod:`rig.analysis.incremental`);
-    groups.csv and selfdischarge.csv are always recomputed from the whole table.
+    groups.csv and selfdischarge.csv are recomputed from the whole table. When nothing at
+    all changed (journal, manifest, code, options), the stored tables are returned as read.
     full: analyse every event again, whatever is stored. Not an option of the results (it
     changes none of them), so it is not recorded beside groups.csv.
 
@@ -435,14 +436,28 @@ def analyze_run(
     confidence, coverage = check_confidence(confidence), check_coverage(coverage)
     run_dir = Path(run_dir)
     manifest = read_manifest(run_dir)
+    if safe_residual_volts is None:
+        bench_limits = (manifest.get("bench") or {}).get("limits") or {}
+        found = bench_limits.get("safe_residual_volts") if isinstance(bench_limits, dict) else None
+        if found is None:
+            found = find_setting(manifest, "safe_residual_volts")
+        safe_residual_volts = float(found) if found is not None else DEFAULT_SAFE_VOLTS
     channel = "current"
+    metrics_path = run_dir / "metrics.parquet"
+    groups_path = run_dir / "groups.csv"
     reuse = None
     if not full:
-        from rig.analysis.incremental import metrics_options, reusable_metrics
+        from rig.analysis import incremental as inc
 
-        reuse = reusable_metrics(
-            run_dir / "metrics.parquet", metrics_options(channel), RESULT_SCHEMA
-        )
+        opts = analysis_options(confidence, coverage, seed, safe_residual_volts)
+        stored = inc.up_to_date(run_dir, {**opts, **inc.stats_options()}, channel)
+        if stored is not None:  # nothing changed since: no file is read or written again
+            m, g, sd = stored
+            log.info("%s: analysis up to date", run_dir)
+            n = int((m["status"] == "captured").sum())
+            sd_path = run_dir / "selfdischarge.csv" if sd is not None else None
+            return AnalysisResult(m, g, sd, metrics_path, groups_path, sd_path, 0, n)
+        reuse = inc.reusable_metrics(metrics_path, inc.metrics_options(channel), RESULT_SCHEMA)
     metrics, analysed = _metrics_table(run_dir, channel, BATCH_EVENTS, BATCH_BYTES, reuse)
     try:
         plan = read_plan(run_dir)
@@ -452,17 +467,9 @@ def analyze_run(
     limits = limits_from_manifest(manifest, source=run_dir / "manifest.json")
     rng = np.random.default_rng(seed)
     groups = group_stats(metrics, plan, limits, confidence=confidence, coverage=coverage, rng=rng)
-    metrics_path = run_dir / "metrics.parquet"
-    groups_path = run_dir / "groups.csv"
     # atomic: a process killed here leaves the previous tables, never a truncated one
     atomic_write(metrics_path, lambda p: metrics.to_parquet(p, index=False))
     atomic_write(groups_path, lambda p: groups.to_csv(p, index=False))
-    if safe_residual_volts is None:
-        bench_limits = (manifest.get("bench") or {}).get("limits") or {}
-        found = bench_limits.get("safe_residual_volts") if isinstance(bench_limits, dict) else None
-        if found is None:
-            found = find_setting(manifest, "safe_residual_volts")
-        safe_residual_volts = float(found) if found is not None else DEFAULT_SAFE_VOLTS
     sd, sd_path = None, None
     if has_delay_sweep(metrics):
         hazard = find_setting(manifest, "hazardous_live_volts")

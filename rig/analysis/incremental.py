@@ -39,6 +39,8 @@ __all__ = [
     "journal_digests",
     "metrics_options",
     "reusable_metrics",
+    "stats_options",
+    "up_to_date",
 ]
 
 log = logging.getLogger(__name__)
@@ -64,11 +66,22 @@ _METRIC_MODULES = (
 )
 
 
+# modules whose source decides groups.csv and selfdischarge.csv from metrics.parquet
+_STATS_MODULES = (
+    "rig.analysis.analyze",
+    "rig.analysis.options",
+    "rig.analysis.selfdischarge",
+    "rig.analysis.stats",
+    "rig.store.schema",
+)
+
+
 @functools.cache
-def code_fingerprint() -> str:
-    """SHA-256 (hex) of the metric modules' source and the numpy and scipy versions."""
+def code_fingerprint(modules: tuple[str, ...] = _METRIC_MODULES) -> str:
+    """SHA-256 (hex) of the modules' source (by default the metric modules) and the numpy
+    and scipy versions."""
     h = hashlib.sha256()
-    for name in _METRIC_MODULES:
+    for name in modules:
         spec = importlib.util.find_spec(name)
         origin = spec.origin if spec is not None else None
         h.update(name.encode() + b"\0")
@@ -86,6 +99,50 @@ def metrics_options(channel: str) -> dict[str, Any]:
         "metric_code": code_fingerprint(),
         "channel": channel,
     }
+
+
+def stats_options() -> dict[str, Any]:
+    """Recorded beside groups.csv and selfdischarge.csv besides the analysis options: the
+    fingerprint of the code that summarises metrics.parquet into them."""
+    return {"stats_code": code_fingerprint(_STATS_MODULES)}
+
+
+def up_to_date(
+    run_dir: str | Path, options: dict[str, Any], channel: str
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame | None] | None:
+    """(metrics, groups, selfdischarge or None) as stored, when nothing has changed since
+    they were written: the journal, manifest and tables are the ones their sidecars record,
+    made by this code with ``options`` (those of groups.csv, :func:`stats_options`
+    included); else None (the caller analyses). Nothing is read from the waveforms."""
+    from rig.analysis.provenance import mismatch, read_options
+    from rig.analysis.selfdischarge import has_delay_sweep
+    from rig.store.tables import read_csv_table, read_parquet_table
+    from rig.store.waveform import sha256_file
+    from rigbase.errors import RigError
+
+    run_dir = Path(run_dir)
+    m_path, g_path, sd_path = (
+        run_dir / n for n in ("metrics.parquet", "groups.csv", "selfdischarge.csv")
+    )
+    derived = {"metrics.parquet": m_path, "manifest.json": run_dir / "manifest.json"}
+    try:
+        if mismatch(m_path, metrics_options(channel), {"journal.jsonl": run_dir / "journal.jsonl"}):
+            return None
+        rec = read_options(m_path)
+        if rec is None or rec.options.get("table_sha256") != sha256_file(m_path):
+            return None
+        if mismatch(g_path, options, derived):
+            return None
+        metrics = read_parquet_table(m_path)
+        sweep = has_delay_sweep(metrics)
+        if sweep != sd_path.exists() or (sweep and mismatch(sd_path, options, derived)):
+            return None
+        groups = read_csv_table(g_path)
+        sd = read_csv_table(sd_path) if sweep else None
+    except (RigError, OSError, ValueError) as exc:
+        log.info("%s: stored analysis not reused (%s)", run_dir, exc)
+        return None
+    return metrics, groups, sd
 
 
 def _digest(row: dict[str, Any], run_dir: Path) -> str:

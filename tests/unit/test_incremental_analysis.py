@@ -84,10 +84,28 @@ def test_extended_run_with_a_retaken_event_equals_a_full_analysis(tmp_path, monk
 def test_a_second_analysis_of_an_unchanged_run_reads_no_waveform(tmp_path, monkeypatch):
     run = make_run(tmp_path, "same", rng=np.random.default_rng(32), reps=5)
     before = analyze_run(run)
+    files = {p.name: p.read_bytes() for p in run.iterdir() if p.is_file()}
     calls = _count_loads(monkeypatch)
-    again = analyze_run(run)
+    again = analyze_run(run)  # nothing changed: the stored tables, nothing rewritten
     assert calls == [] and again.analysed == 0 and again.reused == 10
-    _assert_same(before, again)
+    assert {p.name: p.read_bytes() for p in run.iterdir() if p.is_file()} == files
+    pd.testing.assert_frame_equal(again.metrics, before.metrics, check_exact=True)
+    pd.testing.assert_frame_equal(again.groups, pd.read_csv(run / "groups.csv"))
+    # other options of the group statistics: the metrics are kept, the groups recomputed
+    other = analyze_run(run, confidence=0.9)
+    assert calls == [] and other.analysed == 0
+    assert (other.groups["utl_confidence"] == 0.9).all()
+    pd.testing.assert_frame_equal(
+        other.groups, analyze_run(run, confidence=0.9, full=True).groups, check_exact=True
+    )
+    calls.clear()
+    # other statistics code than recorded beside groups.csv: the groups are made again
+    side = json.loads((run / "groups.csv.options.json").read_text())
+    side["options"]["stats_code"] = "0" * 64
+    (run / "groups.csv.options.json").write_text(json.dumps(side))
+    (run / "groups.csv").write_text("meter,mode,volts,metric,median,verdict\n")
+    assert analyze_run(run, confidence=0.9).analysed == 0 and calls == []
+    assert len(pd.read_csv(run / "groups.csv")) == len(other.groups)
     # metrics code or options other than the recorded ones: every event again
     side = json.loads((run / "metrics.parquet.options.json").read_text())
     side["options"]["metric_code"] = "0" * 64
