@@ -266,6 +266,7 @@ def _metrics_table(
     jr = with_capture(journal_frame(run_dir, rows))
     digests = journal_digests(rows, run_dir)
     digest = np.array([digests[int(e)] for e in jr["event"]], dtype=object)
+    del rows, digests  # a dict per journal line: not kept while the waveforms are analysed
     volts = pd.to_numeric(jr["volts"], errors="coerce").to_numpy(float)
     if "supply_volts" in jr:
         readback = pd.to_numeric(jr["supply_volts"], errors="coerce").to_numpy(float)
