@@ -8,10 +8,11 @@
 from __future__ import annotations
 
 import logging
-from collections.abc import Iterator
+import math
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -39,6 +40,11 @@ log = logging.getLogger(__name__)
 
 _GROUP_KEYS = GROUP_KEYS  # defined once in rig.analysis.stats
 
+# events analysed together, at most: the codes of one channel held at once stay near
+# BATCH_BYTES (about 120 long records of 275,000 one-byte samples), whatever the run's size
+BATCH_EVENTS = 512
+BATCH_BYTES = 32 << 20
+
 
 @dataclass(frozen=True)
 class AnalysisResult:
@@ -50,6 +56,8 @@ class AnalysisResult:
     metrics_path: Path
     groups_path: Path
     selfdischarge_path: Path | None
+    analysed: int = 0  # captured events whose waveform was read and analysed
+    reused: int = 0  # events whose stored metrics were kept (journal row unchanged)
 
     @property
     def paths(self) -> dict[str, Path]:
@@ -81,9 +89,10 @@ def find_setting(tree: Any, key: str) -> Any:
     return None
 
 
-def journal_frame(run_dir: str | Path) -> pd.DataFrame:
-    """The journal as a DataFrame, one row per event (last entry wins after a resume)."""
-    rows = read_journal(run_dir)
+def journal_frame(run_dir: str | Path, rows: list[dict[str, Any]] | None = None) -> pd.DataFrame:
+    """The journal as a DataFrame, one row per event (last entry wins after a resume).
+    ``rows``: the journal as already read (read_journal), else it is read here."""
+    rows = read_journal(run_dir) if rows is None else rows
     if not rows:
         raise RunFolderError(f"{Path(run_dir) / 'journal.jsonl'}: no events journalled")
     df = pd.DataFrame(rows)
@@ -93,73 +102,134 @@ def journal_frame(run_dir: str | Path) -> pd.DataFrame:
     return df.drop_duplicates("event", keep="last").sort_values("event").reset_index(drop=True)
 
 
-def _batches(run_dir: Path, jr: pd.DataFrame, channel: str, batch: int) -> Iterator[tuple]:
-    """Captured events grouped by record shape, loaded ``batch`` events at a time:
-    yields (journal index, stacked codes, per-event gain/offset/rails, dt, t0)."""
-    captured = jr.index[jr["status"] == "captured"]
-    headers = {}
-    for i in captured:
+class _Event(NamedTuple):
+    """What the metrics need of one captured event: the analysed channel's codes (a copy, so
+    the other channels are freed at once) and its scale, rails and timing."""
+
+    index: int  # row of the journal table
+    codes: np.ndarray
+    gain: float
+    offset: float
+    code_min: int
+    code_max: int
+    dt: float
+    t0: float
+    v_in: float  # the meter's input just before the discharge, V (NaN if unknown)
+
+    @property
+    def shape_key(self) -> tuple:
+        # events analysed together share samples, dt, dtype and the pre-trigger samples
+        # event_metrics derives from t0 (the same formula), so no event's numbers depend on
+        # which others share its batch; a free-running clock gives each record its own
+        # sub-sample t0, passed per event
+        pre = int(np.ceil(-self.t0 / self.dt)) if self.t0 < 0 else 0
+        return (self.codes.size, self.dt, pre, self.codes.dtype.str)
+
+
+def _waveform_files(run_dir: Path, jr: pd.DataFrame, todo: Iterable[int]) -> dict[int, Path]:
+    """{journal row: waveform path} of the captured events ``todo``; every name checked
+    before any file is read."""
+    out = {}
+    for i in todo:
         rel = jr.at[i, "file"]
         if not isinstance(rel, str) or not rel:
             raise RunFolderError(
                 f"{run_dir / 'journal.jsonl'}: event {jr.at[i, 'event']} "
                 "is captured but names no waveform file"
             )
-        headers[i] = run_dir / rel
-    # Read each file once; keep a batch in memory at a time.
-    pending: list[tuple[int, Any]] = []
-    for i, path in headers.items():
-        try:
-            wf = load_waveform(path)
-        except FileNotFoundError:
-            raise RunFolderError(f"{path}: waveform file missing") from None
-        except (ValueError, OSError) as exc:
-            raise RunFolderError(f"{path}: unreadable waveform ({exc})") from None
-        if channel not in wf.channels:
-            raise RunFolderError(f"{path} [channels]: no {channel!r} channel")
-        pending.append((i, wf))
-        if len(pending) >= batch:
-            yield from _flush(pending, channel)
-            pending = []
-    yield from _flush(pending, channel)
-
-
-def _flush(pending: list[tuple[int, Any]], channel: str) -> Iterator[tuple]:
-    by_shape: dict[tuple, list[tuple[int, Any]]] = {}
-    for i, wf in pending:
-        # a free-running sample clock gives every record its own sub-sample t0: group by
-        # the whole number of pre-trigger samples and pass t0 per event
-        pre = int(np.ceil(-wf.t0 / wf.dt - 1e-9))
-        by_shape.setdefault((wf.n, wf.dt, pre, wf.codes.dtype.str), []).append((i, wf))
-    for (_, dt, _, _), items in by_shape.items():
-        t0 = np.array([wf.t0 for _, wf in items])
-        k = [wf.index(channel) for _, wf in items]
-        codes = np.stack([wf.codes[j] for (_, wf), j in zip(items, k, strict=True)])
-        gain = np.array([wf.gain[j] for (_, wf), j in zip(items, k, strict=True)])
-        offset = np.array([wf.offset[j] for (_, wf), j in zip(items, k, strict=True)])
-        lo = np.array([wf.code_min[j] for (_, wf), j in zip(items, k, strict=True)])
-        hi = np.array([wf.code_max[j] for (_, wf), j in zip(items, k, strict=True)])
-        yield [i for i, _ in items], codes, gain, offset, lo, hi, dt, t0, _input_volts(items)
-
-
-def _input_volts(items: list[tuple[int, Any]]) -> np.ndarray:
-    """The meter's input voltage just before each discharge: the mean of the divider
-    channel ("voltage") over its pre-trigger samples, V (NaN without that channel)."""
-    out = np.full(len(items), np.nan)
-    for k, (_, wf) in enumerate(items):
-        if "voltage" not in wf.channels:
-            continue
-        j = wf.index("voltage")
-        n_pre = int(np.floor(-wf.t0 / wf.dt))
-        if n_pre < 2:
-            continue
-        codes = wf.codes[j, : n_pre - n_pre // 10].astype(np.float64)
-        out[k] = float(codes.mean() * wf.gain[j] + wf.offset[j])
+        out[i] = run_dir / rel
     return out
 
 
+def _read_event(i: int, path: Path, channel: str) -> _Event:
+    try:
+        wf = load_waveform(path)
+    except FileNotFoundError:
+        raise RunFolderError(f"{path}: waveform file missing") from None
+    except (ValueError, OSError) as exc:
+        raise RunFolderError(f"{path}: unreadable waveform ({exc})") from None
+    if channel not in wf.channels:
+        raise RunFolderError(f"{path} [channels]: no {channel!r} channel")
+    j = wf.index(channel)
+    return _Event(
+        i,
+        wf.codes[j].copy(),
+        float(wf.gain[j]),
+        float(wf.offset[j]),
+        int(wf.code_min[j]),
+        int(wf.code_max[j]),
+        float(wf.dt),
+        float(wf.t0),
+        _input_volts(wf),
+    )
+
+
+def _batches(
+    run_dir: Path,
+    jr: pd.DataFrame,
+    todo: Iterable[int],
+    channel: str,
+    batch: int,
+    batch_bytes: int,
+) -> Iterator[list[_Event]]:
+    """The captured events ``todo`` (journal rows), read one file at a time and yielded in
+    lists of one record shape; at most ``batch`` events or about ``batch_bytes`` of codes
+    are held at once, whatever the number of events."""
+    pending: list[_Event] = []
+    size = 0
+    for i, path in _waveform_files(run_dir, jr, todo).items():
+        ev = _read_event(i, path, channel)
+        pending.append(ev)
+        size += ev.codes.nbytes
+        if len(pending) >= batch or size >= batch_bytes:
+            yield from _by_shape(pending)
+            pending, size = [], 0
+    yield from _by_shape(pending)
+
+
+def _by_shape(pending: list[_Event]) -> Iterator[list[_Event]]:
+    by_shape: dict[tuple, list[_Event]] = {}
+    for ev in pending:
+        by_shape.setdefault(ev.shape_key, []).append(ev)
+    yield from by_shape.values()
+
+
+def _input_volts(wf: Any) -> float:
+    """The meter's input voltage just before the discharge: the mean of the divider
+    channel ("voltage") over its pre-trigger samples, V (NaN without that channel)."""
+    if "voltage" not in wf.channels:
+        return math.nan
+    j = wf.index("voltage")
+    n_pre = int(np.floor(-wf.t0 / wf.dt))
+    if n_pre < 2:
+        return math.nan
+    codes = wf.codes[j, : n_pre - n_pre // 10].astype(np.float64)
+    return float(codes.mean() * wf.gain[j] + wf.offset[j])
+
+
+def _empty_results(n: int) -> dict[str, np.ndarray]:
+    """The per-event columns of an event with no waveform, for ``n`` events (their dtypes are
+    also the ones a reused metrics.parquet must have)."""
+    res = {k: np.full(n, np.nan) for k in (*METRIC_COLUMNS, "dt_s", "record_s")}
+    for k in ("flag_clipped", "flag_truncated", "flag_below_noise"):
+        res[k] = np.zeros(n, dtype=bool)
+    res["flag_not_captured"] = np.ones(n, dtype=bool)
+    res["polarity"] = np.zeros(n, dtype=np.int8)
+    res["pulses"] = np.zeros(n, dtype=np.int64)
+    return res
+
+
+#: name -> dtype of the per-event columns the analysis writes (and reuses)
+RESULT_SCHEMA: dict[str, np.dtype] = {k: v.dtype for k, v in _empty_results(0).items()}
+
+
 def compute_metrics(
-    run_dir: str | Path, *, channel: str = "current", batch: int = 512
+    run_dir: str | Path,
+    *,
+    channel: str = "current",
+    batch: int = BATCH_EVENTS,
+    batch_bytes: int = BATCH_BYTES,
+    reuse: pd.DataFrame | None = None,
 ) -> pd.DataFrame:
     """Journal columns plus the per-event metrics of a run folder, without writing anything.
 
@@ -168,10 +238,35 @@ def compute_metrics(
     ``charged_volts`` (divider at the end of the dwell), else the supply readback
     (``supply_volts``), else the setpoint ``volts``. Besides METRIC_COLUMNS each event gets ``dt_s``
     (sample interval, s) and ``record_s`` (record span, samples x dt, s) of its waveform
-    (NaN when not captured), and rows without a ``capture`` (older runs) get "main".
+    (NaN when not captured), and rows without a ``capture`` (older runs) get "main". The last
+    column, ``journal_digest``, is a digest of the journal row each event was analysed from
+    (:mod:`rig.analysis.incremental`).
+
+    Waveform files are read one at a time and analysed in batches of at most ``batch``
+    events and about ``batch_bytes`` of codes (bytes; only the analysed channel is kept), so
+    memory does not grow with the number of events. ``reuse``: stored rows from
+    :func:`rig.analysis.incremental.reusable_metrics`; an event whose journal digest is
+    among them keeps its stored columns and its file is not read.
     """
+    return _metrics_table(run_dir, channel, batch, batch_bytes, reuse)[0]
+
+
+def _metrics_table(
+    run_dir: str | Path,
+    channel: str,
+    batch: int,
+    batch_bytes: int,
+    reuse: pd.DataFrame | None,
+) -> tuple[pd.DataFrame, int]:
+    """:func:`compute_metrics` and the number of events whose waveform was analysed."""
+    from rig.analysis.incremental import DIGEST_COLUMN, journal_digests
+
     run_dir = Path(run_dir)
-    jr = with_capture(journal_frame(run_dir))
+    rows = read_journal(run_dir)
+    jr = with_capture(journal_frame(run_dir, rows))
+    digests = journal_digests(rows, run_dir)
+    digest = np.array([digests[int(e)] for e in jr["event"]], dtype=object)
+    del rows, digests  # a dict per journal line: not kept while the waveforms are analysed
     volts = pd.to_numeric(jr["volts"], errors="coerce").to_numpy(float)
     if "supply_volts" in jr:
         readback = pd.to_numeric(jr["supply_volts"], errors="coerce").to_numpy(float)
@@ -180,40 +275,48 @@ def compute_metrics(
         measured = pd.to_numeric(jr["charged_volts"], errors="coerce").to_numpy(float)
         volts = np.where(np.isfinite(measured), measured, volts)
     ohms = pd.to_numeric(jr["load_ohms"], errors="coerce").to_numpy(float)
-    res = {k: np.full(len(jr), np.nan) for k in METRIC_COLUMNS}
-    for k in ("flag_clipped", "flag_truncated", "flag_below_noise"):
-        res[k] = np.zeros(len(jr), dtype=bool)
-    res["flag_not_captured"] = np.ones(len(jr), dtype=bool)
-    res["polarity"] = np.zeros(len(jr), dtype=np.int8)
-    res["pulses"] = np.zeros(len(jr), dtype=np.int64)
-    dt_s = np.full(len(jr), np.nan)
-    record_s = np.full(len(jr), np.nan)
-    for idx, codes, gain, offset, lo, hi, dt, t0, v_in in _batches(run_dir, jr, channel, batch):
-        ix = np.asarray(idx)
+    res = _empty_results(len(jr))
+    fresh = np.ones(len(jr), dtype=bool)
+    if reuse is not None and len(reuse):
+        pos = reuse.index.get_indexer(jr["event"].astype(np.int64).to_numpy())
+        have = np.flatnonzero(pos >= 0)
+        stored = reuse[DIGEST_COLUMN].to_numpy(object)[pos[have]]
+        same = have[np.asarray(stored == digest[have], dtype=bool)]
+        for k in res:
+            res[k][same] = reuse[k].to_numpy()[pos[same]]
+        fresh[same] = False
+    todo = jr.index[fresh & (jr["status"] == "captured").to_numpy()]
+    for events in _batches(run_dir, jr, todo, channel, batch, batch_bytes):
+        ix = np.array([ev.index for ev in events])
+        v_in = np.array([ev.v_in for ev in events])
         volts[ix] = np.where(np.isfinite(v_in), v_in, volts[ix])
-        dt_s[ix] = dt
-        record_s[ix] = codes.shape[1] * dt
         part = event_metrics(
-            codes,
-            dt=dt,
-            t0=t0,
-            gain=gain,
-            offset=offset,
-            code_min=lo,
-            code_max=hi,
+            np.stack([ev.codes for ev in events]),
+            dt=events[0].dt,
+            t0=np.array([ev.t0 for ev in events]),
+            gain=np.array([ev.gain for ev in events]),
+            offset=np.array([ev.offset for ev in events]),
+            code_min=np.array([ev.code_min for ev in events]),
+            code_max=np.array([ev.code_max for ev in events]),
             charge_volts=volts[ix],
             load_ohms=ohms[ix],
         )
         for k in METRIC_COLUMNS:
             res[k][ix] = part[k]
         res["flag_not_captured"][ix] = False
+        res["dt_s"][ix] = events[0].dt
+        res["record_s"][ix] = events[0].codes.size * events[0].dt
     out = jr.copy()
-    for k in METRIC_COLUMNS:
-        out[k] = res[k]
-    out["dt_s"] = dt_s
-    out["record_s"] = record_s
-    log.info("analysed %s events of %s", int((~res["flag_not_captured"]).sum()), run_dir)
-    return out
+    for k, v in res.items():
+        out[k] = v
+    out[DIGEST_COLUMN] = digest
+    log.info(
+        "%s: analysed %s captured events, reused %s unchanged rows",
+        run_dir,
+        len(todo),
+        int((~fresh).sum()),
+    )
+    return out, len(todo)
 
 
 def analysis_options(
@@ -236,13 +339,18 @@ def _record(
     seed: int,
     safe_volts: float | None,
     sd_path: Path | None,
+    channel: str,
 ) -> None:
+    from rig.analysis.incremental import metrics_options, stats_options
     from rig.analysis.provenance import record_options
 
-    opts = analysis_options(confidence, coverage, seed, safe_volts)
-    record_options(
-        run_dir / "metrics.parquet", "metrics", {}, {"journal.jsonl": run_dir / "journal.jsonl"}
-    )
+    opts = {**analysis_options(confidence, coverage, seed, safe_volts), **stats_options()}
+    from rig.store.waveform import sha256_file
+
+    metrics_path = run_dir / "metrics.parquet"
+    # the table's own checksum: a later analysis reuses rows only of the very file written here
+    made = {**metrics_options(channel), "table_sha256": sha256_file(metrics_path)}
+    record_options(metrics_path, "metrics", made, {"journal.jsonl": run_dir / "journal.jsonl"})
     inputs = {
         "metrics.parquet": run_dir / "metrics.parquet",
         "manifest.json": run_dir / "manifest.json",
@@ -303,9 +411,18 @@ def analyze_run(
     coverage: float = 0.99,
     safe_residual_volts: float | None = None,
     seed: int = 0,
+    full: bool = False,
 ) -> AnalysisResult:
     """Analyse a run folder; writes metrics.parquet, groups.csv and (delay sweeps only)
     selfdischarge.csv into it.
+
+    Incremental: when metrics.parquet was written by the same metric code, only the events
+    that are new or whose journal row changed are read and analysed, the others keep their
+    stored rows (the same numbers a full analysis gives; :mod:`rig.analysis.incremental`);
+    groups.csv and selfdischarge.csv are recomputed from the whole table. When nothing at
+    all changed (journal, manifest, code, options), the stored tables are returned as read.
+    full: analyse every event again, whatever is stored. Not an option of the results (it
+    changes none of them), so it is not recorded beside groups.csv.
 
     confidence, coverage: of the one-sided normal upper tolerance bound in groups.csv.
     safe_residual_volts: residual voltage counted as safe, V, for the self-discharge
@@ -320,7 +437,29 @@ def analyze_run(
     confidence, coverage = check_confidence(confidence), check_coverage(coverage)
     run_dir = Path(run_dir)
     manifest = read_manifest(run_dir)
-    metrics = compute_metrics(run_dir)
+    if safe_residual_volts is None:
+        bench_limits = (manifest.get("bench") or {}).get("limits") or {}
+        found = bench_limits.get("safe_residual_volts") if isinstance(bench_limits, dict) else None
+        if found is None:
+            found = find_setting(manifest, "safe_residual_volts")
+        safe_residual_volts = float(found) if found is not None else DEFAULT_SAFE_VOLTS
+    channel = "current"
+    metrics_path = run_dir / "metrics.parquet"
+    groups_path = run_dir / "groups.csv"
+    reuse = None
+    if not full:
+        from rig.analysis import incremental as inc
+
+        opts = analysis_options(confidence, coverage, seed, safe_residual_volts)
+        stored = inc.up_to_date(run_dir, {**opts, **inc.stats_options()}, channel)
+        if stored is not None:  # nothing changed since: no file is read or written again
+            m, g, sd = stored
+            log.info("%s: analysis up to date", run_dir)
+            n = int((m["status"] == "captured").sum())
+            sd_path = run_dir / "selfdischarge.csv" if sd is not None else None
+            return AnalysisResult(m, g, sd, metrics_path, groups_path, sd_path, 0, n)
+        reuse = inc.reusable_metrics(metrics_path, inc.metrics_options(channel), RESULT_SCHEMA)
+    metrics, analysed = _metrics_table(run_dir, channel, BATCH_EVENTS, BATCH_BYTES, reuse)
     try:
         plan = read_plan(run_dir)
     except RunFolderError:
@@ -329,17 +468,9 @@ def analyze_run(
     limits = limits_from_manifest(manifest, source=run_dir / "manifest.json")
     rng = np.random.default_rng(seed)
     groups = group_stats(metrics, plan, limits, confidence=confidence, coverage=coverage, rng=rng)
-    metrics_path = run_dir / "metrics.parquet"
-    groups_path = run_dir / "groups.csv"
     # atomic: a process killed here leaves the previous tables, never a truncated one
     atomic_write(metrics_path, lambda p: metrics.to_parquet(p, index=False))
     atomic_write(groups_path, lambda p: groups.to_csv(p, index=False))
-    if safe_residual_volts is None:
-        bench_limits = (manifest.get("bench") or {}).get("limits") or {}
-        found = bench_limits.get("safe_residual_volts") if isinstance(bench_limits, dict) else None
-        if found is None:
-            found = find_setting(manifest, "safe_residual_volts")
-        safe_residual_volts = float(found) if found is not None else DEFAULT_SAFE_VOLTS
     sd, sd_path = None, None
     if has_delay_sweep(metrics):
         hazard = find_setting(manifest, "hazardous_live_volts")
@@ -352,6 +483,16 @@ def analyze_run(
         )
         sd_path = run_dir / "selfdischarge.csv"
         atomic_write(sd_path, lambda p: sd.to_csv(p, index=False))
-    _record(run_dir, confidence, coverage, seed, safe_residual_volts, sd_path)
+    _record(run_dir, confidence, coverage, seed, safe_residual_volts, sd_path, channel)
     log.info("analysis of %s written", run_dir)
-    return AnalysisResult(metrics, groups, sd, metrics_path, groups_path, sd_path)
+    n_captured = int((metrics["status"] == "captured").sum())
+    return AnalysisResult(
+        metrics,
+        groups,
+        sd,
+        metrics_path,
+        groups_path,
+        sd_path,
+        analysed=analysed,
+        reused=n_captured - analysed,
+    )

@@ -365,7 +365,10 @@ def _chunk(
     out["charge_c"][sl] = q_rec
     out["charge_tail_c"][sl] = 0.0 if tail_fit else np.nan
     out["charge_u_c"][sl] = u_base * n_int if tail_fit else np.nan
-    out["energy_j"][sl] = np.einsum("ij,ij->i", y, y)
+    # in float64: a float32 sum of squares came out different in its last bits for the
+    # same row depending on how many rows shared the chunk (so incremental analysis could
+    # not equal a full one); this form gives every row the same sum alone or in a chunk
+    out["energy_j"][sl] = np.einsum("ij,ij->i", y, y, dtype=np.float64)
     out["flag_below_noise"][sl] = below
     if not ok.any():
         if tail_fit:

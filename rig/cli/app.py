@@ -143,6 +143,12 @@ def build_parser() -> argparse.ArgumentParser:
         default=0.99,
         help="coverage of the tolerance bound (default 0.99)",
     )
+    sp.add_argument(
+        "--full",
+        action="store_true",
+        help="analyse every event again (default: only events new or changed since the last "
+        "analysis by the same analysis code)",
+    )
 
     sp = add(
         "compare",

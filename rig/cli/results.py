@@ -29,7 +29,8 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     confidence, coverage = check_confidence(args.confidence), check_coverage(args.coverage)
     _must_be_run(args.run)
     with RunLock(args.run, "analyze"):  # no run, resume or other analysis writes meanwhile
-        result = analyze_run(args.run, confidence=confidence, coverage=coverage)
+        result = analyze_run(args.run, confidence=confidence, coverage=coverage, full=args.full)
+    _out(f"analysed {result.analysed} captured events, kept {result.reused} unchanged")
     for name, p in result.paths.items():
         _out(f"{name}: {p}")
     counts = _print_verdicts(result.groups)
