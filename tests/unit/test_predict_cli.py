@@ -12,7 +12,7 @@ from rig.planning.sequence import load_sequence
 from rig.runner.opener import load_bench
 from rigbase.errors import FileFormatError
 from rigbase.loadfile import BUNDLED_LOADS
-from tests.unit.test_files import NETLIST, SEQUENCE, SIM_BENCH, write
+from tests.file_fixtures import NETLIST, SEQUENCE, SIM_BENCH, write
 
 
 def _source(tmp_path: Path) -> Path:
