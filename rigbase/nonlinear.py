@@ -36,6 +36,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.integrate import solve_ivp
 
+from rigbase.graph import connected_groups
+
 __all__ = [
     "STRAY_FARADS",
     "VT_300K",
@@ -182,20 +184,7 @@ def _expand(parts: Iterable[Part]) -> tuple[list[Part], list[tuple[str, str, str
 
 
 def _groups(nodes: Iterable[str], edges: Iterable[Part]) -> list[set[str]]:
-    parent = {n: n for n in nodes}
-
-    def find(n: str) -> str:
-        while parent[n] != n:
-            parent[n] = parent[parent[n]]
-            n = parent[n]
-        return n
-
-    for e in edges:
-        parent[find(e.a)] = find(e.b)
-    out: dict[str, set[str]] = {}
-    for n in parent:
-        out.setdefault(find(n), set()).add(n)
-    return list(out.values())
+    return connected_groups(nodes, ((e.a, e.b) for e in edges))
 
 
 def assemble(parts: Sequence[Part], ground: str = "0", vt: float = VT_300K) -> System:

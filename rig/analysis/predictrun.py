@@ -21,6 +21,7 @@ from rig.analysis.identify import identify, path_of_load
 from rig.analysis.predict import METRICS, Prediction, predict
 from rig.analysis.runs import load_run
 from rig.analysis.sourcenet import FosterSource
+from rig.store.atomic import atomic_write
 from rig.store.runfolder import read_manifest
 from rigbase.errors import FileFormatError
 from rigbase.loadfile import LoadModel, load_from_spec
@@ -158,5 +159,6 @@ def predict_run(
         detail.append((keys, src, preds))
     table = pd.DataFrame(rows, columns=list(PREDICT_COLUMNS))
     if write:
-        table.to_csv(run / "predicted.csv", index=False)
+        # atomic like every derived table: a kill half-way leaves the previous file
+        atomic_write(run / "predicted.csv", lambda p: table.to_csv(p, index=False))
     return table, detail

@@ -21,6 +21,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+from rig.store.atomic import atomic_write_text
 from rig.store.waveform import sha256_file
 from rigbase.errors import RunFolderError
 
@@ -88,7 +89,7 @@ def record_options(
         "software": __version__,
         "written": datetime.now(UTC).isoformat(timespec="seconds"),
     }
-    side.write_text(json.dumps(rec, indent=1, sort_keys=True) + "\n", encoding="utf-8")
+    atomic_write_text(side, json.dumps(rec, indent=1, sort_keys=True) + "\n")
     return side
 
 

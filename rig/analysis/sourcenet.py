@@ -25,6 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rig.store.atomic import atomic_write_text
 from rigbase.errors import FileFormatError
 from rigbase.nonlinear import Part
 
@@ -90,7 +91,7 @@ class FosterSource:
 
     def save(self, path: str | Path) -> None:
         d = asdict(self)
-        Path(path).write_text(json.dumps(d, indent=1, default=float) + "\n", encoding="utf-8")
+        atomic_write_text(Path(path), json.dumps(d, indent=1, default=float) + "\n")
 
     @classmethod
     def load(cls, path: str | Path) -> FosterSource:

@@ -64,6 +64,7 @@ from rig.report.plots import (
 )
 from rig.report.predicted import section_predicted
 from rig.report.tables import _section_flagged, _section_groups, _section_tested
+from rig.store.atomic import atomic_write_text
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
 
@@ -241,7 +242,7 @@ def write_report(
         "</main></body></html>"
     )
     path = run / REPORT
-    path.write_text(doc, encoding="utf-8")
+    atomic_write_text(path, doc)  # a report killed half-way leaves the previous one whole
     _record_report(run, path, baseline_dir)
     log.info("report %s written in %.1f s", path, time.perf_counter() - t_start)
     return path
