@@ -14,6 +14,7 @@ import fcntl
 import json
 import os
 import socket
+import time
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import IO
@@ -23,6 +24,7 @@ from rigbase.errors import RunFolderError
 __all__ = ["LOCK_NAME", "RunLock", "RunLockedError"]
 
 LOCK_NAME = ".lock"
+UNKNOWN = "holder unknown"  # a lock file that names no holder (written by no run of ours)
 
 
 class RunLockedError(RunFolderError):
@@ -45,8 +47,7 @@ class RunLock:
         try:
             fcntl.flock(fh.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
-            fh.seek(0)
-            holder = _describe(fh.read())
+            holder = _holder(fh)
             fh.close()
             raise RunLockedError(
                 f"{self.path.parent}: in use by another process ({holder}); wait for it to end"
@@ -89,6 +90,19 @@ class RunLock:
         self.release()
 
 
+def _holder(fh: IO[str], wait_s: float = 1.0) -> str:
+    """The holder as written in the lock file. The holder takes the lock first and writes
+    its name just after: read again for up to ``wait_s`` while the file is still empty or
+    half-written (a second resume started at the same instant read it empty now and then)."""
+    deadline = time.monotonic() + wait_s
+    while True:
+        fh.seek(0)
+        holder = _describe(fh.read())
+        if holder != UNKNOWN or time.monotonic() > deadline:
+            return holder
+        time.sleep(0.01)
+
+
 def _describe(text: str) -> str:
     """'pid 123 on host, since 2026-...: run' from the lock file's content."""
     try:
@@ -98,4 +112,4 @@ def _describe(text: str) -> str:
             f"{d.get('purpose', '?')}"
         )
     except (ValueError, KeyError, TypeError):
-        return "holder unknown"
+        return UNKNOWN
