@@ -19,7 +19,7 @@ import pandas as pd
 
 from rig.analysis.metrics import event_metrics
 from rig.analysis.stats import GROUP_KEYS, with_capture
-from rig.store.runfolder import read_journal, read_manifest, read_plan
+from rig.store.runfolder import iter_journal, read_manifest, read_plan
 from rig.store.schema import METRIC_COLUMNS
 from rig.store.waveform import load_waveform
 from rigbase.errors import RunFolderError
@@ -89,13 +89,32 @@ def find_setting(tree: Any, key: str) -> Any:
     return None
 
 
-def journal_frame(run_dir: str | Path, rows: list[dict[str, Any]] | None = None) -> pd.DataFrame:
+JOURNAL_CHUNK = 10_000  # journal rows turned into a table at a time (rows as dicts are bulky)
+
+
+def journal_frame(
+    run_dir: str | Path, rows: Iterable[dict[str, Any]] | None = None
+) -> pd.DataFrame:
     """The journal as a DataFrame, one row per event (last entry wins after a resume).
-    ``rows``: the journal as already read (read_journal), else it is read here."""
-    rows = read_journal(run_dir) if rows is None else rows
-    if not rows:
+    ``rows``: the journal as already read (read_journal, or any iterable of its rows), else
+    it is read here line by line. Rows become table chunks of JOURNAL_CHUNK at a time, so a
+    long journal is never held as a list of dicts (250 MB at 100,000 events)."""
+    rows = iter_journal(run_dir) if rows is None else rows
+    parts: list[pd.DataFrame] = []
+    chunk: list[dict[str, Any]] = []
+    for row in rows:
+        chunk.append(row)
+        if len(chunk) >= JOURNAL_CHUNK:
+            parts.append(pd.DataFrame(chunk))
+            chunk = []
+    if chunk:
+        parts.append(pd.DataFrame(chunk))
+    if not parts:
         raise RunFolderError(f"{Path(run_dir) / 'journal.jsonl'}: no events journalled")
-    df = pd.DataFrame(rows)
+    if len(parts) == 1:
+        df = parts[0]
+    else:  # a column that is all None in one chunk came out as objects there: infer again
+        df = pd.concat(parts, ignore_index=True, sort=False).infer_objects()
     missing = [c for c in ("event", "status", "file", "volts", "load_ohms") if c not in df]
     if missing:
         raise RunFolderError(f"{Path(run_dir) / 'journal.jsonl'}: rows lack {', '.join(missing)}")
@@ -259,14 +278,19 @@ def _metrics_table(
     reuse: pd.DataFrame | None,
 ) -> tuple[pd.DataFrame, int]:
     """:func:`compute_metrics` and the number of events whose waveform was analysed."""
-    from rig.analysis.incremental import DIGEST_COLUMN, journal_digests
+    from rig.analysis.incremental import DIGEST_COLUMN, journal_digest
 
     run_dir = Path(run_dir)
-    rows = read_journal(run_dir)
-    jr = with_capture(journal_frame(run_dir, rows))
-    digests = journal_digests(rows, run_dir)
+    digests: dict[int, str] = {}
+
+    def digested() -> Iterator[dict[str, Any]]:  # one pass: the table and each row's digest
+        for row in iter_journal(run_dir):
+            digests[int(row["event"])] = journal_digest(row, run_dir)  # the last row wins
+            yield row
+
+    jr = with_capture(journal_frame(run_dir, digested()))
     digest = np.array([digests[int(e)] for e in jr["event"]], dtype=object)
-    del rows, digests  # a dict per journal line: not kept while the waveforms are analysed
+    digests.clear()  # not kept while the waveforms are analysed
     volts = pd.to_numeric(jr["volts"], errors="coerce").to_numpy(float)
     if "supply_volts" in jr:
         readback = pd.to_numeric(jr["supply_volts"], errors="coerce").to_numpy(float)

@@ -36,6 +36,7 @@ __all__ = [
     "ANALYSIS_VERSION",
     "DIGEST_COLUMN",
     "code_fingerprint",
+    "journal_digest",
     "journal_digests",
     "metrics_options",
     "reusable_metrics",
@@ -145,14 +146,14 @@ def up_to_date(
     return metrics, groups, sd
 
 
-def _digest(row: dict[str, Any], run_dir: Path) -> str:
+def journal_digest(row: dict[str, Any], run_dir: str | Path) -> str:
     """Digest of one journal row (all its fields, key order aside). A captured row without a
     file checksum (never written so by this software) adds the file's size and time."""
     extra = ""
     f = row.get("file")
     if isinstance(f, str) and f and not row.get("sha256"):
         try:
-            st = (run_dir / f).stat()
+            st = (Path(run_dir) / f).stat()
             extra = f"{st.st_size}:{st.st_mtime_ns}"
         except OSError:
             extra = "missing"
@@ -165,7 +166,7 @@ def journal_digests(rows: list[dict[str, Any]], run_dir: str | Path) -> dict[int
     table after a resume)."""
     run_dir = Path(run_dir)
     last = {int(r["event"]): r for r in rows}
-    return {e: _digest(r, run_dir) for e, r in last.items()}
+    return {e: journal_digest(r, run_dir) for e, r in last.items()}
 
 
 def reusable_metrics(

@@ -26,6 +26,7 @@ import logging
 import os
 import re
 import shutil
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -41,6 +42,7 @@ __all__ = [
     "RunWriter",
     "Verification",
     "new_run_id",
+    "iter_journal",
     "read_journal",
     "read_manifest",
     "read_plan",
@@ -97,36 +99,40 @@ def _event_number(value: Any, where: str) -> int:
 
 
 def read_journal(run_dir: str | Path) -> list[dict[str, Any]]:
-    """Finished events in the order they were journalled.
+    """Finished events in the order they were journalled (all of :func:`iter_journal`)."""
+    return list(iter_journal(run_dir))
+
+
+def iter_journal(run_dir: str | Path) -> Iterator[dict[str, Any]]:
+    """Finished events in the order they were journalled, one row at a time (the file is read
+    line by line: a 100,000-event journal held as a list of rows took 250 MB).
 
     A last line without its newline (the event in flight when the process died) is ignored;
     a complete line that is not JSON is corruption and raises RunFolderError naming the line.
     """
     path = Path(run_dir) / JOURNAL
     if not path.exists():
-        return []
-    data = path.read_bytes()
-    lines = data.split(b"\n")
-    complete = lines[:-1]  # the piece after the last newline is partial (or empty)
-    rows = []
-    for lineno, raw in enumerate(complete, start=1):
-        if not raw.strip():
-            continue
-        try:
-            row = json.loads(raw)
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            msg = getattr(exc, "msg", None) or "not UTF-8"
-            raise RunFolderError(f"{path}:{lineno}: journal line is not JSON ({msg})") from None
-        if not isinstance(row, dict):
-            raise RunFolderError(
-                f"{path}:{lineno}: journal line is a JSON {type(row).__name__}, not an object"
-            )
-        _event_number(row.get("event"), f"{path}:{lineno}")
-        f = row.get("file")
-        if f is not None and not (isinstance(f, str) and _SAFE_REL.fullmatch(f)):
-            raise RunFolderError(f"{path}:{lineno}: 'file' {f!r} is not a waveforms/ file name")
-        rows.append(row)
-    return rows
+        return
+    with open(path, "rb") as fh:
+        for lineno, raw in enumerate(fh, start=1):
+            if not raw.endswith(b"\n"):
+                return  # the partial last line
+            if not raw.strip():
+                continue
+            try:
+                row = json.loads(raw)
+            except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+                msg = getattr(exc, "msg", None) or "not UTF-8"
+                raise RunFolderError(f"{path}:{lineno}: journal line is not JSON ({msg})") from None
+            if not isinstance(row, dict):
+                raise RunFolderError(
+                    f"{path}:{lineno}: journal line is a JSON {type(row).__name__}, not an object"
+                )
+            _event_number(row.get("event"), f"{path}:{lineno}")
+            f = row.get("file")
+            if f is not None and not (isinstance(f, str) and _SAFE_REL.fullmatch(f)):
+                raise RunFolderError(f"{path}:{lineno}: 'file' {f!r} is not a waveforms/ file name")
+            yield row
 
 
 # a journalled waveform name: inside waveforms/, no way out of the run folder
