@@ -22,7 +22,6 @@ the next build rewrites. Runs not yet analysed are skipped and reported (run ``r
 
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -32,6 +31,7 @@ import pandas as pd
 
 from rig.analysis.stats import with_capture
 from rig.dataset.catalog import run_entry
+from rig.store.atomic import atomic_write
 from rig.store.runfolder import read_manifest
 from rig.store.schema import METRIC_COLUMNS
 from rig.store.waveform import sha256_file
@@ -119,14 +119,7 @@ def _events_frame(run_dir: Path, run_id: str) -> pd.DataFrame:
 
 
 def _write_atomic(frame: pd.DataFrame, path: Path) -> None:
-    tmp = path.with_name(path.name + ".tmp")
-    frame.to_parquet(tmp, index=False)
-    fd = os.open(tmp, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
-    os.replace(tmp, path)
+    atomic_write(path, lambda tmp: frame.to_parquet(tmp, index=False))
 
 
 def build_dataset(dataset: str | Path, run_dirs: list[str | Path]) -> BuildSummary:

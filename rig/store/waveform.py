@@ -29,13 +29,14 @@ so a reader never sees half a file.
 from __future__ import annotations
 
 import hashlib
-import os
 import zipfile
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
+from rig.store.atomic import atomic_write
 from rig.store.zarrwave import ZARR_SUFFIX, read_zarr_waveform, write_zarr_waveform
 from rigbase.errors import RunFolderError
 
@@ -96,24 +97,28 @@ def save_waveform(path: str | Path, wf: Waveform) -> str:
     if _format(path) == "zarr":
         write_zarr_waveform(path, wf)
         return sha256_file(path)
-    tmp = path.with_name(path.name + ".tmp")
-    with open(tmp, "wb") as fh:
-        np.savez(
-            fh,
-            codes=np.ascontiguousarray(wf.codes),
-            gain=np.asarray(wf.gain, dtype=np.float64),
-            offset=np.asarray(wf.offset, dtype=np.float64),
-            code_min=np.asarray(wf.code_min, dtype=np.int64),
-            code_max=np.asarray(wf.code_max, dtype=np.int64),
-            dt=np.float64(wf.dt),
-            t0=np.float64(wf.t0),
-            channels=np.asarray(wf.channels, dtype=str),
-            units=np.asarray(wf.units, dtype=str),
-        )
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
+
+    def write(tmp: Path) -> None:
+        with open(tmp, "wb") as fh:  # a file, not a name: savez would add ".npz" to a name
+            _savez(fh, wf)
+
+    atomic_write(path, write)
     return sha256_file(path)
+
+
+def _savez(fh: Any, wf: Waveform) -> None:
+    np.savez(
+        fh,
+        codes=np.ascontiguousarray(wf.codes),
+        gain=np.asarray(wf.gain, dtype=np.float64),
+        offset=np.asarray(wf.offset, dtype=np.float64),
+        code_min=np.asarray(wf.code_min, dtype=np.int64),
+        code_max=np.asarray(wf.code_max, dtype=np.int64),
+        dt=np.float64(wf.dt),
+        t0=np.float64(wf.t0),
+        channels=np.asarray(wf.channels, dtype=str),
+        units=np.asarray(wf.units, dtype=str),
+    )
 
 
 def load_waveform(path: str | Path, channels: tuple[str, ...] | None = None) -> Waveform:

@@ -26,12 +26,13 @@ zarr is imported on first use so commands that never touch waveforms start fast.
 from __future__ import annotations
 
 import json
-import os
 import zipfile
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
+
+from rig.store.atomic import atomic_write
 
 if TYPE_CHECKING:
     from rig.store.waveform import Waveform
@@ -44,7 +45,7 @@ _ATTRS = ("gain", "offset", "code_min", "code_max", "dt", "t0", "channels", "uni
 
 
 def write_zarr_waveform(path: Path, wf: Waveform) -> None:
-    """Write ``wf`` to ``path`` atomically (temporary name, fsync, rename)."""
+    """Write ``wf`` to ``path`` atomically (:func:`rig.store.atomic.atomic_write`)."""
     import zarr
     from zarr.codecs import BloscCodec
 
@@ -60,29 +61,30 @@ def write_zarr_waveform(path: Path, wf: Waveform) -> None:
         "channels": [str(s) for s in wf.channels],
         "units": [str(s) for s in wf.units],
     }
-    tmp = path.with_name(path.name + ".tmp")
-    tmp.unlink(missing_ok=True)  # a zip store refuses to overwrite a leftover from a crash
-    store = zarr.storage.ZipStore(tmp, mode="w")
-    try:
-        group = zarr.create_group(store, zarr_format=3, attributes=attrs)
-        arr = group.create_array(
-            "codes",
-            shape=codes.shape,
-            dtype=codes.dtype,
-            chunks=(1, max(1, codes.shape[1])),
-            compressors=[
-                BloscCodec(cname="zstd", clevel=1, shuffle="bitshuffle", typesize=codes.itemsize)
-            ],
-        )
-        arr[...] = codes
-    finally:
-        store.close()
-    fd = os.open(tmp, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
-    os.replace(tmp, path)
+
+    def write(tmp: Path) -> None:
+        tmp.unlink(missing_ok=True)  # a zip store refuses to overwrite a leftover from a crash
+        store = zarr.storage.ZipStore(tmp, mode="w")
+        try:
+            group = zarr.create_group(store, zarr_format=3, attributes=attrs)
+            arr = group.create_array(
+                "codes",
+                shape=codes.shape,
+                dtype=codes.dtype,
+                chunks=(1, max(1, codes.shape[1])),
+                compressors=[
+                    BloscCodec(
+                        cname="zstd", clevel=1, shuffle="bitshuffle", typesize=codes.itemsize
+                    )
+                ],
+            )
+            arr[...] = codes
+        finally:
+            store.close()
+
+    # the store's one atomic write: temporary name, fsync, rename, fsync the folder (the
+    # journal line that names this file must never outlive the file after a power cut)
+    atomic_write(path, write)
 
 
 def read_zarr_waveform(path: Path, channels: tuple[str, ...] | None = None) -> dict[str, Any]:
