@@ -7,10 +7,11 @@
 
 from __future__ import annotations
 
+import functools
 import logging
 import math
 from collections.abc import Iterable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, NamedTuple
 
@@ -21,6 +22,7 @@ from rig.analysis.metrics import event_metrics
 from rig.analysis.stats import GROUP_KEYS, with_capture
 from rig.store.runfolder import iter_journal, read_manifest, read_plan
 from rig.store.schema import METRIC_COLUMNS
+from rig.store.tables import read_parquet_table
 from rig.store.waveform import load_waveform
 from rigbase.errors import RunFolderError
 
@@ -48,9 +50,12 @@ BATCH_BYTES = 32 << 20
 
 @dataclass(frozen=True)
 class AnalysisResult:
-    """What :func:`analyze_run` computed and where it wrote it."""
+    """What :func:`analyze_run` computed and where it wrote it. ``metrics`` is the per-event
+    table, or, when analyze_run was called with ``table=False``, read from metrics.parquet
+    when first asked for (the table grows with the events; the commands need only the
+    group table)."""
 
-    metrics: pd.DataFrame
+    _metrics: pd.DataFrame | None = field(repr=False)
     groups: pd.DataFrame
     selfdischarge: pd.DataFrame | None
     metrics_path: Path
@@ -58,6 +63,15 @@ class AnalysisResult:
     selfdischarge_path: Path | None
     analysed: int = 0  # captured events whose waveform was read and analysed
     reused: int = 0  # events whose stored metrics were kept (journal row unchanged)
+
+    @property
+    def metrics(self) -> pd.DataFrame:
+        """The per-event table as written (journal plus metrics, one row per event)."""
+        if self._metrics is None:
+            from rig.store.tables import read_parquet_table
+
+            object.__setattr__(self, "_metrics", read_parquet_table(self.metrics_path))
+        return self._metrics
 
     @property
     def paths(self) -> dict[str, Path]:
@@ -145,19 +159,19 @@ class _Event(NamedTuple):
         return (self.codes.size, self.dt, pre, self.codes.dtype.str)
 
 
-def _waveform_files(run_dir: Path, jr: pd.DataFrame, todo: Iterable[int]) -> dict[int, Path]:
-    """{journal row: waveform path} of the captured events ``todo``; every name checked
-    before any file is read."""
-    out = {}
-    for i in todo:
-        rel = jr.at[i, "file"]
-        if not isinstance(rel, str) or not rel:
-            raise RunFolderError(
-                f"{run_dir / 'journal.jsonl'}: event {jr.at[i, 'event']} "
-                "is captured but names no waveform file"
-            )
-        out[i] = run_dir / rel
-    return out
+def _waveform_files(run_dir: Path, jr: pd.DataFrame, todo: pd.Index) -> pd.Series:
+    """The waveform file names (relative to the run folder) of the captured events ``todo``
+    (journal rows), by journal row; every name checked before any file is read. A column of
+    the table, not a dict of paths: 3 MB at 100,000 events instead of 25."""
+    names = jr["file"].loc[todo]
+    ok = np.array([isinstance(n, str) and bool(n) for n in names], dtype=bool)
+    if not ok.all():
+        first = todo[np.flatnonzero(~ok)[0]]
+        raise RunFolderError(
+            f"{run_dir / 'journal.jsonl'}: event {jr.at[first, 'event']} "
+            "is captured but names no waveform file"
+        )
+    return names
 
 
 def _read_event(i: int, path: Path, channel: str) -> _Event:
@@ -184,20 +198,15 @@ def _read_event(i: int, path: Path, channel: str) -> _Event:
 
 
 def _batches(
-    run_dir: Path,
-    jr: pd.DataFrame,
-    todo: Iterable[int],
-    channel: str,
-    batch: int,
-    batch_bytes: int,
+    run_dir: Path, files: pd.Series, channel: str, batch: int, batch_bytes: int
 ) -> Iterator[list[_Event]]:
-    """The captured events ``todo`` (journal rows), read one file at a time and yielded in
-    lists of one record shape; at most ``batch`` events or about ``batch_bytes`` of codes
-    are held at once, whatever the number of events."""
+    """The captured events ``files`` (waveform file names by journal row), read one file at
+    a time and yielded in lists of one record shape; at most ``batch`` events or about
+    ``batch_bytes`` of codes are held at once, whatever the number of events."""
     pending: list[_Event] = []
     size = 0
-    for i, path in _waveform_files(run_dir, jr, todo).items():
-        ev = _read_event(i, path, channel)
+    for i, rel in files.items():
+        ev = _read_event(int(i), run_dir / rel, channel)
         pending.append(ev)
         size += ev.codes.nbytes
         if len(pending) >= batch or size >= batch_bytes:
@@ -289,7 +298,9 @@ def _metrics_table(
             yield row
 
     jr = with_capture(journal_frame(run_dir, digested()))
-    digest = np.array([digests[int(e)] for e in jr["event"]], dtype=object)
+    events = jr["event"].to_numpy(np.int64)
+    # 32 ASCII bytes a row (a column of str objects is 2-3 times that); str again at the end
+    digest = np.array([digests[int(e)] for e in events], dtype="S32")
     digests.clear()  # not kept while the waveforms are analysed
     volts = pd.to_numeric(jr["volts"], errors="coerce").to_numpy(float)
     if "supply_volts" in jr:
@@ -302,38 +313,46 @@ def _metrics_table(
     res = _empty_results(len(jr))
     fresh = np.ones(len(jr), dtype=bool)
     if reuse is not None and len(reuse):
-        pos = reuse.index.get_indexer(jr["event"].astype(np.int64).to_numpy())
+        pos = reuse.index.get_indexer(events)
         have = np.flatnonzero(pos >= 0)
-        stored = reuse[DIGEST_COLUMN].to_numpy(object)[pos[have]]
-        same = have[np.asarray(stored == digest[have], dtype=bool)]
+        stored = reuse[DIGEST_COLUMN].to_numpy(object)[pos[have]].astype("S32")
+        same = have[stored == digest[have]]
         for k in res:
             res[k][same] = reuse[k].to_numpy()[pos[same]]
         fresh[same] = False
+    del reuse  # copied into res; the caller holds no other reference
     todo = jr.index[fresh & (jr["status"] == "captured").to_numpy()]
-    for events in _batches(run_dir, jr, todo, channel, batch, batch_bytes):
-        ix = np.array([ev.index for ev in events])
-        v_in = np.array([ev.v_in for ev in events])
+    files = _waveform_files(run_dir, jr, todo)
+    # the journal table is not held while the waveforms are analysed (at 100,000 events it
+    # is 36 MB, more than a batch's codes): it is read again below, unchanged under the lock
+    del jr
+    for batch_events in _batches(run_dir, files, channel, batch, batch_bytes):
+        ix = np.array([ev.index for ev in batch_events])
+        v_in = np.array([ev.v_in for ev in batch_events])
         volts[ix] = np.where(np.isfinite(v_in), v_in, volts[ix])
         part = event_metrics(
-            np.stack([ev.codes for ev in events]),
-            dt=events[0].dt,
-            t0=np.array([ev.t0 for ev in events]),
-            gain=np.array([ev.gain for ev in events]),
-            offset=np.array([ev.offset for ev in events]),
-            code_min=np.array([ev.code_min for ev in events]),
-            code_max=np.array([ev.code_max for ev in events]),
+            np.stack([ev.codes for ev in batch_events]),
+            dt=batch_events[0].dt,
+            t0=np.array([ev.t0 for ev in batch_events]),
+            gain=np.array([ev.gain for ev in batch_events]),
+            offset=np.array([ev.offset for ev in batch_events]),
+            code_min=np.array([ev.code_min for ev in batch_events]),
+            code_max=np.array([ev.code_max for ev in batch_events]),
             charge_volts=volts[ix],
             load_ohms=ohms[ix],
         )
         for k in METRIC_COLUMNS:
             res[k][ix] = part[k]
         res["flag_not_captured"][ix] = False
-        res["dt_s"][ix] = events[0].dt
-        res["record_s"][ix] = events[0].codes.size * events[0].dt
-    out = jr.copy()
-    for k, v in res.items():
-        out[k] = v
-    out[DIGEST_COLUMN] = digest
+        res["dt_s"][ix] = batch_events[0].dt
+        res["record_s"][ix] = batch_events[0].codes.size * batch_events[0].dt
+    jr = with_capture(journal_frame(run_dir))
+    if not np.array_equal(jr["event"].to_numpy(np.int64), events):
+        raise RunFolderError(f"{run_dir / 'journal.jsonl'}: changed while it was analysed")
+    res[DIGEST_COLUMN] = digest.astype(str)
+    # columns side by side, none copied (a column assigned into a table is copied: 28 MB
+    # more at 100,000 events)
+    out = pd.concat([jr, pd.DataFrame(res, index=jr.index, copy=False)], axis=1)
     log.info(
         "%s: analysed %s captured events, reused %s unchanged rows",
         run_dir,
@@ -436,6 +455,7 @@ def analyze_run(
     safe_residual_volts: float | None = None,
     seed: int = 0,
     full: bool = False,
+    table: bool = True,
 ) -> AnalysisResult:
     """Analyse a run folder; writes metrics.parquet, groups.csv and (delay sweeps only)
     selfdischarge.csv into it.
@@ -452,6 +472,8 @@ def analyze_run(
     safe_residual_volts: residual voltage counted as safe, V, for the self-discharge
         threshold; None: the manifest's ``safe_residual_volts``, else 60 V (IEC 61010-1).
     seed: seed of the bootstrap's random generator (results are reproducible).
+    table: hold the per-event table in the result (False: not held; ``result.metrics`` then
+        reads metrics.parquet as it is when asked for).
     """
     from rig.analysis.options import check_confidence, check_coverage
     from rig.analysis.selfdischarge import DEFAULT_SAFE_VOLTS, has_delay_sweep, self_discharge
@@ -470,20 +492,30 @@ def analyze_run(
     channel = "current"
     metrics_path = run_dir / "metrics.parquet"
     groups_path = run_dir / "groups.csv"
-    reuse = None
-    if not full:
-        from rig.analysis import incremental as inc
+    from rig.analysis import incremental as inc
 
+    if not full:
         opts = analysis_options(confidence, coverage, seed, safe_residual_volts)
         stored = inc.up_to_date(run_dir, {**opts, **inc.stats_options()}, channel)
         if stored is not None:  # nothing changed since: no file is read or written again
-            m, g, sd = stored
+            g, sd = stored
             log.info("%s: analysis up to date", run_dir)
+            m = read_parquet_table(metrics_path, columns=None if table else ["status"])
             n = int((m["status"] == "captured").sum())
             sd_path = run_dir / "selfdischarge.csv" if sd is not None else None
+            m = m if table else None
             return AnalysisResult(m, g, sd, metrics_path, groups_path, sd_path, 0, n)
-        reuse = inc.reusable_metrics(metrics_path, inc.metrics_options(channel), RESULT_SCHEMA)
-    metrics, analysed = _metrics_table(run_dir, channel, BATCH_EVENTS, BATCH_BYTES, reuse)
+    # the stored rows are passed without a name here, so that _metrics_table can free them
+    # once copied (they grow with the events)
+    metrics, analysed = _metrics_table(
+        run_dir,
+        channel,
+        BATCH_EVENTS,
+        BATCH_BYTES,
+        None
+        if full
+        else inc.reusable_metrics(metrics_path, inc.metrics_options(channel), RESULT_SCHEMA),
+    )
     try:
         plan = read_plan(run_dir)
     except RunFolderError:
@@ -493,7 +525,7 @@ def analyze_run(
     rng = np.random.default_rng(seed)
     groups = group_stats(metrics, plan, limits, confidence=confidence, coverage=coverage, rng=rng)
     # atomic: a process killed here leaves the previous tables, never a truncated one
-    atomic_write(metrics_path, lambda p: metrics.to_parquet(p, index=False))
+    atomic_write(metrics_path, functools.partial(metrics.to_parquet, index=False))
     atomic_write(groups_path, lambda p: groups.to_csv(p, index=False))
     sd, sd_path = None, None
     if has_delay_sweep(metrics):
@@ -511,7 +543,7 @@ def analyze_run(
     log.info("analysis of %s written", run_dir)
     n_captured = int((metrics["status"] == "captured").sum())
     return AnalysisResult(
-        metrics,
+        metrics if table else None,
         groups,
         sd,
         metrics_path,

@@ -110,13 +110,14 @@ def stats_options() -> dict[str, Any]:
 
 def up_to_date(
     run_dir: str | Path, options: dict[str, Any], channel: str
-) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame | None] | None:
-    """(metrics, groups, selfdischarge or None) as stored, when nothing has changed since
-    they were written: the journal, manifest and tables are the ones their sidecars record,
-    made by this code with ``options`` (those of groups.csv, :func:`stats_options`
-    included); else None (the caller analyses). Nothing is read from the waveforms."""
+) -> tuple[pd.DataFrame, pd.DataFrame | None] | None:
+    """(groups, selfdischarge or None) as stored, when nothing has changed since they were
+    written: the journal, manifest and tables are the ones their sidecars record, made by
+    this code with ``options`` (those of groups.csv, :func:`stats_options` included); else
+    None (the caller analyses). Nothing is read from the waveforms, and of metrics.parquet
+    only the columns that tell a delay sweep (the whole table grows with the events)."""
     from rig.analysis.provenance import mismatch, read_options
-    from rig.analysis.selfdischarge import has_delay_sweep
+    from rig.analysis.selfdischarge import SWEEP_KEYS, has_delay_sweep
     from rig.store.tables import read_csv_table, read_parquet_table
     from rig.store.waveform import sha256_file
     from rigbase.errors import RigError
@@ -134,7 +135,7 @@ def up_to_date(
             return None
         if mismatch(g_path, options, derived):
             return None
-        metrics = read_parquet_table(m_path)
+        metrics = read_parquet_table(m_path, columns=[*SWEEP_KEYS, "delay_s"])
         sweep = has_delay_sweep(metrics)
         if sweep != sd_path.exists() or (sweep and mismatch(sd_path, options, derived)):
             return None
@@ -143,7 +144,7 @@ def up_to_date(
     except (RigError, OSError, ValueError) as exc:
         log.info("%s: stored analysis not reused (%s)", run_dir, exc)
         return None
-    return metrics, groups, sd
+    return groups, sd
 
 
 def journal_digest(row: dict[str, Any], run_dir: str | Path) -> str:

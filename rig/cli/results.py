@@ -29,7 +29,9 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     confidence, coverage = check_confidence(args.confidence), check_coverage(args.coverage)
     _must_be_run(args.run)
     with RunLock(args.run, "analyze"):  # no run, resume or other analysis writes meanwhile
-        result = analyze_run(args.run, confidence=confidence, coverage=coverage, full=args.full)
+        result = analyze_run(
+            args.run, confidence=confidence, coverage=coverage, full=args.full, table=False
+        )
     _out(f"analysed {result.analysed} captured events, kept {result.reused} unchanged")
     for name, p in result.paths.items():
         _out(f"{name}: {p}")
@@ -164,7 +166,7 @@ def cmd_report(args: argparse.Namespace) -> int:
         if stale:  # recompute with the options the files were made with
             opts = recorded_analysis_options(run) if (run / "groups.csv").exists() else {}
             _out(f"analysing again: {stale}")
-            analyze_run(run, **opts)
+            analyze_run(run, **opts, table=False)
         from rig.report.certificate import write_certificate
 
         base = Path(args.baseline) if args.baseline else None

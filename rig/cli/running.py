@@ -164,7 +164,9 @@ def _analyse_and_report(run_dir: Path, baseline: Path | None) -> dict[str, int]:
     """Analyse, print the verdict counts, write the report and certificate; the counts."""
     from rig.analysis.analyze import analyze_run
 
-    result = analyze_run(run_dir)  # incremental: after a resume only the new events
+    # incremental: after a resume only the new events; the per-event table is not held
+    # through the report (which reads what it needs)
+    result = analyze_run(run_dir, table=False)
     _out(f"analysed {result.analysed} captured events, kept {result.reused} unchanged")
     for p in result.paths.values():
         _out(f"wrote {p}")

@@ -19,7 +19,7 @@ def _analyze(run_dir: str) -> str:
     """One run on a worker; returns the metrics file written."""
     from rig.analysis.analyze import analyze_run
 
-    return str(analyze_run(run_dir).metrics_path)
+    return str(analyze_run(run_dir, table=False).metrics_path)
 
 
 def analyze_runs(run_dirs: Sequence[str | Path], scheduler: str | None = None) -> list[Path]:

@@ -16,12 +16,17 @@ from rigbase.errors import RunFolderError
 __all__ = ["read_csv_table", "read_parquet_table"]
 
 
-def read_parquet_table(path: str | Path) -> Any:
-    """A parquet file as a pandas DataFrame; RunFolderError if it cannot be read."""
+def read_parquet_table(path: str | Path, columns: list[str] | None = None) -> Any:
+    """A parquet file as a pandas DataFrame; RunFolderError if it cannot be read.
+    ``columns``: read only those of them the file has (None: all)."""
     import pandas as pd
+    import pyarrow.parquet as pq
 
     try:
-        return pd.read_parquet(path)
+        if columns is not None:
+            have = set(pq.read_schema(path).names)
+            columns = [c for c in dict.fromkeys(columns) if c in have]
+        return pd.read_parquet(path, columns=columns)
     except FileNotFoundError:
         raise
     except Exception as exc:  # pyarrow raises several types (ArrowInvalid, OSError, ...)
