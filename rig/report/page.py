@@ -128,6 +128,12 @@ def _trend_charge_only(m, g, loads, modes, colours, rng, out) -> str:
     )
 
 
+def _rows(m: pd.DataFrame, sel: pd.Series) -> pd.DataFrame:
+    """The rows of ``m`` where ``sel``; ``m`` itself when that is all of them (a selection is
+    a copy, of a table that grows with the events)."""
+    return m if bool(sel.all()) else m[sel]
+
+
 def write_report(
     run_dir: str | Path,
     baseline_dir: str | Path | None = None,
@@ -166,7 +172,7 @@ def write_report(
     # Peaks (and pulses) from the capture with the finest sample interval, charges from the
     # one with the longest record (decided from dt_s and record_s, see capture_roles).
     peak_cap, charge_cap = capture_roles(m)
-    mp, mq = m[m["capture"] == peak_cap], m[m["capture"] == charge_cap]
+    mp, mq = _rows(m, m["capture"] == peak_cap), _rows(m, m["capture"] == charge_cap)
     g_trend = pd.concat(
         [
             g[(g["capture"] == peak_cap) & (g["metric"] != "charge_c")],

@@ -16,16 +16,20 @@ from rigbase.errors import RunFolderError
 __all__ = ["read_csv_table", "read_parquet_table"]
 
 
-def read_parquet_table(path: str | Path, columns: list[str] | None = None) -> Any:
+def read_parquet_table(
+    path: str | Path, columns: list[str] | None = None, exclude: tuple[str, ...] = ()
+) -> Any:
     """A parquet file as a pandas DataFrame; RunFolderError if it cannot be read.
-    ``columns``: read only those of them the file has (None: all)."""
+    ``columns``: read only those of them the file has (None: all); ``exclude``: columns not
+    read (a table that grows with the events is held only with the columns used)."""
     import pandas as pd
     import pyarrow.parquet as pq
 
     try:
-        if columns is not None:
-            have = set(pq.read_schema(path).names)
-            columns = [c for c in dict.fromkeys(columns) if c in have]
+        if columns is not None or exclude:
+            names = pq.read_schema(path).names
+            want = names if columns is None else [c for c in dict.fromkeys(columns) if c in names]
+            columns = [c for c in want if c not in exclude]
         return pd.read_parquet(path, columns=columns)
     except FileNotFoundError:
         raise
