@@ -211,3 +211,30 @@ def test_long_records_give_the_same_metrics_alone_or_in_a_batch():
     for name in METRIC_COLUMNS:
         got = np.concatenate([a[name] for a in alone])
         np.testing.assert_array_equal(got, whole[name], err_msg=name)
+
+
+def test_a_journal_that_grows_during_the_analysis_is_refused(tmp_path, monkeypatch):
+    # the journal table is read twice (before the waveforms, and again to be joined with the
+    # results); a run that wrote meanwhile (the lock prevents it) must not mismatch the two
+    run = make_run(tmp_path, "moving", rng=np.random.default_rng(35), reps=4)
+    rows = _journal(run)
+    _write_journal(run, rows[:-1])
+
+    def grow(p):
+        _write_journal(run, rows)
+        return load_waveform(p)
+
+    monkeypatch.setattr(analyze, "load_waveform", grow)
+    with pytest.raises(analyze.RunFolderError, match="changed while it was analysed"):
+        compute_metrics(run)
+
+
+def test_a_result_without_its_table_reads_the_one_written(tmp_path):
+    run = make_run(tmp_path, "lean", rng=np.random.default_rng(36), reps=4)
+    held = analyze_run(run)
+    lean = analyze_run(run, full=True, table=False)  # as the commands call it
+    assert lean._metrics is None
+    pd.testing.assert_frame_equal(lean.metrics, held.metrics, check_exact=True)
+    again = analyze_run(run, table=False)  # up to date: only the status column is read
+    assert again._metrics is None and again.reused == held.analysed
+    pd.testing.assert_frame_equal(again.metrics, held.metrics, check_exact=True)
