@@ -25,6 +25,7 @@ from rig.store.schema import METRIC_COLUMNS
 from rig.store.tables import read_parquet_table
 from rig.store.waveform import load_waveform
 from rigbase.errors import RunFolderError
+from rigbase.memory import release_freed_memory
 
 __all__ = [
     "METRIC_COLUMNS",
@@ -326,6 +327,7 @@ def _metrics_table(
     # the journal table is not held while the waveforms are analysed (at 100,000 events it
     # is 36 MB, more than a batch's codes): it is read again below, unchanged under the lock
     del jr
+    release_freed_memory()  # what the table's reading freed, before the batches' peak
     for batch_events in _batches(run_dir, files, channel, batch, batch_bytes):
         ix = np.array([ev.index for ev in batch_events])
         v_in = np.array([ev.v_in for ev in batch_events])

@@ -273,6 +273,9 @@ def _interrupted(exc: BaseException) -> int:
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``rig`` console script."""
+    from rigbase.memory import prefer_system_allocator
+
+    prefer_system_allocator()  # before pyarrow is imported: see rigbase.memory
     args = build_parser().parse_args(argv)
     level = (logging.WARNING, logging.INFO, logging.DEBUG)[min(args.verbose, 2)]
     logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
