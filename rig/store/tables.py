@@ -12,6 +12,7 @@ from pathlib import Path
 from typing import Any
 
 from rigbase.errors import RunFolderError
+from rigbase.memory import release_freed_memory
 
 __all__ = ["read_csv_table", "read_parquet_table"]
 
@@ -30,13 +31,15 @@ def read_parquet_table(
             names = pq.read_schema(path).names
             want = names if columns is None else [c for c in dict.fromkeys(columns) if c in names]
             columns = [c for c in want if c not in exclude]
-        return pd.read_parquet(path, columns=columns)
+        table = pd.read_parquet(path, columns=columns)
     except FileNotFoundError:
         raise
     except Exception as exc:  # pyarrow raises several types (ArrowInvalid, OSError, ...)
         raise RunFolderError(
             f"{path}: unreadable table ({_first_line(exc)}); re-run `rig analyze`"
         ) from None
+    release_freed_memory()  # the reader's buffers, as large as the table, are freed by now
+    return table
 
 
 def read_csv_table(path: str | Path, **kw: Any) -> Any:
