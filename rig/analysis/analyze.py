@@ -20,7 +20,7 @@ import pandas as pd
 
 from rig.analysis.metrics import event_metrics
 from rig.analysis.stats import GROUP_KEYS, with_capture
-from rig.store.runfolder import iter_journal, read_manifest, read_plan
+from rig.store.runfolder import iter_journal, iter_plan, read_manifest
 from rig.store.schema import METRIC_COLUMNS
 from rig.store.tables import read_parquet_table
 from rig.store.waveform import load_waveform
@@ -518,9 +518,9 @@ def analyze_run(
         if full
         else inc.reusable_metrics(metrics_path, inc.metrics_options(channel), RESULT_SCHEMA),
     )
-    try:
-        plan = read_plan(run_dir)
-    except RunFolderError:
+    if (run_dir / "plan.json").exists():
+        plan = iter_plan(run_dir)  # counted as it is read (the list grows with the events)
+    else:
         log.warning("%s: no plan.json; planned counts are taken from the journal", run_dir)
         plan = None
     limits = limits_from_manifest(manifest, source=run_dir / "manifest.json")

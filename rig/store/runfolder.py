@@ -45,6 +45,7 @@ __all__ = [
     "iter_journal",
     "read_journal",
     "read_manifest",
+    "iter_plan",
     "read_plan",
     "verify_run",
 ]
@@ -80,15 +81,70 @@ def read_manifest(run_dir: str | Path) -> dict[str, Any]:
 
 def read_plan(run_dir: str | Path) -> list[dict[str, Any]]:
     """The planned events, in order (RunFolderError naming the entry if one is malformed)."""
+    return list(iter_plan(run_dir))
+
+
+_PLAN_CHUNK = 1 << 20  # characters of plan.json decoded at a time
+
+
+def iter_plan(run_dir: str | Path) -> Iterator[dict[str, Any]]:
+    """The planned events one at a time, as :func:`read_plan` gives them (the same errors,
+    raised when reached). plan.json is decoded a megabyte at a time: at 100,000 events the
+    whole list is some 100 MB of dicts, which a count of the planned events does not need."""
     path = Path(run_dir) / PLAN
-    obj = _read_json(path, "no plan file")
-    if not isinstance(obj, list):
-        raise RunFolderError(f"{path}: expected a JSON list of events, found {type(obj).__name__}")
-    for i, p in enumerate(obj):
-        if not isinstance(p, dict) or not isinstance(p.get("key"), str):
-            raise RunFolderError(f"{path}: entry {i} is not an event object with a text 'key'")
-        _event_number(p.get("event", p.get("index")), f"{path}: entry {i}")
-    return obj
+    dec = json.JSONDecoder()
+    try:
+        f = path.open(encoding="utf-8")
+    except FileNotFoundError:
+        raise RunFolderError(f"{path}: no plan file") from None
+    with f:
+        buf, pos, i = "", 0, 0
+        eof = False
+
+        def skip() -> bool:  # past whitespace, reading on; False at the end of the file
+            nonlocal buf, pos, eof
+            while True:
+                while pos < len(buf) and buf[pos].isspace():
+                    pos += 1
+                if pos < len(buf) or eof:
+                    return pos < len(buf)
+                buf, pos = f.read(_PLAN_CHUNK), 0
+                eof = not buf
+
+        if not skip() or buf[pos] != "[":
+            found = "nothing" if pos >= len(buf) else repr(buf[pos])
+            raise RunFolderError(f"{path}: expected a JSON list of events, found {found}")
+        pos += 1
+        if skip() and buf[pos] == "]":
+            return
+        while skip():
+            try:
+                obj, end = dec.raw_decode(buf, pos)
+            except json.JSONDecodeError as exc:
+                more = "" if eof else f.read(_PLAN_CHUNK)
+                if not more:  # the entry is malformed, not cut by the chunk
+                    raise RunFolderError(f"{path}: not valid JSON ({exc.msg})") from None
+                buf, pos = buf[pos:] + more, 0
+                continue
+            if end == len(buf) and not eof:  # a number or name may go on in the next chunk
+                more = f.read(_PLAN_CHUNK)
+                if more:
+                    buf, pos = buf[pos:] + more, 0
+                    continue
+                eof = True
+            if not isinstance(obj, dict) or not isinstance(obj.get("key"), str):
+                raise RunFolderError(f"{path}: entry {i} is not an event object with a text 'key'")
+            _event_number(obj.get("event", obj.get("index")), f"{path}: entry {i}")
+            yield obj
+            pos, i = end, i + 1
+            if not skip():
+                break
+            if buf[pos] == "]":
+                return
+            if buf[pos] != ",":
+                raise RunFolderError(f"{path}: not valid JSON (expected ',' after entry {i - 1})")
+            pos += 1
+    raise RunFolderError(f"{path}: not valid JSON (the list of events is not closed)")
 
 
 def _event_number(value: Any, where: str) -> int:

@@ -205,3 +205,44 @@ def test_verify_finds_a_complete_run_with_missing_events(tmp_path):
     (run / "manifest.json").write_text(json.dumps({**m, "status": "complete"}))
     v = verify_run(run)
     assert any("status complete but 2 planned events are missing" in p for p in v.problems)
+
+
+@pytest.mark.parametrize("chunk", [1, 2, 7, 64, 1 << 20])
+def test_the_plan_read_in_pieces_is_the_plan_json_reads(tmp_path, chunk, monkeypatch):
+    # reference: the standard library's json.loads of the whole file; every cut of the file
+    # into pieces (a piece of one character included) must give the same entries
+    import rig.store.runfolder as rf
+
+    run = _run(tmp_path)
+    entries = [
+        {"event": i, "key": f"k{i}", "volts": 1e3 * i, "note": "a, ]b\\" + '"' * (i % 3)}
+        for i in range(40)
+    ]
+    (run / "plan.json").write_text(" \n[ " + " ,\n".join(json.dumps(e) for e in entries) + "] ")
+    monkeypatch.setattr(rf, "_PLAN_CHUNK", chunk)
+    assert read_plan(run) == json.loads((run / "plan.json").read_text()) == entries
+    (run / "plan.json").write_text("[]")
+    assert read_plan(run) == []
+
+
+@pytest.mark.parametrize(
+    ("content", "words"),
+    [
+        ('[{"event": 0, "key": "k"}', "not closed"),
+        ('[{"event": 0, "key": "k"}, {"event": 1, "key": ', "not valid JSON"),
+        ("", "found nothing"),
+        ('[{"event": 0, "key": "k"} {"event": 1}]', "expected ',' after entry 0"),
+        ('[{"event": 0, "key": "k"}, ]', "not valid JSON"),
+        ('[{"event": 0, "key": "k"}, {"event": 1}]', "entry 1 is not an event object"),
+    ],
+)
+def test_a_cut_or_broken_plan_is_one_error_naming_it(tmp_path, content, words, monkeypatch):
+    import rig.store.runfolder as rf
+
+    run = _run(tmp_path)
+    (run / "plan.json").write_text(content)
+    for chunk in (3, 1 << 20):
+        monkeypatch.setattr(rf, "_PLAN_CHUNK", chunk)
+        with pytest.raises(RunFolderError, match=words) as err:
+            read_plan(run)
+        assert "plan.json" in str(err.value)
