@@ -67,6 +67,7 @@ from rig.report.tables import _section_flagged, _section_groups, _section_tested
 from rig.store.atomic import atomic_write_text
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
+from rigbase.memory import release_freed_memory
 
 __all__ = ["FLAG_TEXT", "SECTIONS", "write_report"]
 
@@ -167,6 +168,7 @@ def write_report(
     body["caution"] = _CAUTION
     body["calibration"] = section_calibration(man)
     body["waveforms"] = _section_waveforms(run, m, modes, colours, out)
+    release_freed_memory()  # after each large section: its selections of the table are freed
     log.info("report %s: waveforms done after %.1f s", run.name, time.perf_counter() - t_start)
 
     # Peaks (and pulses) from the capture with the finest sample interval, charges from the
@@ -193,6 +195,7 @@ def write_report(
         body[key] = "".join(
             fn(fm, fg, ld, len(loads) > 1, modes, colours, rng, out) for ld in loads
         )
+        release_freed_memory()
     body["iec-charge"] = _IEC_NOTE + body["iec-charge"]
     if _several_captures(m) and fast_ok:
         p_text = esc(_capture_text(m, peak_cap))
@@ -251,4 +254,6 @@ def write_report(
     atomic_write_text(path, doc)  # a report killed half-way leaves the previous one whole
     _record_report(run, path, baseline_dir)
     log.info("report %s written in %.1f s", path, time.perf_counter() - t_start)
+    del m, mp, mq, frames  # the run's table, before the certificate reads it again
+    release_freed_memory()
     return path

@@ -22,6 +22,7 @@ from rig.report.data import (
     _capture_text,
     _load_metrics,
     _peak_metric,
+    _where,
 )
 from rig.report.html import _img, _slug, _table, esc
 from rig.report.tables import _compare_table
@@ -33,6 +34,13 @@ IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure (charged up to 15 
 
 
 MAX_WAVE_ROWS = 4  # (voltage, load) rows per waveform figure
+
+
+_WAVE_COLUMNS = ("status", "file", "meter", "mode", "capture", "volts", "load", "delay_s")
+
+
+def _narrow(m: pd.DataFrame) -> pd.DataFrame:
+    return m[[c for c in _WAVE_COLUMNS if c in m.columns]]
 
 
 def _wave_rows(
@@ -47,9 +55,12 @@ def _wave_rows(
     """Panels for one mode and capture (records of one capture share their timebase): one
     row per (voltage, load), highest voltages first. ``other_capture``: the baseline's
     capture to overlay (default: the same name)."""
+    # only the columns that pick the records: every selection below copies what it keeps
+    m = _narrow(m)
+    other = (other[0], _narrow(other[1])) if other is not None else None
     d = m[(m["mode"] == mode) & m["file"].notna()]
     if capture is not None:
-        d = d[d["capture"] == capture]
+        d = _where(d, d["capture"] == capture)
     d = _at_zero_delay(d)
     other_capture = other_capture if other_capture is not None else capture
     combos = sorted(d.groupby(["volts", "load"]).groups, key=lambda k: (-k[0], str(k[1])))
@@ -147,7 +158,7 @@ def _load_title(load: object, several: bool) -> tuple[str, str]:
 def _section_peaks(m, g, load, several, modes, colours, rng, out) -> str:
     head, sfx = _load_title(load, several)
     ml = _at_zero_delay(m)
-    ml = ml[ml["load"] == load]
+    ml = _where(ml, ml["load"] == load)
     fig = F.fig_strip(
         ml,
         "abs_peak_a",
@@ -190,9 +201,9 @@ def _section_trends(m, g, load, several, modes, colours, rng, out, peak: bool = 
 def _section_iec(m, g, load, several, modes, colours, rng, out) -> str:
     head, sfx = _load_title(load, several)
     ml = _at_zero_delay(m)
-    ml = ml[ml["load"] == load]
+    ml = _where(ml, ml["load"] == load)
     vmax = ml.groupby(["meter", "mode"])["volts"].transform("max")
-    fig = F.fig_iec_charge(ml[ml["volts"] == vmax], colours, rng, IEC61010_CHARGE_C)
+    fig = F.fig_iec_charge(_where(ml, ml["volts"] == vmax), colours, rng, IEC61010_CHARGE_C)
     return head + (
         _img(
             F.render(fig, f"iec-charge{sfx}", out),
