@@ -36,6 +36,7 @@ __all__ = [
     "TailFit",
     "fit_bins",
     "fit_tail_terms",
+    "refit_amplitudes",
     "log_bins",
 ]
 
@@ -288,6 +289,33 @@ def _tail(
     return TailFit(amps, taus, tail, tail_u, beyond, unmeasured)
 
 
+def refit_amplitudes(
+    a: np.ndarray,
+    b: np.ndarray,
+    y: np.ndarray,
+    s: np.ndarray,
+    end: float,
+    u_off: float,
+    n_int: float,
+    taus: np.ndarray,
+) -> TailFit | None:
+    """The tail with its time constants given (samples, slowest first; e.g. those of the
+    previous event of a group of repeated discharges): amplitudes and offset by one weighted
+    linear least-squares solve, the tail and its uncertainty as :func:`fit_bins` gives them.
+    None when those time constants do not describe these bins (reduced chi^2 above BAD_FIT,
+    a slowest term of the wrong sign, or one beyond this record's TAU_MAX_SPANS bound): then
+    only the full fit can say what the tail is."""
+    n, k = y.size, taus.size
+    if n <= 2 * k + 1 or (k and taus[0] > 0.99 * TAU_MAX_SPANS * float(b[-1])):
+        return None
+    u_off = max(float(u_off), 1e-12 * max(1.0, float(np.max(np.abs(y)))))
+    coef, chi = _solve(y, s, _basis(a, b, taus), u_off)
+    if k and coef[0] <= 0:
+        return None
+    fit = _tail(a, b, y, s, coef, taus, chi, end, u_off, n_int)
+    return None if fit.unmeasured else fit
+
+
 def fit_tail_terms(
     row: np.ndarray,
     base: float,
@@ -297,12 +325,15 @@ def fit_tail_terms(
     corr: float,
     u_base: float,
     n_int: float,
+    taus: np.ndarray | None = None,
 ) -> tuple[TailFit, int]:
     """Fit the tail of one record ``row`` (raw samples, baseline ``base`` with standard
     uncertainty ``u_base``, polarity ``pol``) from sample ``start`` to its end. ``sigma`` is
     the noise per sample and ``corr`` >= 1 the variance inflation of a long mean by the
     noise's correlation (from the baseline); ``n_int`` the samples the record integral
-    covers. Returns the fit (times in samples from ``start``; its ``tail`` includes the
+    covers. ``taus``: time constants (samples) to try first with only the amplitudes
+    refitted (:func:`refit_amplitudes`); the full fit runs when they do not describe the
+    record. Returns the fit (times in samples from ``start``; its ``tail`` includes the
     record integral's offset correction and ``tail_u`` the whole figure's uncertainty) and
     ``start``."""
     n = row.size
@@ -316,4 +347,8 @@ def fit_tail_terms(
     s = np.maximum(s, 1e-12 * max(1.0, float(np.max(np.abs(y)))))
     a = (edges[:-1] - start).astype(np.float64)
     b = (edges[1:] - start).astype(np.float64)
+    if taus is not None:
+        fit = refit_amplitudes(a, b, y, s, float(n - start), u_base, n_int, taus)
+        if fit is not None:
+            return fit, start
     return fit_bins(a, b, y, s, float(n - start), u_base, n_int), start
