@@ -154,7 +154,7 @@ def _polish(
     rhs = np.append(y / s, 0.0)
     a_col, b_col, w = a[:, None], b[:, None], (b - a)[:, None]
 
-    def evaluate(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def evaluate(x: np.ndarray) -> tuple[np.ndarray, tuple]:
         # _basis and its derivative in ln tau, d/d(ln tau) of the bin mean of exp(-t / tau)
         # = (tau (e_a - e_b) + a e_a - b e_b) / (b - a), sharing their exponentials
         tau = np.exp(x)[None, :]
@@ -163,18 +163,25 @@ def _polish(
         m = _design(diff / w, s, u_off)
         q, rr = np.linalg.qr(m)
         proj = q.T @ rhs
+        r = rhs - q @ proj
+        return r, (m, q, rr, proj, ea, eb, diff)
+
+    def jacobian(parts: tuple) -> np.ndarray:
+        # only for accepted steps that go on: two in five trial steps are rejected on
+        # their residual alone
+        m, q, rr, proj, ea, eb, diff = parts
         try:
             coef = np.linalg.solve(rr, proj)
         except np.linalg.LinAlgError:
             coef = np.linalg.lstsq(m, rhs, rcond=None)[0]
-        r = rhs - q @ proj
-        d = np.zeros((rhs.size, x.size))
-        d[:-1] = (diff + a_col * ea - b_col * eb) / w * coef[None, : x.size] / s[:, None]
-        jac = -(d - q @ (q.T @ d))
-        return r, jac
+        k = diff.shape[1]
+        d = np.zeros((rhs.size, k))
+        d[:-1] = (diff + a_col * ea - b_col * eb) / w * coef[None, :k] / s[:, None]
+        return -(d - q @ (q.T @ d))
 
     x = np.asarray(x0, dtype=float)
-    r, jac = evaluate(x)
+    r, parts = evaluate(x)
+    jac = jacobian(parts)
     cost = float(r @ r)
     lam = 1e-3
     for _ in range(max_iter):
@@ -191,16 +198,17 @@ def _polish(
         except np.linalg.LinAlgError:
             break
         x_new = np.minimum(np.maximum(x + step, lo), hi)
-        r_new, jac_new = evaluate(x_new)
+        r_new, parts = evaluate(x_new)
         cost_new = float(r_new @ r_new)
         if cost_new < cost:
             done = cost - cost_new <= 1e-10 * cost or float(np.max(np.abs(x_new - x))) < 1e-7
-            x, r, jac, cost = x_new, r_new, jac_new, cost_new
+            x, r, cost = x_new, r_new, cost_new
             lam = max(lam / 3.0, 1e-9)
             # two time constants merging: the model has become one term fewer, which the
             # information criterion has already weighed (two equal modes are no RC network's)
             if done or (x.size > 1 and float(np.min(np.diff(np.sort(x)))) < COLLAPSED):
                 break
+            jac = jacobian(parts)
         else:
             lam *= 4.0
             if lam > 1e8:
