@@ -111,6 +111,7 @@ def event_metrics(
     pulse_fraction: float = 0.25,
     chunk_bytes: int = 16 << 20,
     tail_fit: bool = True,
+    tail_taus: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
     """Metrics of every event (row) of ``data``; one 1-D array per name in METRIC_COLUMNS.
 
@@ -129,6 +130,10 @@ def event_metrics(
         display of a peak capture, which shows only the peak): ``charge_c`` is the record's
         integral, ``charge_tail_c`` and ``charge_u_c`` are NaN and ``flag_truncated`` is
         False because nobody judged it; the analysis always fits.
+    tail_taus: time constants, s (slowest first), tried first with only the tail's
+        amplitudes refitted; the full fit runs where they do not describe a record
+        (:func:`rig.analysis.wholecharge.refit_amplitudes`). For the live display of
+        repeated events; the analysis never passes them (None).
     """
     out = _metrics(
         data,
@@ -145,6 +150,7 @@ def event_metrics(
         pulse_fraction=pulse_fraction,
         chunk_bytes=chunk_bytes,
         tail_fit=tail_fit,
+        tail_taus=tail_taus,
     )
     del out["t_onset_s"], out["tail_start"]
     return out
@@ -200,6 +206,7 @@ def _metrics(
     pulse_fraction: float = 0.25,
     chunk_bytes: int = 16 << 20,
     tail_fit: bool = True,
+    tail_taus: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
     """:func:`event_metrics` plus ``t_onset_s`` (10 % point of the leading edge, s)."""
     data = np.asarray(data)
@@ -238,6 +245,7 @@ def _metrics(
     out["tail_terms"] = np.zeros(m, dtype=np.int64)
     out["tail_start"] = np.full(m, np.nan)
 
+    taus = None if tail_taus is None else np.asarray(tail_taus, dtype=np.float64) / dt
     work = np.float32 if (integer or data.dtype == np.float32) else np.float64
     rows_per_chunk = max(1, int(chunk_bytes // (n * np.dtype(work).itemsize)))
     for a in range(0, m, rows_per_chunk):
@@ -256,6 +264,7 @@ def _metrics(
             slice(a, b),
             trig_index=-t0_r[a:b] / dt,
             tail_fit=tail_fit,
+            taus=taus,
         )
 
     # Scale code units to amperes and derive the rest; all per event, cheap.
@@ -319,10 +328,11 @@ def _chunk(
     sl: slice,
     trig_index: np.ndarray,
     tail_fit: bool = True,
+    taus: np.ndarray | None = None,
 ) -> None:
     """Metrics of one chunk of rows in code units (samples for times), written into ``out``.
     ``trig_index``: the trigger's (fractional) sample index per row; ``tail_fit``: see
-    :func:`event_metrics`."""
+    :func:`event_metrics`; ``taus``: its ``tail_taus`` in samples."""
     r, n = raw.shape
     rows = np.arange(r)
     pre = raw[:, base_lo:base_hi]
@@ -372,7 +382,9 @@ def _chunk(
     out["flag_below_noise"][sl] = below
     if not ok.any():
         if tail_fit:
-            _whole_charge(raw, base, pol, noise, u_base, corr, p, trig_index, n_int, ok, out, sl)
+            _whole_charge(
+                raw, base, pol, noise, u_base, corr, p, trig_index, n_int, ok, out, sl, taus
+            )
         return
     out["polarity"][sl] = np.where(ok, pol, 0).astype(np.int8)
     out["abs_peak_a"][sl] = np.where(ok, ip, np.nan)
@@ -414,7 +426,9 @@ def _chunk(
             below = np.flatnonzero(y[i, after:] < floor[i])
             start[i] = after + int(below[0]) if below.size else after
     if tail_fit:
-        _whole_charge(raw, base, pol, noise, u_base, corr, start, trig_index, n_int, ok, out, sl)
+        _whole_charge(
+            raw, base, pol, noise, u_base, corr, start, trig_index, n_int, ok, out, sl, taus
+        )
     above, under = pulse_masks(raw, y, base, pol, thr_hi, thr_lo, integer)
     # an event whose peak clears the noise but not the upper threshold is one pulse
     out["pulses"][sl] = np.where(ok, np.maximum(count_pulses(above, under), 1), 0)
@@ -433,6 +447,7 @@ def _whole_charge(
     ok: np.ndarray,
     out: dict[str, np.ndarray],
     sl: slice,
+    taus: np.ndarray | None = None,
 ) -> None:
     """The tail beyond the record (rig.analysis.wholecharge), per event of the chunk, in
     code x samples: whole charge, its standard uncertainty, the fitted terms (charge from
@@ -454,7 +469,7 @@ def _whole_charge(
                 out["flag_truncated"][k] = True
             continue
         fit, start = fit_tail_terms(
-            raw[i], float(base[i]), float(pol[i]), start, noise[i], corr[i], u_base[i], n_int
+            raw[i], float(base[i]), float(pol[i]), start, noise[i], corr[i], u_base[i], n_int, taus
         )
         k = idx[i]
         if fit.unmeasured:
@@ -489,13 +504,18 @@ def _whole_charge(
 
 
 def quick_metrics(
-    wf: Waveform, channel: str = "current", *, tail_fit: bool = True
+    wf: Waveform,
+    channel: str = "current",
+    *,
+    tail_fit: bool = True,
+    tail_taus: np.ndarray | None = None,
 ) -> dict[str, Any]:
     """Metrics of one waveform as it is captured (live display): METRIC_COLUMNS values as
     Python scalars, ``abs_peak_a`` None below noise, and ``flagged`` (clipped, truncated or
     below noise). No charge voltage or load is known here, so c_equiv and energy are NaN.
     ``tail_fit=False``: no tail fit (see :func:`event_metrics`; a peak capture's live figure
-    is its peak, and the fit of its microsecond record cost 20 times the rest)."""
+    is its peak, and the fit of its microsecond record cost 20 times the rest).
+    ``tail_taus``: see :func:`event_metrics` (the previous event's time constants, s)."""
     k = wf.index(channel)
     res = event_metrics(
         wf.codes[k : k + 1],
@@ -506,6 +526,7 @@ def quick_metrics(
         code_min=wf.code_min[k],
         code_max=wf.code_max[k],
         tail_fit=tail_fit,
+        tail_taus=tail_taus,
     )
     out: dict[str, Any] = {name: v[0].item() for name, v in res.items()}
     if not np.isfinite(out["abs_peak_a"]):

@@ -36,6 +36,7 @@ __all__ = [
     "TailFit",
     "fit_bins",
     "fit_tail_terms",
+    "refit_amplitudes",
     "log_bins",
 ]
 
@@ -112,13 +113,6 @@ def _solve(y: np.ndarray, s: np.ndarray, phi: np.ndarray, u_off: float) -> tuple
     return coef, float(r @ r)
 
 
-def _dbasis(a: np.ndarray, b: np.ndarray, taus: np.ndarray) -> np.ndarray:
-    """d(bin mean of exp(-t / tau)) / d(ln tau) for each bin and time constant."""
-    tau = taus[None, :]
-    ea, eb = np.exp(-a[:, None] / tau), np.exp(-b[:, None] / tau)
-    return (tau * (ea - eb) + a[:, None] * ea - b[:, None] * eb) / (b - a)[:, None]
-
-
 def _grid_chis(
     a: np.ndarray, b: np.ndarray, y: np.ndarray, s: np.ndarray, trials: np.ndarray, u_off: float
 ) -> np.ndarray:
@@ -127,7 +121,11 @@ def _grid_chis(
     n = y.size
     k = trials.shape[1]
     m = np.zeros((trials.shape[0], n + 1, k + 1))
-    m[:, :n, :k] = np.stack([_basis(a, b, t) for t in trials]) / s[None, :, None]
+    # _basis of every trial at once (the same element-wise operations: the same numbers)
+    tau = trials[:, None, :]
+    a3, b3 = a[None, :, None], b[None, :, None]
+    phi = tau * (np.exp(-a3 / tau) - np.exp(-b3 / tau)) / (b3 - a3)
+    m[:, :n, :k] = phi / s[None, :, None]
     m[:, :n, k] = 1.0 / s
     m[:, n, k] = 1.0 / u_off
     rhs = np.append(y / s, 0.0)
@@ -154,45 +152,63 @@ def _polish(
     -(I - Q Q^T) dM/d(ln tau_j) c. A 1-3-parameter problem: a general trust-region solver
     spent four fifths of its time in its own bookkeeping here."""
     rhs = np.append(y / s, 0.0)
+    a_col, b_col, w = a[:, None], b[:, None], (b - a)[:, None]
 
-    def evaluate(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        taus = np.exp(x)
-        m = _design(_basis(a, b, taus), s, u_off)
+    def evaluate(x: np.ndarray) -> tuple[np.ndarray, tuple]:
+        # _basis and its derivative in ln tau, d/d(ln tau) of the bin mean of exp(-t / tau)
+        # = (tau (e_a - e_b) + a e_a - b e_b) / (b - a), sharing their exponentials
+        tau = np.exp(x)[None, :]
+        ea, eb = np.exp(-a_col / tau), np.exp(-b_col / tau)
+        diff = tau * (ea - eb)
+        m = _design(diff / w, s, u_off)
         q, rr = np.linalg.qr(m)
         proj = q.T @ rhs
+        r = rhs - q @ proj
+        return r, (m, q, rr, proj, ea, eb, diff)
+
+    def jacobian(parts: tuple) -> np.ndarray:
+        # only for accepted steps that go on: two in five trial steps are rejected on
+        # their residual alone
+        m, q, rr, proj, ea, eb, diff = parts
         try:
             coef = np.linalg.solve(rr, proj)
         except np.linalg.LinAlgError:
             coef = np.linalg.lstsq(m, rhs, rcond=None)[0]
-        r = rhs - q @ proj
-        d = np.zeros((rhs.size, x.size))
-        d[:-1] = _dbasis(a, b, taus) * coef[None, : x.size] / s[:, None]
-        jac = -(d - q @ (q.T @ d))
-        return r, jac
+        k = diff.shape[1]
+        d = np.zeros((rhs.size, k))
+        d[:-1] = (diff + a_col * ea - b_col * eb) / w * coef[None, :k] / s[:, None]
+        return -(d - q @ (q.T @ d))
 
     x = np.asarray(x0, dtype=float)
-    r, jac = evaluate(x)
+    r, parts = evaluate(x)
+    jac = jacobian(parts)
     cost = float(r @ r)
     lam = 1e-3
     for _ in range(max_iter):
+        # (the small-array forms of np.diag, np.trace and np.clip: the same numbers, without
+        # their call overhead, which on a 1-3-parameter problem was a tenth of the fit)
         g = jac.T @ r
         h = jac.T @ jac
-        scale = np.diag(h) + 1e-12 * max(1.0, float(np.trace(h)))
+        hd = h.diagonal()
+        scale = hd + 1e-12 * max(1.0, float(hd.sum()))
+        damped = h.copy()
+        damped.flat[:: x.size + 1] += lam * scale  # the diagonal
         try:
-            step = np.linalg.solve(h + lam * np.diag(scale), -g)
+            step = np.linalg.solve(damped, -g)
         except np.linalg.LinAlgError:
             break
-        x_new = np.clip(x + step, lo, hi)
-        r_new, jac_new = evaluate(x_new)
+        x_new = np.minimum(np.maximum(x + step, lo), hi)
+        r_new, parts = evaluate(x_new)
         cost_new = float(r_new @ r_new)
         if cost_new < cost:
             done = cost - cost_new <= 1e-10 * cost or float(np.max(np.abs(x_new - x))) < 1e-7
-            x, r, jac, cost = x_new, r_new, jac_new, cost_new
+            x, r, cost = x_new, r_new, cost_new
             lam = max(lam / 3.0, 1e-9)
             # two time constants merging: the model has become one term fewer, which the
             # information criterion has already weighed (two equal modes are no RC network's)
             if done or (x.size > 1 and float(np.min(np.diff(np.sort(x)))) < COLLAPSED):
                 break
+            jac = jacobian(parts)
         else:
             lam *= 4.0
             if lam > 1e8:
@@ -288,6 +304,33 @@ def _tail(
     return TailFit(amps, taus, tail, tail_u, beyond, unmeasured)
 
 
+def refit_amplitudes(
+    a: np.ndarray,
+    b: np.ndarray,
+    y: np.ndarray,
+    s: np.ndarray,
+    end: float,
+    u_off: float,
+    n_int: float,
+    taus: np.ndarray,
+) -> TailFit | None:
+    """The tail with its time constants given (samples, slowest first; e.g. those of the
+    previous event of a group of repeated discharges): amplitudes and offset by one weighted
+    linear least-squares solve, the tail and its uncertainty as :func:`fit_bins` gives them.
+    None when those time constants do not describe these bins (reduced chi^2 above BAD_FIT,
+    a slowest term of the wrong sign, or one beyond this record's TAU_MAX_SPANS bound): then
+    only the full fit can say what the tail is."""
+    n, k = y.size, taus.size
+    if n <= 2 * k + 1 or (k and taus[0] > 0.99 * TAU_MAX_SPANS * float(b[-1])):
+        return None
+    u_off = max(float(u_off), 1e-12 * max(1.0, float(np.max(np.abs(y)))))
+    coef, chi = _solve(y, s, _basis(a, b, taus), u_off)
+    if k and coef[0] <= 0:
+        return None
+    fit = _tail(a, b, y, s, coef, taus, chi, end, u_off, n_int)
+    return None if fit.unmeasured else fit
+
+
 def fit_tail_terms(
     row: np.ndarray,
     base: float,
@@ -297,12 +340,15 @@ def fit_tail_terms(
     corr: float,
     u_base: float,
     n_int: float,
+    taus: np.ndarray | None = None,
 ) -> tuple[TailFit, int]:
     """Fit the tail of one record ``row`` (raw samples, baseline ``base`` with standard
     uncertainty ``u_base``, polarity ``pol``) from sample ``start`` to its end. ``sigma`` is
     the noise per sample and ``corr`` >= 1 the variance inflation of a long mean by the
     noise's correlation (from the baseline); ``n_int`` the samples the record integral
-    covers. Returns the fit (times in samples from ``start``; its ``tail`` includes the
+    covers. ``taus``: time constants (samples) to try first with only the amplitudes
+    refitted (:func:`refit_amplitudes`); the full fit runs when they do not describe the
+    record. Returns the fit (times in samples from ``start``; its ``tail`` includes the
     record integral's offset correction and ``tail_u`` the whole figure's uncertainty) and
     ``start``."""
     n = row.size
@@ -316,4 +362,8 @@ def fit_tail_terms(
     s = np.maximum(s, 1e-12 * max(1.0, float(np.max(np.abs(y)))))
     a = (edges[:-1] - start).astype(np.float64)
     b = (edges[1:] - start).astype(np.float64)
+    if taus is not None:
+        fit = refit_amplitudes(a, b, y, s, float(n - start), u_base, n_int, taus)
+        if fit is not None:
+            return fit, start
     return fit_bins(a, b, y, s, float(n - start), u_base, n_int), start

@@ -1,7 +1,11 @@
 """Live display of a run: a progress bar with ETA and a small table per group.
 
 The numbers in the table come from the analysis module applied to each committed waveform
-(the runner itself computes no metrics). With ``quiet`` or without a terminal, one log line
+(the runner itself computes no metrics). A long capture's live charge is the whole charge,
+the record's integral plus the fitted tail; the events of a group repeat one discharge, so
+after its first event the tail's time constants are reused and only its amplitudes refitted
+(one linear solve instead of the nonlinear fit; the full fit runs again whenever they do not
+describe a record, rig.analysis.wholecharge.refit_amplitudes). With ``quiet`` or without a terminal, one log line
 per group change and per tenth of the plan is printed instead.
 """
 
@@ -13,6 +17,7 @@ from collections import OrderedDict
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
 from rich.console import Console, Group
 from rich.live import Live
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
@@ -64,14 +69,24 @@ class _GroupRow:
     values: RunningMedian = field(default_factory=RunningMedian)
     flags: int = 0
     last: float | None = None
+    taus: np.ndarray | None = None  # the tail's time constants, s, of the last fitted event
 
 
-def _event_figures(wf: Waveform, charge: bool) -> dict[str, Any]:
+def _event_figures(wf: Waveform, charge: bool, taus: np.ndarray | None = None) -> dict[str, Any]:
     """|Peak current|, charge and the analysis flag of one event (via rig.analysis.metrics);
-    the tail beyond the record is fitted only when the live figure is the ``charge``."""
+    the tail beyond the record is fitted only when the live figure is the ``charge``, trying
+    the time constants ``taus`` (s) first."""
     from rig.analysis.metrics import quick_metrics
 
-    return quick_metrics(wf, tail_fit=charge)
+    return quick_metrics(wf, tail_fit=charge, tail_taus=taus)
+
+
+def _tail_taus(m: dict[str, Any]) -> np.ndarray | None:
+    """The fitted tail's time constants, s, slowest first, from one event's metrics; None
+    when no tail was measured (unmeasured or not fitted: the next event fits afresh)."""
+    if not m["charge_tail_c"] == m["charge_tail_c"]:  # NaN
+        return None
+    return np.array([m[f"term{j}_tau_s"] for j in range(1, int(m["tail_terms"]) + 1)])
 
 
 class LiveDisplay(Observer):
@@ -146,7 +161,9 @@ class LiveDisplay(Observer):
             g.last = None
         else:
             charge = key[2] in self.charge_captures
-            m = _event_figures(waveform, charge)
+            m = _event_figures(waveform, charge, g.taus)
+            if charge:
+                g.taus = _tail_taus(m)
             g.flags += int(m["flagged"])
             value = m["charge_c"] if charge else m["abs_peak_a"]
             g.last = value

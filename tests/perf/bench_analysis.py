@@ -9,13 +9,23 @@ Prints, for 10,000 events x 20,000 int8 samples:
 - the peak memory of the metrics call traced by tracemalloc, against the raw data
   (target: raw data + working memory under twice the raw data).
 Options: --events, --samples for a smaller run.
+
+With --run RUN_FOLDER (e.g. one made by `rig demo`), it prints instead, for that run:
+- the wall and CPU time of `rig analyze RUN --full`'s metric step (compute_metrics), per
+  capture, and the share of it spent in the whole-charge tail fit;
+- the live display's cost per event (LiveDisplay.committed, quiet, in journal order), per
+  capture, with the tail's time constants reused within a group (as the run does) and
+  with the full fit on every event (as it did before), and the largest difference of the
+  live charge medians between the two.
 """
 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import time
 import tracemalloc
+from pathlib import Path
 
 import numpy as np
 from scipy.optimize import curve_fit
@@ -106,12 +116,85 @@ def naive(codes: np.ndarray) -> list[dict[str, float]]:
     return res
 
 
+def bench_run(run: Path) -> None:
+    """Figures of one run folder: the metric step per capture and the live display."""
+    import io
+    from types import SimpleNamespace
+
+    from rich.console import Console
+
+    from rig.analysis import wholecharge
+    from rig.analysis.analyze import compute_metrics
+    from rig.runner import display as live
+    from rig.store.waveform import load_waveform
+
+    fit_time = [0.0]
+    fit = wholecharge.fit_tail_terms
+
+    def timed_fit(*a: object, **k: object) -> object:
+        t = time.process_time()
+        try:
+            return fit(*a, **k)
+        finally:
+            fit_time[0] += time.process_time() - t
+
+    import rig.analysis.metrics as metrics_mod
+
+    metrics_mod.fit_tail_terms = timed_fit
+    w0, c0 = time.perf_counter(), time.process_time()
+    table = compute_metrics(run)
+    wall, cpu = time.perf_counter() - w0, time.process_time() - c0
+    metrics_mod.fit_tail_terms = fit
+    n = len(table)
+    print(f"run: {run.name}, {n} events")
+    print(
+        f"metric step (compute_metrics): {wall:.2f} s wall, {cpu:.2f} s CPU; "
+        f"tail fit {fit_time[0]:.2f} s CPU ({fit_time[0] / cpu:.0%})"
+    )
+
+    rows = table.sort_values("event")
+    captures = sorted(rows["capture"].astype(str).unique())
+    spans = rows.groupby("capture")["record_s"].median()
+    charge = frozenset({str(spans.idxmax())}) if len(captures) > 1 else frozenset()
+    events = [
+        (r, load_waveform(run / r["file"]))
+        for r in rows.to_dict("records")
+        if isinstance(r["file"], str) and r["file"]
+    ]
+    for label, reuse in (("time constants reused (now)", True), ("full fit every event", False)):
+        plan = SimpleNamespace(events=[None] * len(events))
+        console = Console(file=io.StringIO(), force_terminal=False)
+        disp = live.LiveDisplay(plan, quiet=True, console=console, charge_captures=charge)
+        per: dict[str, list[float]] = {c: [] for c in captures}
+        with disp, contextlib.redirect_stderr(io.StringIO()):  # its quiet log lines
+            for r, wf in events:
+                t = time.process_time()
+                disp.committed(r, wf)
+                per[str(r["capture"])].append(time.process_time() - t)
+                if not reuse:
+                    for g in disp.groups.values():
+                        g.taus = None
+        figures = ", ".join(f"{c} {np.mean(v) * 1e3:.2f} ms" for c, v in per.items())
+        every = np.mean([x for v in per.values() for x in v]) * 1e3
+        print(f"live display per event, {label}: {every:.2f} ms ({figures})")
+        medians = {k: g.values.median() for k, g in disp.groups.items() if k[2] in charge}
+        if reuse:
+            reused = medians
+        else:
+            worst = max((abs(reused[k] / v - 1.0) for k, v in medians.items() if v), default=0.0)
+            print(f"largest difference of a live charge median between the two: {worst:.1e}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--events", type=int, default=10_000)
     ap.add_argument("--samples", type=int, default=20_000)
     ap.add_argument("--naive-events", type=int, default=200)
+    ap.add_argument("--run", type=Path, default=None, help="a run folder: its own figures")
     args = ap.parse_args()
+    if args.run is not None:
+        bench_run(args.run)
+        return
     rng = np.random.default_rng(20261201)
     codes = make_events(args.events, args.samples, rng)
     raw_mb = codes.nbytes / 1e6
