@@ -154,7 +154,7 @@ def cmd_predict(args: argparse.Namespace) -> int:
 
 def cmd_report(args: argparse.Namespace) -> int:
     from rig.analysis.analyze import analysis_mismatch, analyze_run, recorded_analysis_options
-    from rig.report.page import write_report
+    from rig.report.documents import write_documents
     from rig.store.lock import RunLock
 
     run = Path(args.run)
@@ -165,9 +165,8 @@ def cmd_report(args: argparse.Namespace) -> int:
             opts = recorded_analysis_options(run) if (run / "groups.csv").exists() else {}
             _out(f"analysing again: {stale}")
             analyze_run(run, **opts)
-        from rig.report.certificate import write_certificate
-
         base = Path(args.baseline) if args.baseline else None
-        _out(f"report: {write_report(run, base)}")
-        _out(f"certificate: {write_certificate(run, base)}")
+        report, certificate = write_documents(run, base)  # drawn side by side
+        _out(f"report: {report}")
+        _out(f"certificate: {certificate}")
     return EXIT_OK

@@ -1,0 +1,141 @@
+"""Figures drawn side by side in worker processes: matplotlib draws on one core, and the
+report's figures do not depend on each other, so on a machine with several cores the slowest
+of them (the waveform figures, which also read every record) are drawn in forked workers
+while the report's own process draws the rest.
+
+:class:`FigurePool` runs module-level functions there and hands back a :class:`Job` per call.
+The workers are forked (so they start with matplotlib, pandas and the run's tables already
+imported and loaded, at no cost) and only when the platform forks and the process runs a
+single thread (forking a process with other threads can leave a lock held in the child);
+otherwise, or with ``workers=1``, each call runs at once in this process, exactly as a plain
+call would. A call that fails in a worker, or a worker that dies, is run again here: its
+error, if it has one, is then raised with its own type and one-line message, as without the
+pool. Workers ignore Ctrl-C (the report's process handles it) and exit on their own when that
+process dies, so none outlives it holding the run folder's lock.
+"""
+
+from __future__ import annotations
+
+import logging
+import multiprocessing
+import os
+import signal
+import threading
+import time
+from collections.abc import Callable, Iterable
+from concurrent.futures import Future, ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
+from typing import Any, Generic, TypeVar
+
+__all__ = ["MAX_WORKERS", "FigurePool", "Job", "default_workers", "joined"]
+
+log = logging.getLogger(__name__)
+
+T = TypeVar("T")
+
+MAX_WORKERS = 4  # a report has about 6-12 slow figures; more workers mostly add memory
+_WATCH_S = 0.5  # how often a worker checks that the report's process is still there, s
+
+
+def default_workers() -> int:
+    """Worker processes for this machine: its usable cores, at most :data:`MAX_WORKERS`
+    (1, no pool, on a single core)."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        cores = os.cpu_count() or 1
+    return max(1, min(cores, MAX_WORKERS))
+
+
+def _can_fork() -> bool:
+    return "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1
+
+
+def _watch_parent(parent: int) -> None:
+    """Exit this worker once the report's process has gone (it was killed): an orphan would
+    keep the run folder's lock file open."""
+    while os.getppid() == parent:
+        time.sleep(_WATCH_S)
+    os._exit(1)
+
+
+def _worker_start(parent: int) -> None:
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the report's process's to handle
+    threading.Thread(target=_watch_parent, args=(parent,), daemon=True).start()
+
+
+class Job(Generic[T]):
+    """One call given to a :class:`FigurePool`; :meth:`result` waits for its value."""
+
+    def __init__(
+        self,
+        fn: Callable[..., T],
+        args: tuple[Any, ...],
+        future: Future[T] | None = None,
+        value: T | None = None,
+    ) -> None:
+        self._fn, self._args, self._future, self._value = fn, args, future, value
+
+    def result(self) -> T:
+        """The call's value; a call that failed in a worker is made again here (so its error
+        is raised as a plain call raises it)."""
+        if self._future is None:
+            return self._value  # type: ignore[return-value]
+        future, self._future = self._future, None
+        try:
+            self._value = future.result()
+        except BrokenProcessPool as exc:
+            log.warning("report: a figure worker stopped (%s); drawing %s here", exc, self._name)
+            self._value = self._fn(*self._args)
+        except Exception:
+            self._value = self._fn(*self._args)
+        return self._value  # type: ignore[return-value]
+
+    @property
+    def _name(self) -> str:
+        return getattr(self._fn, "__name__", "the figure")
+
+
+class FigurePool:
+    """Runs calls in forked worker processes (see the module doc); use it as a context
+    manager, which waits for the workers to end. ``workers``: processes (default
+    :func:`default_workers`; 1 runs every call here, at once)."""
+
+    def __init__(self, workers: int | None = None) -> None:
+        n = default_workers() if workers is None else int(workers)
+        self.workers = n if n > 1 and _can_fork() else 1
+        self._ex: ProcessPoolExecutor | None = None
+        if self.workers > 1:
+            self._ex = ProcessPoolExecutor(
+                self.workers,
+                mp_context=multiprocessing.get_context("fork"),
+                initializer=_worker_start,
+                initargs=(os.getpid(),),
+            )
+
+    def submit(self, fn: Callable[..., T], *args: Any) -> Job[T]:
+        """``fn(*args)`` in a worker (``fn`` a module-level function, ``args`` picklable), or
+        here and now without workers."""
+        if self._ex is None:
+            return Job(fn, args, value=fn(*args))
+        try:
+            return Job(fn, args, future=self._ex.submit(fn, *args))
+        except BrokenProcessPool:  # a worker died already: the rest is drawn here
+            return Job(fn, args, value=fn(*args))
+
+    def close(self) -> None:
+        """Let the workers end (a job not started yet is dropped)."""
+        if self._ex is not None:
+            self._ex.shutdown(wait=True, cancel_futures=True)
+            self._ex = None
+
+    def __enter__(self) -> FigurePool:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+def joined(parts: Iterable[str | Job[str]]) -> str:
+    """The HTML of ``parts``, each a string or a job giving one, in their order."""
+    return "".join(p if isinstance(p, str) else p.result() for p in parts)
