@@ -18,7 +18,9 @@ overlays of both runs and the equivalence verdicts.
 Module layout: rig.report.data loads and shapes the run folder's tables; rig.report.html holds
 escaping, tables and the CSS; rig.report.glance builds "At a glance" and the verdicts;
 rig.report.tables the tabular sections; rig.report.plots the figure sections (drawn by
-rig.report.figures). This module orders the sections and writes the page.
+rig.report.figures). This module orders the sections and writes the page. Every figure is a
+job of a rig.report.workers pool (forked processes, one per core), drawn while the tables are
+made; the page is the same with or without workers.
 """
 
 from __future__ import annotations

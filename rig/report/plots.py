@@ -2,7 +2,9 @@
 
 Waveforms, |peak| per event, trends against voltage, charge against the IEC 61010-1 figure,
 contact bounce, self-discharge and the baseline overlays. Each builder writes its figure as
-PNG and SVG under ``figures/`` and returns the HTML with the PNG embedded. Peaks and pulses
+PNG and SVG under ``figures/`` and returns the HTML with the PNG embedded; the waveform and
+baseline sections, whose figures read every record, hand each figure to a
+:class:`rig.report.workers.FigurePool` and return their parts in order. Peaks and pulses
 come from the capture with the finest sample interval, charges from the one with the longest
 record (rig.report.page picks the frames).
 """
