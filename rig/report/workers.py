@@ -1,16 +1,17 @@
 """Figures drawn side by side in worker processes: matplotlib draws on one core, and the
-report's figures do not depend on each other, so on a machine with several cores the slowest
-of them (the waveform figures, which also read every record) are drawn in forked workers
-while the report's own process draws the rest.
+report's figures do not depend on each other, so on a machine with several cores they are
+drawn in forked workers (the slowest first: the waveform figures, which also read every
+record) while the report's own process makes the tables.
 
 :class:`FigurePool` runs module-level functions there and hands back a :class:`Job` per call.
 The workers are forked (so they start with matplotlib, pandas and the run's tables already
 imported and loaded, at no cost) and only when the platform forks and the process runs a
 single thread (forking a process with other threads can leave a lock held in the child);
 otherwise, or with ``workers=1``, each call runs at once in this process, exactly as a plain
-call would. A call that fails in a worker, or a worker that dies, is run again here: its
-error, if it has one, is then raised with its own type and one-line message, as without the
-pool. Workers ignore Ctrl-C (the report's process handles it) and exit on their own when that
+call would. A call that fails in a worker raises its error (own type, one-line message) from
+:meth:`Job.result`, as without the pool; a call whose worker died, or whose error cannot be
+sent back (an exception that does not unpickle), is run again here and raises as a plain call
+does. Workers ignore Ctrl-C (the report's process handles it) and exit on their own when that
 process dies, so none outlives it holding the run folder's lock. A worker collects its garbage
 once after each call instead of as it goes (the collector otherwise runs hundreds of times
 over the objects a figure makes, about a tenth of the drawing time), and never over what it
@@ -87,12 +88,17 @@ class Job(Generic[T]):
         args: tuple[Any, ...],
         future: Future[T] | None = None,
         value: T | None = None,
+        error: Exception | None = None,
     ) -> None:
         self._fn, self._args, self._future, self._value = fn, args, future, value
+        self._error = error
 
     def result(self) -> T:
-        """The call's value; a call that failed in a worker is made again here (so its error
-        is raised as a plain call raises it)."""
+        """The call's value, or its error raised here (with the worker's traceback as its
+        cause); a call whose worker died, or whose error could not be sent back, is made again
+        here (so it raises as a plain call does)."""
+        if self._error is not None:
+            raise self._error
         if self._future is None:
             return self._value  # type: ignore[return-value]
         future, self._future = self._future, None
@@ -100,8 +106,6 @@ class Job(Generic[T]):
             self._value = future.result()
         except BrokenProcessPool as exc:
             log.warning("report: a figure worker stopped (%s); drawing %s here", exc, self._name)
-            self._value = self._fn(*self._args)
-        except Exception:
             self._value = self._fn(*self._args)
         return self._value  # type: ignore[return-value]
 
@@ -129,13 +133,17 @@ class FigurePool:
 
     def submit(self, fn: Callable[..., T], *args: Any) -> Job[T]:
         """``fn(*args)`` in a worker (``fn`` a module-level function, ``args`` picklable), or
-        here and now without workers."""
-        if self._ex is None:
-            return Job(fn, args, value=fn(*args))
+        here and now without workers; its error, if any, is raised by :meth:`Job.result`
+        either way."""
+        if self._ex is not None:
+            try:
+                return Job(fn, args, future=self._ex.submit(_call, fn, *args))
+            except BrokenProcessPool:  # a worker died already: the rest is drawn here
+                pass
         try:
-            return Job(fn, args, future=self._ex.submit(_call, fn, *args))
-        except BrokenProcessPool:  # a worker died already: the rest is drawn here
             return Job(fn, args, value=fn(*args))
+        except Exception as exc:
+            return Job(fn, args, error=exc)
 
     def close(self) -> None:
         """Let the workers end (a job not started yet is dropped)."""

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import io
 import logging
+import multiprocessing
 import os
 import re
 import subprocess
@@ -28,13 +29,24 @@ from tests.report_fixtures import build_run
 ROOT = Path(__file__).resolve().parents[2]
 PARENT = os.getpid()
 
+# The pool forks only in a process without other threads, and the test session may hold some
+# (servers of the simulated bench): the checks that need workers run in a fresh interpreter.
+needs_fork = pytest.mark.skipif(
+    "fork" not in multiprocessing.get_all_start_methods(), reason="no fork on this platform"
+)
 
-def _forks() -> bool:
-    with FigurePool(2) as pool:
-        return pool.workers == 2
 
-
-needs_fork = pytest.mark.skipif(not _forks(), reason="no fork here (or threads running)")
+def _fresh(call: str) -> None:
+    """Run ``call`` (a function of this module with its arguments) in a new Python."""
+    code = f"import tests.unit.test_report_workers as t\nt.{call}\n"
+    out = subprocess.run(
+        [sys.executable, "-c", code],
+        cwd=ROOT,
+        env={**os.environ, "PYTHONPATH": str(ROOT)},
+        capture_output=True,
+        text=True,
+    )
+    assert out.returncode == 0, out.stderr[-4000:]
 
 
 @pytest.fixture(scope="module")
@@ -54,15 +66,19 @@ def _written(run: Path) -> tuple[str, dict[str, bytes]]:
     return page, {p.name: p.read_bytes() for p in sorted((run / "figures").iterdir())}
 
 
-@needs_fork
-def test_workers_write_the_same_page_and_figures_as_one_process(pair):
-    run, base = pair
+def _forks() -> None:
+    with FigurePool(2) as pool:
+        assert pool.workers == 2, "the pool did not fork"
+
+
+def check_same_page(run: str, base: str) -> None:
+    _forks()
     write_report(run, base, workers=1)
-    page_1, files_1 = _written(run)
-    for p in (run / "figures").iterdir():
+    page_1, files_1 = _written(Path(run))
+    for p in (Path(run) / "figures").iterdir():
         p.unlink()
     write_report(run, base, workers=2)
-    page_2, files_2 = _written(run)
+    page_2, files_2 = _written(Path(run))
     # every figure of the run: waveforms per mode and capture, baseline overlays, strip plots
     # (jittered by the seeded rng: the points must sit in the same places), trends, bounce,
     # self-discharge
@@ -74,14 +90,24 @@ def test_workers_write_the_same_page_and_figures_as_one_process(pair):
 
 
 @needs_fork
-def test_report_and_certificate_made_together_are_those_made_alone(pair):
-    run, _ = pair
+def test_workers_write_the_same_page_and_figures_as_one_process(pair):
+    run, base = pair
+    _fresh(f"check_same_page({str(run)!r}, {str(base)!r})")
+
+
+def check_documents(run: str) -> None:
+    _forks()
     report, certificate = write_documents(run, workers=2)
-    assert (report, certificate) == (run / "report.html", run / "certificate.pdf")
+    assert (report, certificate) == (Path(run) / "report.html", Path(run) / "certificate.pdf")
     assert certificate.read_bytes().startswith(b"%PDF-")  # PDF 1.7 (ISO 32000-1), 7.5.2
-    together = _written(run)
+    together = _written(Path(run))
     write_report(run, workers=1)
-    assert _written(run) == together
+    assert _written(Path(run)) == together
+
+
+@needs_fork
+def test_report_and_certificate_made_together_are_those_made_alone(pair):
+    _fresh(f"check_documents({str(pair[0])!r})")
 
 
 def _fails(kind: str) -> str:
@@ -91,34 +117,50 @@ def _fails(kind: str) -> str:
     raise FileFormatError("/runs/x/bench.toml", "scope.range", "must be a number")
 
 
+ERRORS = [
+    ("run folder", RunFolderError, "/runs/x/metrics.parquet [charge_c]: column missing"),
+    ("file format", FileFormatError, "/runs/x/bench.toml [scope.range]: must be a number"),
+]
+
+
+def check_errors(workers: int) -> None:
+    if workers > 1:
+        _forks()
+    for kind, error, text in ERRORS:
+        with FigurePool(workers) as pool:
+            job = pool.submit(_fails, kind)  # raises nothing yet
+            with pytest.raises(error) as got:
+                job.result()
+        assert str(got.value) == text and type(got.value) is error
+
+
+@needs_fork
+def test_an_error_in_a_worker_is_raised_as_without_workers():
+    check_errors(1)
+    _fresh("check_errors(2)")
+
+
 def _dies_in_a_worker(x: int) -> int:
     if os.getpid() != PARENT:
         os._exit(3)  # a worker killed (out of memory, say)
     return 2 * x
 
 
-@needs_fork
-@pytest.mark.parametrize(
-    ("kind", "error", "text"),
-    [
-        ("run folder", RunFolderError, "/runs/x/metrics.parquet [charge_c]: column missing"),
-        ("file format", FileFormatError, "/runs/x/bench.toml [scope.range]: must be a number"),
-    ],
-)
-def test_an_error_in_a_worker_is_raised_as_without_workers(kind, error, text):
+def check_dead_worker() -> None:
+    _forks()
+    seen: list[str] = []
+    handler = logging.Handler()
+    handler.emit = lambda record: seen.append(record.getMessage())  # type: ignore[method-assign]
+    logging.getLogger("rig.report.workers").addHandler(handler)
     with FigurePool(2) as pool:
-        job = pool.submit(_fails, kind)
-        with pytest.raises(error) as got:
-            job.result()
-    assert str(got.value) == text and type(got.value) is error
-
-
-@needs_fork
-def test_a_dead_worker_leaves_its_figure_to_this_process(caplog):
-    with caplog.at_level(logging.WARNING), FigurePool(2) as pool:
         jobs = [pool.submit(_dies_in_a_worker, k) for k in range(3)]
         assert [j.result() for j in jobs] == [0, 2, 4]
-    assert "figure worker stopped" in caplog.text
+    assert any("figure worker stopped" in m for m in seen), seen
+
+
+@needs_fork
+def test_a_dead_worker_leaves_its_figure_to_this_process():
+    _fresh("check_dead_worker()")
 
 
 def test_without_workers_each_call_runs_at_once_in_order():
