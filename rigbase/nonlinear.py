@@ -34,7 +34,6 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.integrate import solve_ivp
 
 from rigbase.graph import connected_groups
 
@@ -340,6 +339,10 @@ def integrate(
     ``method`` is a scipy ``solve_ivp`` method name (``Radau``, ``BDF`` or ``LSODA``).
     RuntimeError when the integrator fails.
     """
+    # scipy.integrate takes ~0.3 s to import; imported where used so that the modules that
+    # only name parts (loading a netlist, `rig report`) do not pay for it
+    from scipy.integrate import solve_ivp
+
     t = np.asarray(t, dtype=float)
     if t.size == 0:
         return np.zeros((len(x0), 0))
@@ -364,6 +367,8 @@ def integrate_dense(
 ):
     """The solution from ``x0`` at 0 to ``t_end`` (s) as a callable of time (scipy
     ``OdeSolution``: ``sol(t)`` gives states x len(t)), Radau with the exact Jacobian."""
+    from scipy.integrate import solve_ivp  # lazily: see integrate
+
     t_end = max(float(t_end), 1e-15)
     sol = solve_ivp(
         lambda _t, x: system.rhs(x),

@@ -26,7 +26,6 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from scipy import stats as sps
 
 from rig.analysis.stats import GROUP_KEYS, bootstrap_ci, capture_roles, with_capture
 from rig.store.atomic import atomic_write
@@ -99,6 +98,10 @@ def tost_log(run: np.ndarray, base: np.ndarray, tolerance: float = 0.10) -> floa
 
     Values must be positive; NaN with fewer than two values on either side.
     """
+    # scipy takes ~0.7 s to import; imported where used so that importing rig.analysis
+    # (as `rig report` does) does not pay for it
+    from scipy import stats as sps
+
     a, b = np.log(np.asarray(run, float)), np.log(np.asarray(base, float))
     if a.size < 2 or b.size < 2:
         return math.nan
@@ -125,6 +128,8 @@ def compare_samples(
 ) -> dict[str, float | str]:
     """Ratio of medians with its bootstrap interval, rank test, TOST and verdict for two
     samples of one metric (positive values; non-finite and non-positive ones are dropped)."""
+    from scipy import stats as sps  # lazily: see tost_log
+
     a = np.asarray(run, float)
     b = np.asarray(base, float)
     a, b = a[np.isfinite(a) & (a > 0)], b[np.isfinite(b) & (b > 0)]

@@ -29,7 +29,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy.optimize import least_squares
 
 from rig.analysis.runs import load_run, stack_waveforms
 from rig.analysis.sourcenet import FosterSource, linear_current, modes_at, response_modes
@@ -307,6 +306,10 @@ def _starts(v0: float, sets: list[DataSet], order: int) -> list[np.ndarray]:
 
 def fit_source(sets: list[DataSet], v0: float, max_order: int = MAX_ORDER) -> FosterSource:
     """Fit the source (see the module docstring); the data choose the branch count."""
+    # scipy.optimize takes ~0.3 s to import; imported here so that importing rig.analysis
+    # (as `rig report` does) does not pay for it
+    from scipy.optimize import least_squares
+
     n = sum(d.t.size for d in sets)
     best: tuple[float, Any, int] | None = None
     fits = {}

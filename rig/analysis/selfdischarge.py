@@ -26,8 +26,6 @@ import math
 
 import numpy as np
 import pandas as pd
-from scipy import stats as sps
-from scipy.optimize import brentq
 
 from rig.analysis.stats import GROUP_KEYS, with_capture
 
@@ -113,6 +111,11 @@ def delay_to_reach(
     ``threshold_c``: where the fitted line of log |Q|, and where its one-sided upper confidence
     bound for the mean response, cross log threshold (seconds; 0 when already below at delay 0,
     +inf when the fit does not exclude a charge that never decays; NaN without a fit)."""
+    # scipy takes ~0.7 s to import; imported where used so that importing rig.analysis
+    # (as `rig report` does) does not pay for it
+    from scipy import stats as sps
+    from scipy.optimize import brentq
+
     fit = _line(np.asarray(delay_s, float), np.abs(np.asarray(charge_c, float)))
     if fit is None or not (threshold_c > 0):
         return math.nan, math.nan
@@ -143,6 +146,8 @@ def fit_self_discharge(
     the slope reaches zero or above, the upper end of tau is +inf (no decay is excluded).
     Needs at least two distinct delays and three positive charges, else all NaN.
     """
+    from scipy import stats as sps  # lazily: see delay_to_reach
+
     d = np.asarray(delay_s, dtype=float)
     q = np.abs(np.asarray(charge_c, dtype=float))
     use = np.isfinite(d) & np.isfinite(q) & (q > 0)

@@ -37,7 +37,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import stats as sps
 
 from rig.store.schema import (  # re-exported: other modules import them here
     DEFAULT_CAPTURE,
@@ -138,6 +137,10 @@ MEDIAN_CI_METHODS = ("bootstrap", "order statistic")
 
 def tolerance_factor(n: int, coverage: float = 0.99, confidence: float = 0.95) -> float:
     """Exact one-sided normal tolerance factor k1 (noncentral t); NaN for n < 2."""
+    # scipy.stats takes ~0.7 s to import; imported where used so `rig report` (which needs
+    # none of it) does not pay for it
+    from scipy import stats as sps
+
     if n < 2:
         return math.nan
     zp = sps.norm.ppf(coverage)
@@ -146,6 +149,8 @@ def tolerance_factor(n: int, coverage: float = 0.99, confidence: float = 0.95) -
 
 def tolerance_factor_approx(n: int, coverage: float = 0.99, confidence: float = 0.95) -> float:
     """Approximate one-sided factor k1 = (z_p + sqrt(z_p^2 - a b)) / a (NIST 7.2.6.3)."""
+    from scipy import stats as sps  # lazily: see tolerance_factor
+
     if n < 2:
         return math.nan
     zp, zg = sps.norm.ppf(coverage), sps.norm.ppf(confidence)
@@ -212,6 +217,8 @@ def median_ci_ranks(n: int, confidence: float = 0.95) -> tuple[int, int] | None:
     probability P(r <= Y <= s - 1) = 1 - 2 P(Y <= r - 1) for a continuous distribution (at
     least that with ties). r is the largest rank with P(Y <= r - 1) <= (1 - confidence) / 2,
     s = n + 1 - r (the binomial(n, 1/2) is symmetric)."""
+    from scipy import stats as sps  # lazily: see tolerance_factor
+
     if n < 1:
         return None
     tail = (1.0 - confidence) / 2.0

@@ -29,9 +29,7 @@ def cmd_analyze(args: argparse.Namespace) -> int:
     confidence, coverage = check_confidence(args.confidence), check_coverage(args.coverage)
     _must_be_run(args.run)
     with RunLock(args.run, "analyze"):  # no run, resume or other analysis writes meanwhile
-        result = analyze_run(
-            args.run, confidence=confidence, coverage=coverage, full=args.full, table=False
-        )
+        result = analyze_run(args.run, confidence=confidence, coverage=coverage, full=args.full)
     _out(f"analysed {result.analysed} captured events, kept {result.reused} unchanged")
     for name, p in result.paths.items():
         _out(f"{name}: {p}")
@@ -156,7 +154,7 @@ def cmd_predict(args: argparse.Namespace) -> int:
 
 def cmd_report(args: argparse.Namespace) -> int:
     from rig.analysis.analyze import analysis_mismatch, analyze_run, recorded_analysis_options
-    from rig.report.page import write_report
+    from rig.report.documents import write_documents
     from rig.store.lock import RunLock
 
     run = Path(args.run)
@@ -167,9 +165,8 @@ def cmd_report(args: argparse.Namespace) -> int:
             opts = recorded_analysis_options(run) if (run / "groups.csv").exists() else {}
             _out(f"analysing again: {stale}")
             analyze_run(run, **opts, table=False)
-        from rig.report.certificate import write_certificate
-
         base = Path(args.baseline) if args.baseline else None
-        _out(f"report: {write_report(run, base)}")
-        _out(f"certificate: {write_certificate(run, base)}")
+        report, certificate = write_documents(run, base)  # drawn side by side
+        _out(f"report: {report}")
+        _out(f"certificate: {certificate}")
     return EXIT_OK

@@ -171,11 +171,11 @@ def _analyse_and_report(run_dir: Path, baseline: Path | None) -> dict[str, int]:
     for p in result.paths.values():
         _out(f"wrote {p}")
     counts = _print_verdicts(result.groups)
-    from rig.report.certificate import write_certificate
-    from rig.report.page import write_report
+    from rig.report.documents import write_documents
 
-    _out(f"report: {write_report(run_dir, baseline)}")
-    _out(f"certificate: {write_certificate(run_dir, baseline)}")
+    report, certificate = write_documents(run_dir, baseline)  # drawn side by side
+    _out(f"report: {report}")
+    _out(f"certificate: {certificate}")
     return counts
 
 

@@ -1,12 +1,14 @@
 """The self-contained HTML report of a run: its tables loaded from the run folder (`data`),
 the judgements at a glance (`glance`), the detail tables (`tables`), the figures (`figures`,
-`plots`), the HTML pieces and style (`html`), and the page assembly (`page`).
+`plots`), the HTML pieces and style (`html`), the page assembly (`page`), the figures drawn in
+worker processes (`workers`), and the report with the certificate made together (`documents`).
 """
 
 from rig.report.certificate import (
     CERTIFICATE,
     write_certificate,
 )
+from rig.report.documents import write_documents
 from rig.report.page import (
     FLAG_TEXT,
     SECTIONS,
@@ -18,5 +20,6 @@ __all__ = [
     "FLAG_TEXT",
     "SECTIONS",
     "write_certificate",
+    "write_documents",
     "write_report",
 ]

@@ -15,10 +15,9 @@ from __future__ import annotations
 import textwrap
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
-from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
 from rig import __version__
@@ -29,6 +28,9 @@ from rig.report.data import _at_zero_delay, _load_groups, _load_metrics, _peak_m
 from rig.report.html import _dict, _plain
 from rig.store.runfolder import read_manifest
 from rigbase.units import eng, metric_label, metric_unit
+
+if TYPE_CHECKING:
+    from matplotlib.backends.backend_pdf import PdfPages
 
 __all__ = ["CERTIFICATE", "write_certificate"]
 
@@ -228,6 +230,9 @@ def _compare_rows(run: Path, baseline: Path, meter: str) -> list[list[str]]:
 
 def write_certificate(run_dir: str | Path, baseline_dir: str | Path | None = None) -> Path:
     """Write ``<run_dir>/certificate.pdf``; returns its path (see the module docstring)."""
+    # the PDF backend (with fontTools) takes ~0.15 s to import: only when a certificate is made
+    from matplotlib.backends.backend_pdf import PdfPages
+
     run = Path(run_dir)
     man = read_manifest(run)
     m, g = _load_metrics(run), _load_groups(run)

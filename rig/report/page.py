@@ -18,7 +18,9 @@ overlays of both runs and the equivalence verdicts.
 Module layout: rig.report.data loads and shapes the run folder's tables; rig.report.html holds
 escaping, tables and the CSS; rig.report.glance builds "At a glance" and the verdicts;
 rig.report.tables the tabular sections; rig.report.plots the figure sections (drawn by
-rig.report.figures). This module orders the sections and writes the page.
+rig.report.figures). This module orders the sections and writes the page. Every figure is a
+job of a rig.report.workers pool (forked processes, one per core), drawn while the tables are
+made; the page is the same with or without workers.
 """
 
 from __future__ import annotations
@@ -49,6 +51,7 @@ from rig.report.data import (
     _load_metrics,
     _peak_metric,
     _several_captures,
+    _where,
 )
 from rig.report.glance import _limits_table, _section_glance, _section_verdicts
 from rig.report.html import _CSS, esc
@@ -64,6 +67,7 @@ from rig.report.plots import (
 )
 from rig.report.predicted import section_predicted
 from rig.report.tables import _section_flagged, _section_groups, _section_tested
+from rig.report.workers import FigurePool, joined
 from rig.store.atomic import atomic_write_text
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
@@ -129,73 +133,74 @@ def _trend_charge_only(m, g, loads, modes, colours, rng, out) -> str:
     )
 
 
-def _rows(m: pd.DataFrame, sel: pd.Series) -> pd.DataFrame:
-    """The rows of ``m`` where ``sel``; ``m`` itself when that is all of them (a selection is
-    a copy, of a table that grows with the events)."""
-    return m if bool(sel.all()) else m[sel]
+def _per_load(fn, m, g, loads, modes, colours, rng, out) -> str:
+    """One section's figures, one per load (most events first)."""
+    return "".join(fn(m, g, ld, len(loads) > 1, modes, colours, rng, out) for ld in loads)
 
 
-def write_report(
-    run_dir: str | Path,
-    baseline_dir: str | Path | None = None,
-    rng: np.random.Generator | None = None,
-) -> Path:
-    """Write ``<run_dir>/report.html`` and ``<run_dir>/figures/*.png|svg``; returns the HTML path.
+def _jittered(mp, mq, g, loads, modes, colours, rng, out, peaks: bool) -> tuple[str, str]:
+    """(|peak| per event, charge against 45 µC) HTML: the two figures whose points ``rng``
+    jitters, drawn in one job and in this order so the points sit where a drawing of the
+    sections one after the other puts them."""
+    p = _per_load(_section_peaks, mp, g, loads, modes, colours, rng, out) if peaks else ""
+    return p, _per_load(_section_iec, mq, g, loads, modes, colours, rng, out)
 
-    ``baseline_dir`` adds overlays against that run and its equivalence verdicts.
-    ``rng`` only places the jitter of strip plots (seeded by default, so reports are stable).
-    Raises RunFolderError when the run has no manifest or has not been analysed.
-    """
-    t_start = time.perf_counter()
-    run = Path(run_dir)
-    rng = rng if rng is not None else np.random.default_rng(0)
-    man = read_manifest(run)
-    stale = analysis_mismatch(run) if (run / "metrics.parquet").exists() else None
-    if stale:
-        raise RunFolderError(
-            f"{run}: {stale}; run `rig analyze {run}` (or `rig report`, which re-analyses) first"
-        )
-    m = _load_metrics(run)
-    g = _load_groups(run)
+
+def _sections(
+    run: Path,
+    man: dict,
+    m: pd.DataFrame,
+    g: pd.DataFrame,
+    baseline_dir: str | Path | None,
+    rng: np.random.Generator,
+    pool: FigurePool,
+) -> dict[str, str]:
+    """The HTML of every section by id (the page orders them as :data:`SECTIONS`). Every
+    figure is a job of ``pool``, the slowest (the waveforms, which read every record) first;
+    the tables are made here meanwhile."""
     out = run / FIGURES
     meters = list(dict.fromkeys(m["meter"]))
     colours = F.colour_map(meters)
     modes = list(dict.fromkeys(m["mode"]))
-    body: dict[str, str] = {}
-    body["tested"] = _section_tested(run, man, m)
-    body["glance"] = _section_glance(m, g)
-    body["verdicts"] = _section_verdicts(g) + _limits_table(man)
-    body["caution"] = _CAUTION
-    body["calibration"] = section_calibration(man)
-    body["waveforms"] = _section_waveforms(run, m, modes, colours, out)
-    release_freed_memory()  # after each large section: its selections of the table are freed
-    log.info("report %s: waveforms done after %.1f s", run.name, time.perf_counter() - t_start)
+    waves = _section_waveforms(run, m, modes, colours, out, pool)
+    overlays = None
+    if baseline_dir is not None:
+        overlays = _section_baseline(run, m, Path(baseline_dir), modes, colours, out, pool)
 
     # Peaks (and pulses) from the capture with the finest sample interval, charges from the
     # one with the longest record (decided from dt_s and record_s, see capture_roles).
     peak_cap, charge_cap = capture_roles(m)
-    mp, mq = _rows(m, m["capture"] == peak_cap), _rows(m, m["capture"] == charge_cap)
+    mp, mq = _where(m, m["capture"] == peak_cap), _where(m, m["capture"] == charge_cap)
     g_trend = pd.concat(
         [
             g[(g["capture"] == peak_cap) & (g["metric"] != "charge_c")],
             g[(g["capture"] == charge_cap) & (g["metric"] == "charge_c")],
         ]
     )
-    frames = {"peaks": (mp, g), "trends": (m, g_trend), "iec-charge": (mq, g)}
     loads = list(m["load"].value_counts().index)  # most events first
     fast_ok = "fast" in measures(m).get(peak_cap, {"fast"})
-    for key, fn in (
-        ("peaks", _section_peaks),
-        ("trends", _section_trends),
-        ("iec-charge", _section_iec),
-    ):
-        if not fast_ok and key != "iec-charge":
-            continue  # drawn below without the peak
-        fm, fg = frames[key]
-        body[key] = "".join(
-            fn(fm, fg, ld, len(loads) > 1, modes, colours, rng, out) for ld in loads
+    if fast_ok:
+        trends = pool.submit(
+            _per_load, _section_trends, m, g_trend, loads, modes, colours, rng, out
         )
-        release_freed_memory()
+    else:  # the charge only: no capture resolves the pulse
+        trends = pool.submit(_trend_charge_only, m, g_trend, loads, modes, colours, rng, out)
+    jittered = pool.submit(_jittered, mp, mq, g, loads, modes, colours, rng, out, fast_ok)
+    bounce = pool.submit(_section_bounce, mp, modes, colours, out) if fast_ok else None
+    selfdischarge = pool.submit(_section_selfdischarge, run, mq, colours, out, charge_cap)
+
+    body: dict[str, str] = {}
+    body["tested"] = _section_tested(run, man, m)
+    body["glance"] = _section_glance(m, g)
+    body["verdicts"] = _section_verdicts(g) + _limits_table(man)
+    body["caution"] = _CAUTION
+    body["calibration"] = section_calibration(man)
+    body["predicted"] = section_predicted(run, man)
+    body["flagged"] = _section_flagged(run, m, colours)
+    body["groups"] = _section_groups(g, m)
+
+    body["peaks"], body["iec-charge"] = jittered.result()
+    body["trends"] = trends.result()
     body["iec-charge"] = _IEC_NOTE + body["iec-charge"]
     if _several_captures(m) and fast_ok:
         p_text = esc(_capture_text(m, peak_cap))
@@ -212,8 +217,8 @@ def write_report(
             f"<p class='n'>From {q_text} (the longest record: the tail holds most of the "
             "charge).</p>" + body["iec-charge"]
         )
-    if fast_ok:
-        body["bounce"] = _section_bounce(mp, modes, colours, out)
+    if bounce is not None:
+        body["bounce"] = bounce.result()
     else:
         # no capture resolves the pulse: no peak or bounce figure from smoothed records
         why = (
@@ -223,13 +228,47 @@ def write_report(
             "measure the peak current and the contact bounce.</p>"
         )
         body["peaks"] = body["bounce"] = why
-        body["trends"] = _trend_charge_only(m, g_trend, loads, modes, colours, rng, out)
-    body["selfdischarge"] = _section_selfdischarge(run, mq, colours, out, charge_cap)
-    body["predicted"] = section_predicted(run, man)
-    body["flagged"] = _section_flagged(run, m, colours)
-    body["groups"] = _section_groups(g, m)
-    if baseline_dir is not None:
-        body["baseline"] = _section_baseline(run, m, Path(baseline_dir), modes, colours, out)
+    body["selfdischarge"] = selfdischarge.result()
+    body["waveforms"] = joined(waves)
+    if overlays is not None:
+        body["baseline"] = joined(overlays)
+    return body
+
+
+def write_report(
+    run_dir: str | Path,
+    baseline_dir: str | Path | None = None,
+    rng: np.random.Generator | None = None,
+    workers: int | None = None,
+    pool: FigurePool | None = None,
+) -> Path:
+    """Write ``<run_dir>/report.html`` and ``<run_dir>/figures/*.png|svg``; returns the HTML path.
+
+    ``baseline_dir`` adds overlays against that run and its equivalence verdicts.
+    ``rng`` only places the jitter of strip plots (seeded by default, so reports are stable).
+    ``workers``: processes drawing the waveform figures while this one draws the others
+    (default: one per core, see rig.report.workers; 1 draws everything here), or ``pool``:
+    workers already started (rig.report.documents shares them with the certificate). The page
+    is the same whatever their number.
+    Raises RunFolderError when the run has no manifest or has not been analysed.
+    """
+    t_start = time.perf_counter()
+    run = Path(run_dir)
+    rng = rng if rng is not None else np.random.default_rng(0)
+    man = read_manifest(run)
+    stale = analysis_mismatch(run) if (run / "metrics.parquet").exists() else None
+    if stale:
+        raise RunFolderError(
+            f"{run}: {stale}; run `rig analyze {run}` (or `rig report`, which re-analyses) first"
+        )
+    m = _load_metrics(run)
+    g = _load_groups(run)
+    if pool is not None:
+        body = _sections(run, man, m, g, baseline_dir, rng, pool)
+    else:
+        with FigurePool(workers) as own:
+            body = _sections(run, man, m, g, baseline_dir, rng, own)
+    log.info("report %s: sections done after %.1f s", run.name, time.perf_counter() - t_start)
 
     title = f"Discharge test report · {man.get('run_id') or run.name}"
     nav = " · ".join(f"<a href='#{sid}'>{esc(h)}</a>" for sid, h in SECTIONS if sid in body)
@@ -254,6 +293,6 @@ def write_report(
     atomic_write_text(path, doc)  # a report killed half-way leaves the previous one whole
     _record_report(run, path, baseline_dir)
     log.info("report %s written in %.1f s", path, time.perf_counter() - t_start)
-    del m, mp, mq, frames  # the run's table, before the certificate reads it again
+    del m, body  # the run's table, before the certificate reads it again
     release_freed_memory()
     return path

@@ -2,7 +2,9 @@
 
 Waveforms, |peak| per event, trends against voltage, charge against the IEC 61010-1 figure,
 contact bounce, self-discharge and the baseline overlays. Each builder writes its figure as
-PNG and SVG under ``figures/`` and returns the HTML with the PNG embedded. Peaks and pulses
+PNG and SVG under ``figures/`` and returns the HTML with the PNG embedded; the waveform and
+baseline sections, whose figures read every record, hand each figure to a
+:class:`rig.report.workers.FigurePool` and return their parts in order. Peaks and pulses
 come from the capture with the finest sample interval, charges from the one with the longest
 record (rig.report.page picks the frames).
 """
@@ -27,6 +29,7 @@ from rig.report.data import (
 from rig.report.html import _img, _slug, _table, esc
 from rig.report.tables import _compare_table
 from rig.report.wavebands import group_bands, open_group
+from rig.report.workers import FigurePool, Job
 from rig.store.runfolder import read_manifest
 from rigbase.units import eng
 
@@ -108,8 +111,13 @@ def _wave_rows(
     return rows
 
 
-def _section_waveforms(run: Path, m: pd.DataFrame, modes: list[str], colours, out: Path):
-    parts = [
+def _section_waveforms(
+    run: Path, m: pd.DataFrame, modes: list[str], colours, out: Path, pool: FigurePool
+) -> list[str | Job[str]]:
+    """The waveforms section as parts in order: text, and one job per (mode, capture) figure
+    given to ``pool`` (each reads its groups' records and draws; join with
+    :func:`rig.report.workers.joined`)."""
+    parts: list[str | Job[str]] = [
         "<p>Median current of each meter with the band holding 5 % to 95 % of the "
         "events at each instant. Left: linear time around the nanosecond peak. Right: "
         "logarithmic time and current, so the millisecond tail shows as well. "
@@ -126,28 +134,42 @@ def _section_waveforms(run: Path, m: pd.DataFrame, modes: list[str], colours, ou
     for mode in modes:
         head = f"<h3>{esc(mode)}</h3>"
         for capture in captures:
-            rows = _wave_rows(run, m, mode, colours, capture=capture)
-            what = f"{mode} · capture {capture}" if several else mode
-            if not rows:
-                parts.append(f"{head}<p>{esc(what)}: no captured waveform.</p>")
-                head = ""
-                continue
-            fast = "fast" in measures(m).get(capture, {"fast"})
-            fig = F.fig_waveforms(
-                rows,
-                f"Discharge current · {what}",
-                "peak (linear time)" if fast else "start, peak not resolved (linear time)",
-                "tail (log time)" if fast else "whole record: the tail (log time)",
+            parts.append(
+                pool.submit(_waveform_part, run, m, mode, capture, several, head, colours, out)
             )
-            sfx = f"-{_slug(capture)}" if several else ""
-            r = F.render(fig, f"waveforms-{_slug(mode)}{sfx}", out)
-            caption = f"Discharge current in mode {esc(mode)}" + (
-                f", {esc(_capture_text(m, capture))}. " if several else ". "
-            )
-            caption += esc(caption_note())
-            parts.append(head + _img(r, f"Discharge waveforms, {what}", caption))
             head = ""
-    return "".join(parts)
+    return parts
+
+
+def _waveform_part(
+    run: Path,
+    m: pd.DataFrame,
+    mode: str,
+    capture: str,
+    several: bool,
+    head: str,
+    colours: dict[str, str],
+    out: Path,
+) -> str:
+    """One (mode, capture) figure of the waveforms section as HTML, after ``head``."""
+    rows = _wave_rows(run, m, mode, colours, capture=capture)
+    what = f"{mode} · capture {capture}" if several else mode
+    if not rows:
+        return f"{head}<p>{esc(what)}: no captured waveform.</p>"
+    fast = "fast" in measures(m).get(capture, {"fast"})
+    fig = F.fig_waveforms(
+        rows,
+        f"Discharge current · {what}",
+        "peak (linear time)" if fast else "start, peak not resolved (linear time)",
+        "tail (log time)" if fast else "whole record: the tail (log time)",
+    )
+    sfx = f"-{_slug(capture)}" if several else ""
+    r = F.render(fig, f"waveforms-{_slug(mode)}{sfx}", out)
+    caption = f"Discharge current in mode {esc(mode)}" + (
+        f", {esc(_capture_text(m, capture))}. " if several else ". "
+    )
+    caption += esc(caption_note())
+    return head + _img(r, f"Discharge waveforms, {what}", caption)
 
 
 def _load_title(load: object, several: bool) -> tuple[str, str]:
@@ -316,11 +338,14 @@ def _sd_cross(r, charge: str | None, fit: str, upper: str) -> str:
 
 
 def _section_baseline(
-    run: Path, m: pd.DataFrame, base: Path, modes: list[str], colours, out
-) -> str:
+    run: Path, m: pd.DataFrame, base: Path, modes: list[str], colours, out, pool: FigurePool
+) -> list[str | Job[str]]:
+    """The baseline section as parts in order: text, one job per (mode, capture) overlay
+    given to ``pool``, and the equivalence table (join with
+    :func:`rig.report.workers.joined`)."""
     base_man = read_manifest(base)
     bm = _load_metrics(base)
-    parts = [
+    parts: list[str | Job[str]] = [
         f"<p>Baseline run: <b>{esc(base_man.get('run_id') or base.name)}</b>"
         f" ({esc(base_man.get('started') or '')}). Solid: this run; dashed: the "
         "baseline.</p>"
@@ -329,22 +354,53 @@ def _section_baseline(
     pairs = dict(zip(capture_roles(m), capture_roles(bm), strict=True))
     for mode in modes:
         for capture, base_capture in pairs.items():
-            rows = _wave_rows(
-                run, m, mode, colours, other=(base, bm), capture=capture, other_capture=base_capture
-            )
-            if not rows:
-                continue
             what = f"{mode} · capture {capture}" if len(pairs) > 1 else mode
-            fig = F.fig_waveforms(rows, f"This run against the baseline · {what}")
             sfx = f"-{_slug(capture)}" if len(pairs) > 1 else ""
-            r = F.render(fig, f"baseline-{_slug(mode)}{sfx}", out)
             parts.append(
-                _img(
-                    r,
-                    f"Baseline overlay, {what}",
-                    f"Mode {esc(mode)}, capture {esc(capture)}: this run (solid) and the "
-                    f"baseline's capture {esc(base_capture)} (dashed). {esc(caption_note())}",
+                pool.submit(
+                    _baseline_part,
+                    run,
+                    m,
+                    base,
+                    bm,
+                    mode,
+                    capture,
+                    base_capture,
+                    what,
+                    sfx,
+                    colours,
+                    out,
                 )
             )
     parts.append("<h3>Equivalence</h3>" + _compare_table(run, base, base_man))
-    return "".join(parts)
+    return parts
+
+
+def _baseline_part(
+    run: Path,
+    m: pd.DataFrame,
+    base: Path,
+    bm: pd.DataFrame,
+    mode: str,
+    capture: str,
+    base_capture: str,
+    what: str,
+    sfx: str,
+    colours: dict[str, str],
+    out: Path,
+) -> str:
+    """One (mode, capture) overlay of this run and the baseline as HTML ("" when the two
+    runs share no group of it)."""
+    rows = _wave_rows(
+        run, m, mode, colours, other=(base, bm), capture=capture, other_capture=base_capture
+    )
+    if not rows:
+        return ""
+    fig = F.fig_waveforms(rows, f"This run against the baseline · {what}")
+    r = F.render(fig, f"baseline-{_slug(mode)}{sfx}", out)
+    return _img(
+        r,
+        f"Baseline overlay, {what}",
+        f"Mode {esc(mode)}, capture {esc(capture)}: this run (solid) and the "
+        f"baseline's capture {esc(base_capture)} (dashed). {esc(caption_note())}",
+    )

@@ -20,6 +20,7 @@ from typing import Any
 import matplotlib
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.backends.backend_svg import FigureCanvasSVG
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
@@ -73,6 +74,11 @@ _STYLE: dict[str, Any] = {
     "axes.spines.top": False,
     "axes.spines.right": False,
     "axes.axisbelow": True,
+    # titles sit on the axes' top edge. Left to place themselves (None), every draw measures
+    # every y tick label of the axes to see whether an offset text ("1e3") above the axis
+    # overlaps the title: a quarter of a panel's drawing time, and none of these axes has one
+    # (their y axes start at 0, are logarithmic or carry unit-prefixed labels)
+    "axes.titley": 1.0,
     "axes.prop_cycle": matplotlib.cycler(color=SERIES),
     "grid.color": "#dddddd",
     "grid.linewidth": 0.6,
@@ -144,14 +150,18 @@ def render(fig: Figure, name: str, out_dir: str | Path) -> RenderedFigure:
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     with house_style():
+        # the canvases' own print methods rather than fig.savefig: savefig draws a figure with
+        # a layout engine twice, once without output to solve the layout (which the drawing
+        # then solves again), and the SVG once more without output; the pixels and the SVG
+        # are the same
         buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=DPI, metadata={"Software": None})
+        FigureCanvasAgg(fig).print_png(buf, metadata={"Software": None})
         png = buf.getvalue()
         # the layout is solved; keep it for the SVG instead of solving it again
         fig.set_layout_engine("none")
         _rasterize_dense(fig)
         sbuf = io.StringIO()
-        fig.savefig(sbuf, format="svg", dpi=DPI, metadata={"Creator": None, "Date": None})
+        FigureCanvasSVG(fig).print_svg(sbuf, metadata={"Creator": None, "Date": None})
         svg = sbuf.getvalue()
     png_path, svg_path = out / f"{name}.png", out / f"{name}.svg"
     png_path.write_bytes(png)
