@@ -10,7 +10,8 @@ factor (1 + 3 % x N(0, 1)) and fresh Gaussian noise of the record's own baseline
 written with the store's own writer (compressed record, journal line, fsync), so the folder
 is what ``rig run`` would leave. Each step then runs in a fresh process (``python -m
 rig.cli ...``) and reports its wall time and peak resident memory (``ru_maxrss`` of that
-process, threads included):
+process, threads included; "worker MB" is the largest of the worker processes it forked, such
+as the report's figure workers, which share the parent's pages until they write them):
 
 - ``rig analyze`` (metrics.parquet and groups.csv from nothing), then again with nothing new;
 - ``rig report`` (report.html, figures, certificate);
@@ -88,7 +89,8 @@ from rig.cli import main
 t = time.perf_counter()
 code = main(sys.argv[1:])
 print("BENCH " + json.dumps({"code": code, "s": time.perf_counter() - t,
-      "rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}))
+      "rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
+      "worker_rss_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024}))
 """
 
 
@@ -250,6 +252,7 @@ def main() -> None:
         for key, unit in (
             ("s", "s"),
             ("rss_mb", "MB"),
+            ("worker_rss_mb", "worker MB"),
             ("per_event_ms", "ms/event"),
             ("disk_mb", "MB"),
         ):
