@@ -10,6 +10,7 @@ from __future__ import annotations
 import functools
 import logging
 import math
+from collections import deque
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -26,6 +27,7 @@ from rig.store.tables import read_parquet_table
 from rig.store.waveform import load_waveform
 from rigbase.errors import RunFolderError
 from rigbase.memory import release_freed_memory
+from rigbase.workers import Job, WorkerPool
 
 __all__ = [
     "METRIC_COLUMNS",
@@ -216,6 +218,31 @@ def _batches(
     yield from _by_shape(pending)
 
 
+def _batch_metrics(
+    codes: np.ndarray,
+    dt: float,
+    t0: np.ndarray,
+    gain: np.ndarray,
+    offset: np.ndarray,
+    code_min: np.ndarray,
+    code_max: np.ndarray,
+    volts: np.ndarray,
+    ohms: np.ndarray,
+) -> dict[str, np.ndarray]:
+    """:func:`event_metrics` of one batch (a module-level call a worker process can make)."""
+    return event_metrics(
+        codes,
+        dt=dt,
+        t0=t0,
+        gain=gain,
+        offset=offset,
+        code_min=code_min,
+        code_max=code_max,
+        charge_volts=volts,
+        load_ohms=ohms,
+    )
+
+
 def _by_shape(pending: list[_Event]) -> Iterator[list[_Event]]:
     by_shape: dict[tuple, list[_Event]] = {}
     for ev in pending:
@@ -259,6 +286,7 @@ def compute_metrics(
     batch: int = BATCH_EVENTS,
     batch_bytes: int = BATCH_BYTES,
     reuse: pd.DataFrame | None = None,
+    workers: int | None = None,
 ) -> pd.DataFrame:
     """Journal columns plus the per-event metrics of a run folder, without writing anything.
 
@@ -275,9 +303,11 @@ def compute_metrics(
     events and about ``batch_bytes`` of codes (bytes; only the analysed channel is kept), so
     memory does not grow with the number of events. ``reuse``: stored rows from
     :func:`rig.analysis.incremental.reusable_metrics`; an event whose journal digest is
-    among them keeps its stored columns and its file is not read.
+    among them keeps its stored columns and its file is not read. ``workers``: processes
+    computing batches side by side (rigbase.workers; default one per core, 1: all here);
+    the numbers are the same whatever their number.
     """
-    return _metrics_table(run_dir, channel, batch, batch_bytes, reuse)[0]
+    return _metrics_table(run_dir, channel, batch, batch_bytes, reuse, workers)[0]
 
 
 def _metrics_table(
@@ -286,6 +316,7 @@ def _metrics_table(
     batch: int,
     batch_bytes: int,
     reuse: pd.DataFrame | None,
+    workers: int | None = None,
 ) -> tuple[pd.DataFrame, int]:
     """:func:`compute_metrics` and the number of events whose waveform was analysed."""
     from rig.analysis.incremental import DIGEST_COLUMN, journal_digest
@@ -328,26 +359,44 @@ def _metrics_table(
     # is 36 MB, more than a batch's codes): it is read again below, unchanged under the lock
     del jr
     release_freed_memory()  # what the table's reading freed, before the batches' peak
-    for batch_events in _batches(run_dir, files, channel, batch, batch_bytes):
-        ix = np.array([ev.index for ev in batch_events])
-        v_in = np.array([ev.v_in for ev in batch_events])
-        volts[ix] = np.where(np.isfinite(v_in), v_in, volts[ix])
-        part = event_metrics(
-            np.stack([ev.codes for ev in batch_events]),
-            dt=batch_events[0].dt,
-            t0=np.array([ev.t0 for ev in batch_events]),
-            gain=np.array([ev.gain for ev in batch_events]),
-            offset=np.array([ev.offset for ev in batch_events]),
-            code_min=np.array([ev.code_min for ev in batch_events]),
-            code_max=np.array([ev.code_max for ev in batch_events]),
-            charge_volts=volts[ix],
-            load_ohms=ohms[ix],
-        )
+    pending: deque[tuple[np.ndarray, float, int, Job]] = deque()
+
+    def collect() -> None:  # the oldest batch's numbers into res (their rows are their own)
+        ix, dt, n, job = pending.popleft()
+        part = job.result()
         for k in METRIC_COLUMNS:
             res[k][ix] = part[k]
         res["flag_not_captured"][ix] = False
-        res["dt_s"][ix] = batch_events[0].dt
-        res["record_s"][ix] = batch_events[0].codes.size * batch_events[0].dt
+        res["dt_s"][ix] = dt
+        res["record_s"][ix] = n * dt
+
+    # batches computed in forked workers while this process reads the next; at most one
+    # batch per worker in flight (memory stays that of a few batches)
+    with WorkerPool(workers) as pool:
+        for batch_events in _batches(run_dir, files, channel, batch, batch_bytes):
+            ix = np.array([ev.index for ev in batch_events])
+            v_in = np.array([ev.v_in for ev in batch_events])
+            volts[ix] = np.where(np.isfinite(v_in), v_in, volts[ix])
+            first = batch_events[0]
+            job = pool.submit(
+                _batch_metrics,
+                np.stack([ev.codes for ev in batch_events]),
+                first.dt,
+                np.array([ev.t0 for ev in batch_events]),
+                np.array([ev.gain for ev in batch_events]),
+                np.array([ev.offset for ev in batch_events]),
+                np.array([ev.code_min for ev in batch_events]),
+                np.array([ev.code_max for ev in batch_events]),
+                volts[ix],
+                ohms[ix],
+            )
+            del batch_events
+            pending.append((ix, first.dt, first.codes.size, job))
+            del first
+            while len(pending) >= pool.workers:
+                collect()
+        while pending:
+            collect()
     jr = with_capture(journal_frame(run_dir))
     if not np.array_equal(jr["event"].to_numpy(np.int64), events):
         raise RunFolderError(f"{run_dir / 'journal.jsonl'}: changed while it was analysed")
@@ -458,6 +507,7 @@ def analyze_run(
     seed: int = 0,
     full: bool = False,
     table: bool = True,
+    workers: int | None = None,
 ) -> AnalysisResult:
     """Analyse a run folder; writes metrics.parquet, groups.csv and (delay sweeps only)
     selfdischarge.csv into it.
@@ -476,6 +526,7 @@ def analyze_run(
     seed: seed of the bootstrap's random generator (results are reproducible).
     table: hold the per-event table in the result (False: not held; ``result.metrics`` then
         reads metrics.parquet as it is when asked for).
+    workers: processes analysing batches side by side (see :func:`compute_metrics`).
     """
     from rig.analysis.options import check_confidence, check_coverage
     from rig.analysis.selfdischarge import DEFAULT_SAFE_VOLTS, has_delay_sweep, self_discharge
@@ -517,6 +568,7 @@ def analyze_run(
         None
         if full
         else inc.reusable_metrics(metrics_path, inc.metrics_options(channel), RESULT_SCHEMA),
+        workers,
     )
     if (run_dir / "plan.json").exists():
         plan = iter_plan(run_dir)  # counted as it is read (the list grows with the events)

@@ -29,6 +29,7 @@ no verdict (empty in the CSV).
 
 from __future__ import annotations
 
+import functools
 import logging
 import math
 from collections.abc import Iterable, Iterator, Mapping, Sequence
@@ -135,8 +136,10 @@ MEDIAN_CI_BOOTSTRAP_MAX = 1000
 MEDIAN_CI_METHODS = ("bootstrap", "order statistic")
 
 
+@functools.lru_cache(maxsize=4096)
 def tolerance_factor(n: int, coverage: float = 0.99, confidence: float = 0.95) -> float:
-    """Exact one-sided normal tolerance factor k1 (noncentral t); NaN for n < 2."""
+    """Exact one-sided normal tolerance factor k1 (noncentral t); NaN for n < 2. Cached: a
+    run's groups mostly share n, and each noncentral-t quantile is an iterative solve."""
     # scipy.stats takes ~0.7 s to import; imported where used so `rig report` (which needs
     # none of it) does not pay for it
     from scipy import stats as sps

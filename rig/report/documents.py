@@ -1,6 +1,6 @@
 """A run's two documents made together: ``report.html`` (rig.report.page) and
 ``certificate.pdf`` (rig.report.certificate) share one pool of worker processes
-(rig.report.workers), so the certificate is drawn while the report's figures are. What
+(rigbase.workers), so the certificate is drawn while the report's figures are. What
 ``rig report`` and the end of ``rig run`` write; each file is the same as when it is written
 on its own.
 """
@@ -11,7 +11,7 @@ from pathlib import Path
 
 from rig.report.certificate import write_certificate
 from rig.report.page import write_report
-from rig.report.workers import FigurePool
+from rigbase.workers import WorkerPool
 
 __all__ = ["write_documents"]
 
@@ -23,7 +23,7 @@ def write_documents(
     given); returns (report.html, certificate.pdf). ``workers`` as for
     :func:`rig.report.page.write_report`. An error of either is raised as the function that
     writes it alone raises it."""
-    with FigurePool(workers) as pool:
+    with WorkerPool(workers) as pool:
         # first, so it runs beside the report's tables and figures rather than after them
         certificate = pool.submit(write_certificate, run_dir, baseline_dir)
         report = write_report(run_dir, baseline_dir, pool=pool)

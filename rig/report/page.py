@@ -19,7 +19,7 @@ Module layout: rig.report.data loads and shapes the run folder's tables; rig.rep
 escaping, tables and the CSS; rig.report.glance builds "At a glance" and the verdicts;
 rig.report.tables the tabular sections; rig.report.plots the figure sections (drawn by
 rig.report.figures). This module orders the sections and writes the page. Every figure is a
-job of a rig.report.workers pool (forked processes, one per core), drawn while the tables are
+job of a rigbase.workers pool (forked processes, one per core), drawn while the tables are
 made; the page is the same with or without workers.
 """
 
@@ -67,11 +67,11 @@ from rig.report.plots import (
 )
 from rig.report.predicted import section_predicted
 from rig.report.tables import _section_flagged, _section_groups, _section_tested
-from rig.report.workers import FigurePool, joined
 from rig.store.atomic import atomic_write_text
 from rig.store.runfolder import read_manifest
 from rigbase.errors import RunFolderError
 from rigbase.memory import release_freed_memory
+from rigbase.workers import WorkerPool, joined
 
 __all__ = ["FLAG_TEXT", "SECTIONS", "write_report"]
 
@@ -153,7 +153,7 @@ def _sections(
     g: pd.DataFrame,
     baseline_dir: str | Path | None,
     rng: np.random.Generator,
-    pool: FigurePool,
+    pool: WorkerPool,
 ) -> dict[str, str]:
     """The HTML of every section by id (the page orders them as :data:`SECTIONS`). Every
     figure is a job of ``pool``, the slowest (the waveforms, which read every record) first;
@@ -240,14 +240,14 @@ def write_report(
     baseline_dir: str | Path | None = None,
     rng: np.random.Generator | None = None,
     workers: int | None = None,
-    pool: FigurePool | None = None,
+    pool: WorkerPool | None = None,
 ) -> Path:
     """Write ``<run_dir>/report.html`` and ``<run_dir>/figures/*.png|svg``; returns the HTML path.
 
     ``baseline_dir`` adds overlays against that run and its equivalence verdicts.
     ``rng`` only places the jitter of strip plots (seeded by default, so reports are stable).
     ``workers``: processes drawing the waveform figures while this one draws the others
-    (default: one per core, see rig.report.workers; 1 draws everything here), or ``pool``:
+    (default: one per core, see rigbase.workers; 1 draws everything here), or ``pool``:
     workers already started (rig.report.documents shares them with the certificate). The page
     is the same whatever their number.
     Raises RunFolderError when the run has no manifest or has not been analysed.
@@ -266,7 +266,7 @@ def write_report(
     if pool is not None:
         body = _sections(run, man, m, g, baseline_dir, rng, pool)
     else:
-        with FigurePool(workers) as own:
+        with WorkerPool(workers) as own:
             body = _sections(run, man, m, g, baseline_dir, rng, own)
     log.info("report %s: sections done after %.1f s", run.name, time.perf_counter() - t_start)
 

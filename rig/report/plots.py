@@ -4,7 +4,7 @@ Waveforms, |peak| per event, trends against voltage, charge against the IEC 6101
 contact bounce, self-discharge and the baseline overlays. Each builder writes its figure as
 PNG and SVG under ``figures/`` and returns the HTML with the PNG embedded; the waveform and
 baseline sections, whose figures read every record, hand each figure to a
-:class:`rig.report.workers.FigurePool` and return their parts in order. Peaks and pulses
+:class:`rigbase.workers.WorkerPool` and return their parts in order. Peaks and pulses
 come from the capture with the finest sample interval, charges from the one with the longest
 record (rig.report.page picks the frames).
 """
@@ -29,9 +29,9 @@ from rig.report.data import (
 from rig.report.html import _img, _slug, _table, esc
 from rig.report.tables import _compare_table
 from rig.report.wavebands import group_bands, open_group
-from rig.report.workers import FigurePool, Job
 from rig.store.runfolder import read_manifest
 from rigbase.units import eng
+from rigbase.workers import Job, WorkerPool
 
 IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure (charged up to 15 kV), C
 
@@ -112,11 +112,11 @@ def _wave_rows(
 
 
 def _section_waveforms(
-    run: Path, m: pd.DataFrame, modes: list[str], colours, out: Path, pool: FigurePool
+    run: Path, m: pd.DataFrame, modes: list[str], colours, out: Path, pool: WorkerPool
 ) -> list[str | Job[str]]:
     """The waveforms section as parts in order: text, and one job per (mode, capture) figure
     given to ``pool`` (each reads its groups' records and draws; join with
-    :func:`rig.report.workers.joined`)."""
+    :func:`rigbase.workers.joined`)."""
     parts: list[str | Job[str]] = [
         "<p>Median current of each meter with the band holding 5 % to 95 % of the "
         "events at each instant. Left: linear time around the nanosecond peak. Right: "
@@ -338,11 +338,11 @@ def _sd_cross(r, charge: str | None, fit: str, upper: str) -> str:
 
 
 def _section_baseline(
-    run: Path, m: pd.DataFrame, base: Path, modes: list[str], colours, out, pool: FigurePool
+    run: Path, m: pd.DataFrame, base: Path, modes: list[str], colours, out, pool: WorkerPool
 ) -> list[str | Job[str]]:
     """The baseline section as parts in order: text, one job per (mode, capture) overlay
     given to ``pool``, and the equivalence table (join with
-    :func:`rig.report.workers.joined`)."""
+    :func:`rigbase.workers.joined`)."""
     base_man = read_manifest(base)
     bm = _load_metrics(base)
     parts: list[str | Job[str]] = [

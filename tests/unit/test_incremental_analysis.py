@@ -238,3 +238,37 @@ def test_a_result_without_its_table_reads_the_one_written(tmp_path):
     again = analyze_run(run, table=False)  # up to date: only the status column is read
     assert again._metrics is None and again.reused == held.analysed
     pd.testing.assert_frame_equal(again.metrics, held.metrics, check_exact=True)
+
+
+def batches_in_workers_equal_batches_here(folder: str) -> None:
+    """Run in a fresh interpreter (the pool forks only where no other thread runs)."""
+    from rigbase.workers import WorkerPool
+
+    assert WorkerPool(2).workers == 2  # the workers really are forked here
+    run = make_run(Path(folder), "forked", rng=np.random.default_rng(37), reps=9)
+    here = compute_metrics(run, batch=4, workers=1)
+    forked = compute_metrics(run, batch=4, workers=2)
+    pd.testing.assert_frame_equal(forked, here, check_exact=True)
+
+
+@pytest.mark.skipif(
+    "fork" not in __import__("multiprocessing").get_all_start_methods(), reason="no fork"
+)
+def test_batches_analysed_in_worker_processes_give_the_same_table(tmp_path):
+    import os
+    import subprocess
+    import sys
+
+    root = Path(__file__).resolve().parents[2]
+    code = (
+        "import tests.unit.test_incremental_analysis as t\n"
+        f"t.batches_in_workers_equal_batches_here({str(tmp_path)!r})\n"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", code],
+        cwd=root,
+        env={**os.environ, "PYTHONPATH": str(root)},
+        capture_output=True,
+        text=True,
+    )
+    assert out.returncode == 0, out.stderr[-4000:]

@@ -22,8 +22,8 @@ from rig.analysis.compare import compare_runs, write_comparison
 from rig.report import figures as F
 from rig.report.documents import write_documents
 from rig.report.page import write_report
-from rig.report.workers import FigurePool, joined
 from rigbase.errors import FileFormatError, RunFolderError
+from rigbase.workers import WorkerPool, joined
 from tests.report_fixtures import build_run
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -38,7 +38,7 @@ needs_fork = pytest.mark.skipif(
 
 def _fresh(call: str) -> None:
     """Run ``call`` (a function of this module with its arguments) in a new Python."""
-    code = f"import tests.unit.test_report_workers as t\nt.{call}\n"
+    code = f"import tests.unit.test_workers as t\nt.{call}\n"
     out = subprocess.run(
         [sys.executable, "-c", code],
         cwd=ROOT,
@@ -67,7 +67,7 @@ def _written(run: Path) -> tuple[str, dict[str, bytes]]:
 
 
 def _forks() -> None:
-    with FigurePool(2) as pool:
+    with WorkerPool(2) as pool:
         assert pool.workers == 2, "the pool did not fork"
 
 
@@ -127,7 +127,7 @@ def check_errors(workers: int) -> None:
     if workers > 1:
         _forks()
     for kind, error, text in ERRORS:
-        with FigurePool(workers) as pool:
+        with WorkerPool(workers) as pool:
             job = pool.submit(_fails, kind)  # raises nothing yet
             with pytest.raises(error) as got:
                 job.result()
@@ -151,11 +151,11 @@ def check_dead_worker() -> None:
     seen: list[str] = []
     handler = logging.Handler()
     handler.emit = lambda record: seen.append(record.getMessage())  # type: ignore[method-assign]
-    logging.getLogger("rig.report.workers").addHandler(handler)
-    with FigurePool(2) as pool:
+    logging.getLogger("rigbase.workers").addHandler(handler)
+    with WorkerPool(2) as pool:
         jobs = [pool.submit(_dies_in_a_worker, k) for k in range(3)]
         assert [j.result() for j in jobs] == [0, 2, 4]
-    assert any("figure worker stopped" in m for m in seen), seen
+    assert any("worker process stopped" in m for m in seen), seen
 
 
 @needs_fork
@@ -165,7 +165,7 @@ def test_a_dead_worker_leaves_its_figure_to_this_process():
 
 def test_without_workers_each_call_runs_at_once_in_order():
     seen: list[int] = []
-    with FigurePool(1) as pool:
+    with WorkerPool(1) as pool:
         assert pool.workers == 1
         parts = ["a", pool.submit(seen.append, 1), pool.submit(seen.append, 2)]
         assert seen == [1, 2]  # before any result is asked for

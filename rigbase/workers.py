@@ -1,9 +1,9 @@
-"""Figures drawn side by side in worker processes: matplotlib draws on one core, and the
-report's figures do not depend on each other, so on a machine with several cores they are
-drawn in forked workers (the slowest first: the waveform figures, which also read every
-record) while the report's own process makes the tables.
+"""Calls made side by side in forked worker processes: the report's figures (matplotlib draws
+on one core, and the figures do not depend on each other) and the analysis's batches of
+events (each batch's metrics depend on its own records only) are computed in forked workers
+while the calling process goes on (it makes the report's tables, reads the next batch).
 
-:class:`FigurePool` runs module-level functions there and hands back a :class:`Job` per call.
+:class:`WorkerPool` runs module-level functions there and hands back a :class:`Job` per call.
 The workers are forked (so they start with matplotlib, pandas and the run's tables already
 imported and loaded, at no cost) and only when the platform forks and the process runs a
 single thread (forking a process with other threads can leave a lock held in the child);
@@ -32,7 +32,7 @@ from concurrent.futures import Future, ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Generic, TypeVar
 
-__all__ = ["MAX_WORKERS", "FigurePool", "Job", "default_workers", "joined"]
+__all__ = ["MAX_WORKERS", "WorkerPool", "Job", "default_workers", "joined"]
 
 log = logging.getLogger(__name__)
 
@@ -80,7 +80,7 @@ def _call(fn: Callable[..., T], *args: Any) -> T:
 
 
 class Job(Generic[T]):
-    """One call given to a :class:`FigurePool`; :meth:`result` waits for its value."""
+    """One call given to a :class:`WorkerPool`; :meth:`result` waits for its value."""
 
     def __init__(
         self,
@@ -105,16 +105,16 @@ class Job(Generic[T]):
         try:
             self._value = future.result()
         except BrokenProcessPool as exc:
-            log.warning("report: a figure worker stopped (%s); drawing %s here", exc, self._name)
+            log.warning("a worker process stopped (%s); running %s here", exc, self._name)
             self._value = self._fn(*self._args)
         return self._value  # type: ignore[return-value]
 
     @property
     def _name(self) -> str:
-        return getattr(self._fn, "__name__", "the figure")
+        return getattr(self._fn, "__name__", "the call")
 
 
-class FigurePool:
+class WorkerPool:
     """Runs calls in forked worker processes (see the module doc); use it as a context
     manager, which waits for the workers to end. ``workers``: processes (default
     :func:`default_workers`; 1 runs every call here, at once)."""
@@ -151,7 +151,7 @@ class FigurePool:
             self._ex.shutdown(wait=True, cancel_futures=True)
             self._ex = None
 
-    def __enter__(self) -> FigurePool:
+    def __enter__(self) -> WorkerPool:
         return self
 
     def __exit__(self, *exc: object) -> None:
