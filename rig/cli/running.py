@@ -147,6 +147,9 @@ def _finish(outcome: Any, run_dir: Path, report: bool) -> int:
         return EXIT_BENCH
     counts: dict[str, int] = {}
     if outcome.status == "complete" and report:
+        from rig.store.zarrwave import stop_io_threads
+
+        stop_io_threads()  # the last waveform is written: the analysis may fork workers
         counts = _analyse_and_report(run_dir, None)
     if outcome.status == "interrupted":
         _out(f"continue with: rig resume {run_dir}")

@@ -26,6 +26,8 @@ zarr is imported on first use so commands that never touch waveforms start fast.
 from __future__ import annotations
 
 import json
+import sys
+import threading
 import zipfile
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -37,11 +39,27 @@ from rig.store.atomic import atomic_write
 if TYPE_CHECKING:
     from rig.store.waveform import Waveform
 
-__all__ = ["ZARR_SUFFIX", "read_zarr_waveform", "write_zarr_waveform"]
+__all__ = ["ZARR_SUFFIX", "read_zarr_waveform", "stop_io_threads", "write_zarr_waveform"]
 
 ZARR_SUFFIX = ".zarr.zip"
 _FORMAT = 1
 _ATTRS = ("gain", "offset", "code_min", "code_max", "dt", "t0", "channels", "units")
+
+
+def stop_io_threads() -> None:
+    """Stop the threads zarr starts on first use (its event loop and executor; zarr starts
+    them again when next needed). Called once a run has written its last waveform: a process
+    with other threads running does not fork workers (rigbase.workers), so the analysis and
+    the report of ``rig run`` would otherwise compute everything in one process."""
+    sync = sys.modules.get("zarr.core.sync")  # nothing to stop if zarr was never used
+    cleanup = getattr(sync, "cleanup_resources", None)
+    if cleanup is None:
+        return
+    cleanup()
+    # the loop's default executor (threads "asyncio_<n>") is told to end, not waited for
+    for t in threading.enumerate():
+        if t.name == "zarr_io" or t.name.startswith("asyncio_"):
+            t.join(timeout=1.0)
 
 
 def write_zarr_waveform(path: Path, wf: Waveform) -> None:

@@ -177,3 +177,17 @@ def test_a_broken_or_unknown_waveform_file_names_itself(tmp_path, name):
     path.write_bytes(b"not a waveform")
     with pytest.raises((ValueError, OSError), match="e1"):
         load_waveform(path)
+
+
+def test_zarrs_threads_stop_and_start_again_when_needed(tmp_path):
+    import threading
+
+    from rig.store.zarrwave import stop_io_threads
+
+    wf = _wf(np.random.default_rng(5))
+    save_waveform(tmp_path / f"a{WAVEFORM_SUFFIX}", wf)  # zarr starts its loop and executor
+    stop_io_threads()
+    names = [t.name for t in threading.enumerate()]
+    assert not [n for n in names if n == "zarr_io" or n.startswith("asyncio_")], names
+    save_waveform(tmp_path / f"b{WAVEFORM_SUFFIX}", wf)  # and starts them again
+    _same(load_waveform(tmp_path / f"b{WAVEFORM_SUFFIX}"), wf)
