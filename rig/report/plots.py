@@ -42,8 +42,13 @@ MAX_WAVE_ROWS = 4  # (voltage, load) rows per waveform figure
 _WAVE_COLUMNS = ("status", "file", "meter", "mode", "capture", "volts", "load", "delay_s")
 
 
-def _narrow(m: pd.DataFrame) -> pd.DataFrame:
-    return m[[c for c in _WAVE_COLUMNS if c in m.columns]]
+def _narrow(m: pd.DataFrame, extra: tuple[str, ...] = ()) -> pd.DataFrame:
+    return m[[c for c in (*_WAVE_COLUMNS, *extra) if c in m.columns]]
+
+
+# what a waveform job reads besides: the capture's roles and whether it resolves the peak
+# (rig.report.captures.measures); a job's table is pickled to its worker, so only these go
+_WAVE_JOB_EXTRA = ("dt_s", "record_s", "rise_s")
 
 
 def _wave_rows(
@@ -135,7 +140,17 @@ def _section_waveforms(
         head = f"<h3>{esc(mode)}</h3>"
         for capture in captures:
             parts.append(
-                pool.submit(_waveform_part, run, m, mode, capture, several, head, colours, out)
+                pool.submit(
+                    _waveform_part,
+                    run,
+                    _narrow(m, _WAVE_JOB_EXTRA),
+                    mode,
+                    capture,
+                    several,
+                    head,
+                    colours,
+                    out,
+                )
             )
             head = ""
     return parts
