@@ -258,7 +258,8 @@ def main() -> None:
         ):
             if key in small[step]:
                 a, b = small[step][key], large[step][key]
-                print(f"{step:16s} {unit:>12s}{a:10.1f}{b:12.1f}   {b / a:5.2f}")
+                ratio = f"{b / a:5.2f}" if a else "    -"  # a step that forked no worker
+                print(f"{step:16s} {unit:>12s}{a:10.1f}{b:12.1f}   {ratio}")
     for step in ("analyze", "report"):
         t = large[step]["s"] / small[step]["s"]
         m = large[step]["rss_mb"] / small[step]["rss_mb"]
