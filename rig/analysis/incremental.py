@@ -57,6 +57,7 @@ DIGEST_COLUMN = "journal_digest"
 _METRIC_MODULES = (
     "rig.analysis.analyze",
     "rig.analysis.baseline",
+    "rig.analysis.batches",
     "rig.analysis.metrics",
     "rig.analysis.pulses",
     "rig.analysis.shape",

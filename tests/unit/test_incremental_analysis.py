@@ -20,6 +20,7 @@ import pandas as pd
 import pytest
 
 import rig.analysis.analyze as analyze
+import rig.analysis.batches as batches
 from rig.analysis.analyze import analyze_run, compute_metrics
 from rig.analysis.incremental import DIGEST_COLUMN, metrics_options
 from rig.analysis.provenance import read_options, record_options
@@ -38,7 +39,7 @@ def _write_journal(run: Path, rows: list[dict]) -> None:
 def _count_loads(monkeypatch) -> list[Path]:
     calls: list[Path] = []
     monkeypatch.setattr(
-        analyze, "load_waveform", lambda p: calls.append(Path(p)) or load_waveform(p)
+        batches, "load_waveform", lambda p: calls.append(Path(p)) or load_waveform(p)
     )
     return calls
 
@@ -224,7 +225,7 @@ def test_a_journal_that_grows_during_the_analysis_is_refused(tmp_path, monkeypat
         _write_journal(run, rows)
         return load_waveform(p)
 
-    monkeypatch.setattr(analyze, "load_waveform", grow)
+    monkeypatch.setattr(batches, "load_waveform", grow)
     with pytest.raises(analyze.RunFolderError, match="changed while it was analysed"):
         compute_metrics(run)
 
@@ -255,20 +256,11 @@ def batches_in_workers_equal_batches_here(folder: str) -> None:
     "fork" not in __import__("multiprocessing").get_all_start_methods(), reason="no fork"
 )
 def test_batches_analysed_in_worker_processes_give_the_same_table(tmp_path):
-    import os
-    import subprocess
-    import sys
+    from tests.fresh import run_python
 
-    root = Path(__file__).resolve().parents[2]
     code = (
         "import tests.unit.test_incremental_analysis as t\n"
         f"t.batches_in_workers_equal_batches_here({str(tmp_path)!r})\n"
     )
-    out = subprocess.run(
-        [sys.executable, "-c", code],
-        cwd=root,
-        env={**os.environ, "PYTHONPATH": str(root)},
-        capture_output=True,
-        text=True,
-    )
+    out = run_python(code)
     assert out.returncode == 0, out.stderr[-4000:]

@@ -9,8 +9,6 @@ import logging
 import multiprocessing
 import os
 import re
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -24,9 +22,9 @@ from rig.report.documents import write_documents
 from rig.report.page import write_report
 from rigbase.errors import FileFormatError, RunFolderError
 from rigbase.workers import WorkerPool, joined
+from tests.fresh import run_python
 from tests.report_fixtures import build_run
 
-ROOT = Path(__file__).resolve().parents[2]
 PARENT = os.getpid()
 
 # The pool forks only in a process without other threads, and the test session may hold some
@@ -38,14 +36,7 @@ needs_fork = pytest.mark.skipif(
 
 def _fresh(call: str) -> None:
     """Run ``call`` (a function of this module with its arguments) in a new Python."""
-    code = f"import tests.unit.test_workers as t\nt.{call}\n"
-    out = subprocess.run(
-        [sys.executable, "-c", code],
-        cwd=ROOT,
-        env={**os.environ, "PYTHONPATH": str(ROOT)},
-        capture_output=True,
-        text=True,
-    )
+    out = run_python(f"import tests.unit.test_workers as t\nt.{call}\n")
     assert out.returncode == 0, out.stderr[-4000:]
 
 
@@ -222,12 +213,6 @@ def test_the_report_imports_no_scipy():
         "from rig.report.documents import write_documents\n"
         "print(sorted({m.split('.')[0] for m in sys.modules} & {'scipy'}))\n"
     )
-    out = subprocess.run(
-        [sys.executable, "-c", code],
-        cwd=ROOT,
-        env={**os.environ, "PYTHONPATH": str(ROOT)},
-        capture_output=True,
-        text=True,
-        check=True,
-    )
+    out = run_python(code)
+    assert out.returncode == 0, out.stderr[-4000:]
     assert out.stdout.strip() == "[]"
