@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pandas as pd
 
-import rig.analysis.analyze as analyze
+import rig.analysis.batches as batches
 from rig.analysis.analyze import analyze_run
 from rig.planning.plan import build_plan
 from rig.planning.sequence import load_sequence
@@ -38,7 +38,7 @@ def test_resumed_run_analyses_only_the_new_events(tmp_path, monkeypatch):
     added = {r["file"] for r in read_journal(run) if r["file"]} - done
     calls: list[str] = []
     monkeypatch.setattr(
-        analyze,
+        batches,
         "load_waveform",
         lambda p: calls.append(Path(p).relative_to(run).as_posix()) or load_waveform(p),
     )
