@@ -16,11 +16,20 @@ process dies, so none outlives it holding the run folder's lock. A worker collec
 once after each call instead of as it goes (the collector otherwise runs hundreds of times
 over the objects a figure makes, about a tenth of the drawing time), and never over what it
 inherited.
+
+A call's arguments are pickled to its worker, and the pool's call queue holds a few pickled
+calls at once: a 40 MB table given to four calls costs the calling process four to six copies
+of it. :meth:`WorkerPool.share` hands a value to the workers by inheritance instead: shared
+before the workers fork (at the pool's first call), it is in every worker already, and a call
+given the :class:`Shared` handle sends only its key. A value shared after the fork, or in a
+pool without workers, is given as itself (pickled, or here), so a call always receives the
+value and is the same either way.
 """
 
 from __future__ import annotations
 
 import gc
+import itertools
 import logging
 import multiprocessing
 import os
@@ -32,7 +41,7 @@ from concurrent.futures import Future, ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Generic, TypeVar
 
-__all__ = ["MAX_WORKERS", "WorkerPool", "Job", "default_workers", "joined"]
+__all__ = ["MAX_WORKERS", "WorkerPool", "Job", "Shared", "default_workers", "joined"]
 
 log = logging.getLogger(__name__)
 
@@ -71,10 +80,37 @@ def _worker_start(parent: int) -> None:
     gc.disable()  # collected once per call instead, in _call
 
 
+# Values shared with workers about to fork, by key; a forked worker holds the parent's copy
+# (copy-on-write pages, never pickled). Keys are never reused within a process.
+_SHARED: dict[int, Any] = {}
+_next_key = itertools.count(1)
+
+
+class Shared(Generic[T]):
+    """A handle on a value given to a pool's calls (:meth:`WorkerPool.share`); a call
+    receives the value itself."""
+
+    __slots__ = ("key", "value")
+
+    def __init__(self, key: int, value: T) -> None:
+        self.key, self.value = key, value
+
+
+class _Inherited:
+    """What a call's argument becomes on its way to a worker that inherited the value: its
+    key only."""
+
+    __slots__ = ("key",)
+
+    def __init__(self, key: int) -> None:
+        self.key = key
+
+
 def _call(fn: Callable[..., T], *args: Any) -> T:
-    """``fn(*args)`` in a worker, then its cyclic garbage (figures are full of cycles)."""
+    """``fn(*args)`` in a worker (inherited values looked up by key), then its cyclic garbage
+    (figures are full of cycles)."""
     try:
-        return fn(*args)
+        return fn(*(_SHARED[a.key] if isinstance(a, _Inherited) else a for a in args))
     finally:
         gc.collect()
 
@@ -123,6 +159,8 @@ class WorkerPool:
         n = default_workers() if workers is None else int(workers)
         self.workers = n if n > 1 and _can_fork() else 1
         self._ex: ProcessPoolExecutor | None = None
+        self._forked = False  # the workers fork at the first call
+        self._inherited: dict[int, int] = {}  # id(value) -> key, for values shared before
         if self.workers > 1:
             self._ex = ProcessPoolExecutor(
                 self.workers,
@@ -131,25 +169,55 @@ class WorkerPool:
                 initargs=(os.getpid(),),
             )
 
+    def share(self, value: T) -> Shared[T]:
+        """A handle that gives ``value`` to this pool's calls (pass it as an argument of
+        :meth:`submit`; the call receives ``value``). Shared before the pool's first call,
+        the workers inherit it when they fork and a call sends its key only; afterwards, or
+        without workers, a call is given the value itself. Sharing the same object again
+        returns its handle. The value must not be changed while the pool runs."""
+        key = self._inherited.get(id(value))
+        if key is not None:
+            return Shared(key, value)
+        key = next(_next_key)
+        if self._ex is not None and not self._forked:
+            _SHARED[key] = value
+            self._inherited[id(value)] = key
+        return Shared(key, value)
+
     def submit(self, fn: Callable[..., T], *args: Any) -> Job[T]:
-        """``fn(*args)`` in a worker (``fn`` a module-level function, ``args`` picklable), or
-        here and now without workers; its error, if any, is raised by :meth:`Job.result`
-        either way."""
+        """``fn(*args)`` in a worker (``fn`` a module-level function, ``args`` picklable or
+        :class:`Shared` handles), or here and now without workers; its error, if any, is
+        raised by :meth:`Job.result` either way."""
+        plain = tuple(a.value if isinstance(a, Shared) else a for a in args)
         if self._ex is not None:
+            sent = tuple(
+                _Inherited(a.key) if isinstance(a, Shared) and self._owns(a) else p
+                for a, p in zip(args, plain, strict=True)
+            )
+            self._forked = True
             try:
-                return Job(fn, args, future=self._ex.submit(_call, fn, *args))
+                return Job(fn, plain, future=self._ex.submit(_call, fn, *sent))
             except BrokenProcessPool:  # a worker died already: the rest is drawn here
                 pass
+        args = plain
         try:
             return Job(fn, args, value=fn(*args))
         except Exception as exc:
             return Job(fn, args, error=exc)
 
+    def _owns(self, handle: Shared[Any]) -> bool:
+        """True if this pool's workers inherited ``handle``'s value."""
+        return self._inherited.get(id(handle.value)) == handle.key
+
     def close(self) -> None:
-        """Let the workers end (a job not started yet is dropped)."""
+        """Let the workers end (a job not started yet is dropped) and forget the values
+        shared with them."""
         if self._ex is not None:
             self._ex.shutdown(wait=True, cancel_futures=True)
             self._ex = None
+        for key in self._inherited.values():
+            _SHARED.pop(key, None)
+        self._inherited.clear()
 
     def __enter__(self) -> WorkerPool:
         return self

@@ -24,9 +24,8 @@ from rig import __version__
 from rig.analysis.provenance import record_options
 from rig.analysis.stats import capture_roles
 from rig.report.captures import measures
-from rig.report.data import _at_zero_delay, _load_groups, _load_metrics, _peak_metric
+from rig.report.data import RunTables, _at_zero_delay, _peak_metric, read_run_tables
 from rig.report.html import _dict, _plain
-from rig.store.runfolder import read_manifest
 from rigbase.units import eng, metric_label, metric_unit
 
 if TYPE_CHECKING:
@@ -228,14 +227,19 @@ def _compare_rows(run: Path, baseline: Path, meter: str) -> list[list[str]]:
     ]
 
 
-def write_certificate(run_dir: str | Path, baseline_dir: str | Path | None = None) -> Path:
-    """Write ``<run_dir>/certificate.pdf``; returns its path (see the module docstring)."""
+def write_certificate(
+    run_dir: str | Path, baseline_dir: str | Path | None = None, tables: RunTables | None = None
+) -> Path:
+    """Write ``<run_dir>/certificate.pdf``; returns its path (see the module docstring).
+    ``tables``: the run's tables already read (:func:`rig.report.data.read_run_tables`, which
+    reads them by default and refuses a run not analysed or analysed from other events)."""
     # the PDF backend (with fontTools) takes ~0.15 s to import: only when a certificate is made
     from matplotlib.backends.backend_pdf import PdfPages
 
     run = Path(run_dir)
-    man = read_manifest(run)
-    m, g = _load_metrics(run), _load_groups(run)
+    if tables is None:
+        tables = read_run_tables(run)
+    man, m, g = tables.manifest, tables.metrics, tables.groups
     seq = _dict(man.get("sequence"))
     kind = "Repair check" if baseline_dir is not None else "Qualification"
     operator = _recorded(man, "operator", "operator_name")

@@ -9,12 +9,16 @@ record_s, never from the capture names.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from rig.analysis.analyze import analysis_mismatch
 from rig.analysis.stats import GROUP_KEYS, with_capture
+from rig.store.runfolder import read_manifest
 from rig.store.tables import read_csv_table, read_parquet_table
 from rigbase.errors import RunFolderError
 from rigbase.units import eng
@@ -81,6 +85,28 @@ def _load_groups(run: Path) -> pd.DataFrame:
     # an all-empty column reads as float: cast before filling (pandas refuses "" in float64)
     g["verdict"] = g["verdict"].astype(object).fillna("").astype(str).str.strip()
     return with_capture(g)
+
+
+@dataclass(frozen=True)
+class RunTables:
+    """What a run's documents (report and certificate) are made from, read once."""
+
+    manifest: dict[str, Any]
+    metrics: pd.DataFrame  # metrics.parquet as the report reads it (:func:`_load_metrics`)
+    groups: pd.DataFrame  # groups.csv (:func:`_load_groups`)
+
+
+def read_run_tables(run: Path) -> RunTables:
+    """The manifest, metrics and group table of ``run``. Raises RunFolderError when the run
+    has no manifest, has not been analysed, or was analysed from other events or options
+    than it holds now (rig.analysis.analyze.analysis_mismatch)."""
+    man = read_manifest(run)
+    stale = analysis_mismatch(run) if (run / "metrics.parquet").exists() else None
+    if stale:
+        raise RunFolderError(
+            f"{run}: {stale}; run `rig analyze {run}` (or `rig report`, which re-analyses) first"
+        )
+    return RunTables(man, _load_metrics(run), _load_groups(run))
 
 
 def _peak_metric(g: pd.DataFrame) -> str:

@@ -34,7 +34,6 @@ import numpy as np
 import pandas as pd
 
 from rig import __version__
-from rig.analysis.analyze import analysis_mismatch
 from rig.analysis.provenance import record_options
 from rig.analysis.stats import capture_roles
 from rig.report import figures as F
@@ -46,12 +45,13 @@ from rig.report.captures import MIN_RISE_SAMPLES, measures
 from rig.report.data import (
     _GROUP_KEYS,  # noqa: F401
     FLAG_TEXT,
+    RunTables,
     _capture_text,
-    _load_groups,
     _load_metrics,
     _peak_metric,
     _several_captures,
     _where,
+    read_run_tables,
 )
 from rig.report.glance import _limits_table, _section_glance, _section_verdicts
 from rig.report.html import _CSS, esc
@@ -68,9 +68,6 @@ from rig.report.plots import (
 from rig.report.predicted import section_predicted
 from rig.report.tables import _section_flagged, _section_groups, _section_tested
 from rig.store.atomic import atomic_write_text
-from rig.store.runfolder import read_manifest
-from rigbase.errors import RunFolderError
-from rigbase.memory import release_freed_memory
 from rigbase.workers import WorkerPool, joined
 
 __all__ = ["FLAG_TEXT", "SECTIONS", "write_report"]
@@ -138,12 +135,30 @@ def _per_load(fn, m, g, loads, modes, colours, rng, out) -> str:
     return "".join(fn(m, g, ld, len(loads) > 1, modes, colours, rng, out) for ld in loads)
 
 
-def _jittered(mp, mq, g, loads, modes, colours, rng, out, peaks: bool) -> tuple[str, str]:
+def _jittered(
+    m, peak_cap, charge_cap, g, loads, modes, colours, rng, out, peaks
+) -> tuple[str, str]:
     """(|peak| per event, charge against 45 µC) HTML: the two figures whose points ``rng``
     jitters, drawn in one job and in this order so the points sit where a drawing of the
-    sections one after the other puts them."""
-    p = _per_load(_section_peaks, mp, g, loads, modes, colours, rng, out) if peaks else ""
+    sections one after the other puts them. The peaks are the events of ``peak_cap``, the
+    charges those of ``charge_cap``."""
+    p = ""
+    if peaks:
+        mp = _where(m, m["capture"] == peak_cap)
+        p = _per_load(_section_peaks, mp, g, loads, modes, colours, rng, out)
+    mq = _where(m, m["capture"] == charge_cap)
     return p, _per_load(_section_iec, mq, g, loads, modes, colours, rng, out)
+
+
+def _bounce(m, peak_cap, modes, colours, out) -> str:
+    """The contact-bounce section from the events of ``peak_cap``."""
+    return _section_bounce(_where(m, m["capture"] == peak_cap), modes, colours, out)
+
+
+def _selfdischarge(run, m, colours, out, charge_cap) -> str:
+    """The self-discharge section from the events of ``charge_cap``."""
+    mq = _where(m, m["capture"] == charge_cap)
+    return _section_selfdischarge(run, mq, colours, out, charge_cap)
 
 
 def _sections(
@@ -157,20 +172,24 @@ def _sections(
 ) -> dict[str, str]:
     """The HTML of every section by id (the page orders them as :data:`SECTIONS`). Every
     figure is a job of ``pool``, the slowest (the waveforms, which read every record) first;
-    the tables are made here meanwhile."""
+    the tables are made here meanwhile. The jobs are given the run's table as a share of
+    ``pool`` (inherited by the workers, not pickled to each, when shared before they fork)."""
     out = run / FIGURES
+    ms = pool.share(m)
+    if baseline_dir is not None:  # read before the first job forks the workers: inherited
+        bms = pool.share(_load_metrics(Path(baseline_dir)))
     meters = list(dict.fromkeys(m["meter"]))
     colours = F.colour_map(meters)
     modes = list(dict.fromkeys(m["mode"]))
-    waves = _section_waveforms(run, m, modes, colours, out, pool)
+    waves = _section_waveforms(run, ms, modes, colours, out, pool)
     overlays = None
     if baseline_dir is not None:
-        overlays = _section_baseline(run, m, Path(baseline_dir), modes, colours, out, pool)
+        overlays = _section_baseline(run, ms, Path(baseline_dir), bms, modes, colours, out, pool)
 
     # Peaks (and pulses) from the capture with the finest sample interval, charges from the
-    # one with the longest record (decided from dt_s and record_s, see capture_roles).
+    # one with the longest record (decided from dt_s and record_s, see capture_roles); the
+    # jobs select their capture's events themselves, in their worker.
     peak_cap, charge_cap = capture_roles(m)
-    mp, mq = _where(m, m["capture"] == peak_cap), _where(m, m["capture"] == charge_cap)
     g_trend = pd.concat(
         [
             g[(g["capture"] == peak_cap) & (g["metric"] != "charge_c")],
@@ -179,15 +198,16 @@ def _sections(
     )
     loads = list(m["load"].value_counts().index)  # most events first
     fast_ok = "fast" in measures(m).get(peak_cap, {"fast"})
-    if fast_ok:
-        trends = pool.submit(
-            _per_load, _section_trends, m, g_trend, loads, modes, colours, rng, out
-        )
-    else:  # the charge only: no capture resolves the pulse
-        trends = pool.submit(_trend_charge_only, m, g_trend, loads, modes, colours, rng, out)
-    jittered = pool.submit(_jittered, mp, mq, g, loads, modes, colours, rng, out, fast_ok)
-    bounce = pool.submit(_section_bounce, mp, modes, colours, out) if fast_ok else None
-    selfdischarge = pool.submit(_section_selfdischarge, run, mq, colours, out, charge_cap)
+    trends = (
+        pool.submit(_per_load, _section_trends, ms, g_trend, loads, modes, colours, rng, out)
+        if fast_ok  # else the charge only: no capture resolves the pulse
+        else pool.submit(_trend_charge_only, ms, g_trend, loads, modes, colours, rng, out)
+    )
+    jittered = pool.submit(
+        _jittered, ms, peak_cap, charge_cap, g, loads, modes, colours, rng, out, fast_ok
+    )
+    bounce = pool.submit(_bounce, ms, peak_cap, modes, colours, out) if fast_ok else None
+    selfdischarge = pool.submit(_selfdischarge, run, ms, colours, out, charge_cap)
 
     body: dict[str, str] = {}
     body["tested"] = _section_tested(run, man, m)
@@ -241,28 +261,25 @@ def write_report(
     rng: np.random.Generator | None = None,
     workers: int | None = None,
     pool: WorkerPool | None = None,
+    tables: RunTables | None = None,
 ) -> Path:
     """Write ``<run_dir>/report.html`` and ``<run_dir>/figures/*.png|svg``; returns the HTML path.
 
     ``baseline_dir`` adds overlays against that run and its equivalence verdicts.
     ``rng`` only places the jitter of strip plots (seeded by default, so reports are stable).
-    ``workers``: processes drawing the waveform figures while this one draws the others
-    (default: one per core, see rigbase.workers; 1 draws everything here), or ``pool``:
-    workers already started (rig.report.documents shares them with the certificate). The page
-    is the same whatever their number.
+    ``workers``: processes drawing the figures while this one makes the tables (default: one
+    per core, see rigbase.workers; 1 draws everything here), or ``pool``: workers already
+    made (rig.report.documents shares them with the certificate). ``tables``: the run's
+    tables already read (:func:`rig.report.data.read_run_tables`; read here by default). The
+    page is the same whatever the workers.
     Raises RunFolderError when the run has no manifest or has not been analysed.
     """
     t_start = time.perf_counter()
     run = Path(run_dir)
     rng = rng if rng is not None else np.random.default_rng(0)
-    man = read_manifest(run)
-    stale = analysis_mismatch(run) if (run / "metrics.parquet").exists() else None
-    if stale:
-        raise RunFolderError(
-            f"{run}: {stale}; run `rig analyze {run}` (or `rig report`, which re-analyses) first"
-        )
-    m = _load_metrics(run)
-    g = _load_groups(run)
+    if tables is None:
+        tables = read_run_tables(run)
+    man, m, g = tables.manifest, tables.metrics, tables.groups
     if pool is not None:
         body = _sections(run, man, m, g, baseline_dir, rng, pool)
     else:
@@ -293,6 +310,4 @@ def write_report(
     atomic_write_text(path, doc)  # a report killed half-way leaves the previous one whole
     _record_report(run, path, baseline_dir)
     log.info("report %s written in %.1f s", path, time.perf_counter() - t_start)
-    del m, body  # the run's table, before the certificate reads it again
-    release_freed_memory()
     return path

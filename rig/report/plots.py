@@ -22,7 +22,6 @@ from rig.report.captures import measures
 from rig.report.data import (
     _at_zero_delay,
     _capture_text,
-    _load_metrics,
     _peak_metric,
     _where,
 )
@@ -31,7 +30,7 @@ from rig.report.tables import _compare_table
 from rig.report.wavebands import group_bands, open_group
 from rig.store.runfolder import read_manifest
 from rigbase.units import eng
-from rigbase.workers import Job, WorkerPool
+from rigbase.workers import Job, Shared, WorkerPool
 
 IEC61010_CHARGE_C = 45e-6  # IEC 61010-1 stored-charge figure (charged up to 15 kV), C
 
@@ -42,13 +41,8 @@ MAX_WAVE_ROWS = 4  # (voltage, load) rows per waveform figure
 _WAVE_COLUMNS = ("status", "file", "meter", "mode", "capture", "volts", "load", "delay_s")
 
 
-def _narrow(m: pd.DataFrame, extra: tuple[str, ...] = ()) -> pd.DataFrame:
-    return m[[c for c in (*_WAVE_COLUMNS, *extra) if c in m.columns]]
-
-
-# what a waveform job reads besides: the capture's roles and whether it resolves the peak
-# (rig.report.captures.measures); a job's table is pickled to its worker, so only these go
-_WAVE_JOB_EXTRA = ("dt_s", "record_s", "rise_s")
+def _narrow(m: pd.DataFrame) -> pd.DataFrame:
+    return m[[c for c in _WAVE_COLUMNS if c in m.columns]]
 
 
 def _wave_rows(
@@ -117,18 +111,23 @@ def _wave_rows(
 
 
 def _section_waveforms(
-    run: Path, m: pd.DataFrame, modes: list[str], colours, out: Path, pool: WorkerPool
+    run: Path,
+    m: Shared[pd.DataFrame],
+    modes: list[str],
+    colours,
+    out: Path,
+    pool: WorkerPool,
 ) -> list[str | Job[str]]:
     """The waveforms section as parts in order: text, and one job per (mode, capture) figure
     given to ``pool`` (each reads its groups' records and draws; join with
-    :func:`rigbase.workers.joined`)."""
+    :func:`rigbase.workers.joined`). ``m``: the run's table, shared with ``pool``."""
     parts: list[str | Job[str]] = [
         "<p>Median current of each meter with the band holding 5 % to 95 % of the "
         "events at each instant. Left: linear time around the nanosecond peak. Right: "
         "logarithmic time and current, so the millisecond tail shows as well. "
         f"{esc(method_note())}</p>"
     ]
-    captures = [str(c) for c in dict.fromkeys(m["capture"])]
+    captures = [str(c) for c in dict.fromkeys(m.value["capture"])]
     several = len(captures) > 1
     if several:
         parts.append(
@@ -143,7 +142,7 @@ def _section_waveforms(
                 pool.submit(
                     _waveform_part,
                     run,
-                    _narrow(m, _WAVE_JOB_EXTRA),
+                    m,
                     mode,
                     capture,
                     several,
@@ -353,20 +352,27 @@ def _sd_cross(r, charge: str | None, fit: str, upper: str) -> str:
 
 
 def _section_baseline(
-    run: Path, m: pd.DataFrame, base: Path, modes: list[str], colours, out, pool: WorkerPool
+    run: Path,
+    m: Shared[pd.DataFrame],
+    base: Path,
+    bm: Shared[pd.DataFrame],
+    modes: list[str],
+    colours,
+    out,
+    pool: WorkerPool,
 ) -> list[str | Job[str]]:
     """The baseline section as parts in order: text, one job per (mode, capture) overlay
     given to ``pool``, and the equivalence table (join with
-    :func:`rigbase.workers.joined`)."""
+    :func:`rigbase.workers.joined`). ``m``, ``bm``: this run's and the baseline's tables
+    (:func:`rig.report.data._load_metrics`), shared with ``pool``."""
     base_man = read_manifest(base)
-    bm = _load_metrics(base)
     parts: list[str | Job[str]] = [
         f"<p>Baseline run: <b>{esc(base_man.get('run_id') or base.name)}</b>"
         f" ({esc(base_man.get('started') or '')}). Solid: this run; dashed: the "
         "baseline.</p>"
     ]
     # captures are paired by role (finest sample interval, longest record), not by name
-    pairs = dict(zip(capture_roles(m), capture_roles(bm), strict=True))
+    pairs = dict(zip(capture_roles(m.value), capture_roles(bm.value), strict=True))
     for mode in modes:
         for capture, base_capture in pairs.items():
             what = f"{mode} · capture {capture}" if len(pairs) > 1 else mode

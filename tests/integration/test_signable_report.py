@@ -23,6 +23,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from rigbase.errors import RunFolderError
 from rigbase.units import eng
 
 from .test_report_browser import _chromium, _console_lines
@@ -229,8 +230,13 @@ def test_certificate_shows_the_operator_and_calibrations_the_run_recorded(
     man["operator"] = "R. Example (fictitious)"
     man["calibrations"] = [{"instrument": "scope", "certificate": "CAL-DEMO-1", "due": "2027-06"}]
     (run / "manifest.json").write_text(json.dumps(man), encoding="utf-8")
+    from rig.analysis.analyze import analyze_run
     from rig.report.certificate import write_certificate
 
+    # the analysis no longer matches the edited manifest: refused, as the report refuses it
+    with pytest.raises(RunFolderError, match="older than manifest.json"):
+        write_certificate(run)
+    analyze_run(run, table=False)
     text = subprocess.run(
         [_tool("pdftotext"), str(write_certificate(run)), "-"],
         capture_output=True,

@@ -154,6 +154,53 @@ def test_a_dead_worker_leaves_its_figure_to_this_process():
     _fresh("check_dead_worker()")
 
 
+class _NoPickle:
+    """A value that cannot be pickled: a call given it reached a worker by inheritance."""
+
+    def __init__(self, rows: int) -> None:
+        self.rows = rows
+
+    def __reduce__(self):
+        raise TypeError("this value was pickled")
+
+
+def _rows_in_worker(value: _NoPickle, extra: int) -> tuple[int, int]:
+    return value.rows + extra, os.getpid()
+
+
+def check_shared_values() -> None:
+    _forks()
+    with WorkerPool(2) as pool:
+        early = pool.share(_NoPickle(7))
+        assert pool.share(early.value).key == early.key  # the same object: the same share
+        jobs = [pool.submit(_rows_in_worker, early, k) for k in range(3)]
+        got = [j.result() for j in jobs]
+        assert [r for r, _ in got] == [7, 8, 9]
+        assert all(pid != os.getpid() for _, pid in got)  # computed in the workers
+        # shared after the workers forked: given as itself, pickled like any argument
+        late = pool.share(_NoPickle(1))
+        with pytest.raises(TypeError, match="pickled"):
+            pool.submit(_rows_in_worker, late, 0).result()
+        plain = pool.share(np.arange(4))
+        assert pool.submit(np.sum, plain).result() == 6
+    from rigbase import workers
+
+    assert not workers._SHARED  # the pool's shares are dropped when it closes
+
+
+@needs_fork
+def test_a_shared_value_reaches_the_workers_by_fork_not_by_pickle():
+    """``WorkerPool.share``: a value shared before the workers fork is used there without being
+    pickled (an unpicklable value proves it); one shared afterwards is sent as itself."""
+    _fresh("check_shared_values()")
+
+
+def test_without_workers_a_shared_value_is_given_as_itself():
+    with WorkerPool(1) as pool:
+        value = _NoPickle(3)
+        assert pool.submit(_rows_in_worker, pool.share(value), 1).result()[0] == 4
+
+
 def test_without_workers_each_call_runs_at_once_in_order():
     seen: list[int] = []
     with WorkerPool(1) as pool:
