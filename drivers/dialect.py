@@ -10,6 +10,12 @@ its scaling and signals the end of an acquisition (``[scope.transfer]``,
 query means "closed". A layout-1 profile has none of these tables and gets the defaults,
 which are the generic SCPI-1999 behaviour, so old files keep working unchanged.
 
+One key exists in both layouts: ``[common] compound = true`` says the instrument takes a
+compound program message, units separated by ``;`` (IEEE 488.2-1992, 7.1), so a checked
+command and its error-queue query travel as one message (``ROUT:CLOS (@4);:SYST:ERR?``). It
+is off unless a profile says so: an instrument that runs only the first unit, or none, would
+otherwise leave every checked command waiting for a reply that never comes.
+
 :func:`read_dialect` validates them; :func:`check_consistency` looks for entries that
 contradict each other (``rig profile-check``). Every complaint is one
 :class:`~rigbase.errors.ProfileError` naming the file and the dotted key.
@@ -35,6 +41,7 @@ __all__ = [
     "Link",
     "Readback",
     "Transfer",
+    "compound_message",
     "read_dialect",
     "termination_name",
 ]
@@ -137,6 +144,7 @@ class Dialect:
     completion: Completion = field(default_factory=Completion)
     scaling_queries: Mapping[str, str | float] = field(default_factory=dict)
     interlock_closed: str = ""  # supply: the get_interlock answer that means "closed"
+    compound: bool = False  # [common] compound: "<command>;:<next_error>" as one message
 
     def word(self, role: str, name: str, value: object) -> object:
         """The instrument's word for driver value ``value`` of field ``name`` (or it)."""
@@ -191,11 +199,15 @@ def _kind(kind: type | tuple) -> str:
 def read_dialect(data: Mapping[str, Any], path: Path, fmt: int) -> Dialect:
     """The non-template tables of a parsed profile (layout ``fmt``); layout 1 has none."""
     r = _Reader(path)
+    common = data.get("common", {})
+    compound = common.get("compound", False) if isinstance(common, Mapping) else False
+    if not isinstance(compound, bool):
+        raise r.fail("common.compound", f"must be true or false, found {compound!r}")
     if fmt == 1:
         for key in ("link",):
             if key in data:
                 raise r.fail(key, "needs [profile] format = 2")
-        return Dialect()
+        return Dialect(compound=compound)
     d = Link()
     t = r.table(data, "link", tuple(Link.__dataclass_fields__))
     link = Link(
@@ -307,7 +319,17 @@ def read_dialect(data: Mapping[str, Any], path: Path, fmt: int) -> Dialect:
         completion=completion,
         scaling_queries=MappingProxyType(queries),
         interlock_closed=interlock,
+        compound=compound,
     )
+
+
+def compound_message(command: str, query: str) -> str:
+    """``command`` and ``query`` as one compound program message (IEEE 488.2-1992, 7.1:
+    units separated by ``;``). A leading ``:`` puts the query's header back at the root, so
+    the command's header path does not prefix it (SCPI-1999 Vol. 1, 6.2.4, from memory);
+    a common command (``*...``) needs none: it neither uses nor moves the path."""
+    sep = ";" if query.startswith(("*", ":")) else ";:"
+    return f"{command}{sep}{query}"
 
 
 def termination_name(text: str) -> str:

@@ -154,7 +154,7 @@ _SUBTABLES = {
 }
 _ROLE_TABLES: Mapping[str, set[str]] = MappingProxyType(
     {
-        "common": set(),
+        "common": {"compound"},
         "supply": {"ranges", "values", "interlock_closed"},
         "switch": {"ranges", "values", "channel_list", "readback"},
         "scope": {
@@ -168,4 +168,8 @@ _ROLE_TABLES: Mapping[str, set[str]] = MappingProxyType(
         "meter": {"functions", "values"},
     }
 )
-_ROLE_TABLES_1 = {"common": set(), "meter": {"functions"}, "scope": {"ranges", "scaling_fields"}}
+_ROLE_TABLES_1 = {
+    "common": {"compound"},
+    "meter": {"functions"},
+    "scope": {"ranges", "scaling_fields"},
+}

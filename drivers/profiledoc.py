@@ -13,7 +13,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from drivers.dialect import termination_name
+from drivers.dialect import compound_message, termination_name
 from drivers.profile import _SAMPLES, OPERATIONS, Profile
 from rigbase.errors import ProfileError
 
@@ -114,6 +114,12 @@ def page(p: Profile) -> str:
         missing = [op for op in OPERATIONS[role] if op not in ops]
         if missing:
             out += ["", f"Not available: {', '.join(missing)}."]
+        if role == "common" and p.dialect.compound and p.has_operation("common", "next_error"):
+            joined = compound_message("<command>", p.command("common", "next_error"))
+            out.append(
+                f"\nCompound messages (IEEE 488.2-1992 7.1): a checked command and its error "
+                f"query go as one message, `{joined}`."
+            )
         for name, table in p.dialect.values.get(role, {}).items():
             words = ", ".join(f"{k} = `{v}`" for k, v in table.items())
             out.append(f"\nWords for {name}: {words}.")
@@ -183,6 +189,8 @@ def check_profile(name: str | Path) -> list[str]:
         )
     if link.acknowledge and not link.error_reply:
         out.append(f"{f} [link] error_reply: acknowledged commands need the error line pattern")
+    if p.dialect.compound and not has("common", "next_error"):
+        out.append(f"{f} [common] compound: it joins commands to next_error, which is missing")
     if has("common", "next_error") and link.acknowledge:
         out.append(f"{f} [link] acknowledge: contradicts [common] next_error (one or the other)")
     if "scope" in p.roles:

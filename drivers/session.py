@@ -43,6 +43,7 @@ from drivers.block import (
     read_block,
     wire_dtype,
 )
+from drivers.dialect import compound_message
 from drivers.errorqueue import parse_error_reply, queue_error, read_queue
 from drivers.profile import Profile
 from drivers.visalink import VisaLink
@@ -107,6 +108,7 @@ class ScpiSession:
         self._recovering = False
         self._interrupted = False
         self._busy_s = 0.0  # wall time spent in exchanges (benchmarks split I/O from the rest)
+        self._messages = 0  # messages sent (benchmarks count exchanges per event)
         self._generation = 0  # counts successful reconnects
         self._own_rm = resource_manager is None
         try:
@@ -152,6 +154,11 @@ class ScpiSession:
         return self._busy_s
 
     @property
+    def messages_sent(self) -> int:
+        """Program messages sent so far (each write, query or block query is one)."""
+        return self._messages
+
+    @property
     def closed(self) -> bool:
         """True once :meth:`close` has been called."""
         return self._state is _State.CLOSED
@@ -170,13 +177,18 @@ class ScpiSession:
         if self._profile.dialect.link.acknowledge:
             self._acknowledged(command, repeatable)
             return
+        joined = check and self._profile.dialect.compound and self.has_command("next_error")
         with self._lock:
             for attempt in (1, 2):
-                self._exchange(command, repeatable, lambda: self._do_write(command))
-                if not check:
-                    return
-                sent_on = self._generation
-                self.check_errors(command)
+                if joined:
+                    sent_on = self._generation
+                    self._checked_compound(command)
+                else:
+                    self._exchange(command, repeatable, lambda: self._do_write(command))
+                    if not check:
+                        return
+                    sent_on = self._generation
+                    self.check_errors(command)
                 if self._generation == sent_on:
                     return
                 # The link was re-opened after the command went out. A socket write
@@ -192,6 +204,38 @@ class ScpiSession:
                     command,
                     extra=self._extra,
                 )
+
+    def _checked_compound(self, command: str) -> None:
+        """``command`` and the error query as one compound message (``[common] compound``):
+        raise :class:`ScpiError` for a queued error, as :meth:`check_errors` would.
+
+        A link lost on the way is reopened here and left to :meth:`write`, which sees the
+        new generation and resends only a ``repeatable`` command. A reply that does not come
+        (late, drained by the recovery, or none: IEEE 488.2 discards the rest of a message
+        after a command error, and the recovery has then reported that error from the queue)
+        leaves the queue to a separate read, as a check after a plain write would.
+        """
+        query = self._profile.command("common", "next_error")
+        text = compound_message(command, query)
+        sent_on = self._generation
+        try:
+            reply = self._exchange(command, False, lambda: self._do_query(text, None))
+        except ConnectionLost:
+            if self._generation == sent_on:
+                raise  # never reopened: nothing more to try
+            return  # reopened: delivery unknown, write() decides
+        except InstrumentTimeout:
+            self.check_errors(command)
+            return
+        try:
+            first = parse_error_reply(reply)
+        except ValueError:
+            raise InstrumentError(self._name, text, f"cannot parse {reply!r}") from None
+        if first[0] == 0:
+            return
+        found = [first, *self.errors()]
+        log.warning("%s: %r raised %s", self._name, command, found, extra=self._extra)
+        raise queue_error(self._name, command, found)
 
     def query(
         self, command: str, *, repeatable: bool = True, timeout_s: float | None = None
@@ -455,10 +499,12 @@ class ScpiSession:
 
     def _do_write(self, command: str) -> None:
         log.debug("%s << %s", self._name, command, extra=self._extra)
+        self._messages += 1
         self._link.res.write(command)
 
     def _do_query(self, command: str, timeout_s: float | None) -> str:
         log.debug("%s << %s", self._name, command, extra=self._extra)
+        self._messages += 1
         with self._link.timeout(timeout_s):
             self._link.res.write(command)
             reply = str(self._link.res.read()).strip()
@@ -467,6 +513,7 @@ class ScpiSession:
 
     def _do_block(self, command: str, wire: np.dtype, timeout_s: float | None) -> np.ndarray:
         log.debug("%s << %s", self._name, command, extra=self._extra)
+        self._messages += 1
         with self._link.timeout(timeout_s):
             self._link.res.write(command)
             payload = read_block(self._link, command)

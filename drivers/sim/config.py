@@ -102,6 +102,7 @@ def read_simulation(
         supply_stuck_on=f.boolean("supply_stuck_on", df.supply_stuck_on),
         scope_never_triggers=f.boolean("scope_never_triggers", df.scope_never_triggers),
         drop_connection_after=f.integer("drop_connection_after", None, minimum=1),
+        drop_unanswered=f.boolean("drop_unanswered", df.drop_unanswered),
         slow_answer_s=f.number("slow_answer_s", df.slow_answer_s, minimum=0.0),
         scpi_error_every=f.integer("scpi_error_every", None, minimum=1),
         corrupt_block_every=f.integer("corrupt_block_every", None, minimum=1),

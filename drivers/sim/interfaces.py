@@ -80,6 +80,7 @@ class Faults:
     supply_stuck_on: bool = False  # output keeps delivering after OUTP OFF
     scope_never_triggers: bool = False
     drop_connection_after: int | None = None  # server closes the link after N commands
+    drop_unanswered: bool = False  # ... and leaves the N-th unanswered (dies mid-exchange)
     slow_answer_s: float = 0.0  # extra delay before every answer (real time)
     scpi_error_every: int | None = None  # every Nth command is refused with -200
     corrupt_block_every: int | None = None  # every Nth block has a wrong length header

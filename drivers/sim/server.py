@@ -10,7 +10,9 @@ the instrument (its settings, status registers and error queue), as on a real in
 Server-level faults (:class:`drivers.sim.interfaces.Faults`):
 
 - ``drop_connection_after`` N: each connection is closed after its N-th program message has
-  been answered;
+  been answered; with ``drop_unanswered`` that message is executed but its answer never
+  leaves (a link that dies mid-exchange: a checked command and its error query sent as one
+  compound message are otherwise always answered before the link closes);
 - ``slow_answer_s``: a real-time sleep before every reply;
 - ``scpi_error_every`` N: every N-th setting command (not queries, not common commands, so
   the client can still read the queue) is refused with -200 and not executed;
@@ -171,12 +173,15 @@ class ScpiServer:
                     continue
                 messages += 1
                 items = self.device.execute(line, self._unit_filter)
+                limit = self.faults.drop_connection_after
+                if limit is not None and messages >= limit and self.faults.drop_unanswered:
+                    logger.info("%s: fault: dropping the link before answering", self.name)
+                    return
                 if items:
                     if self.faults.slow_answer_s > 0:
                         time.sleep(self.faults.slow_answer_s)
                     if not self._send(conn, self._encode(items), buffer):
                         return
-                limit = self.faults.drop_connection_after
                 if limit is not None and messages >= limit:
                     logger.info("%s: fault: dropping the link after %s messages", self.name, limit)
                     return

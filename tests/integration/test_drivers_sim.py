@@ -397,7 +397,7 @@ def test_sessions_ride_through_dropped_links() -> None:
         s = r.sessions["supply"]
         s.setup = lambda sess: calls.append(sess.name)
         for k in range(6):
-            r.supply.set_voltage(float(k))  # a write and its error check: two messages
+            r.supply.set_voltage(float(k))  # a write checked in one compound message
             assert r.supply.programmed_voltage() == float(k)
         assert len(calls) >= 3  # reconnected (and re-ran the set-up) again and again
     finally:

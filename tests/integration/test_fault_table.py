@@ -48,13 +48,13 @@ def _timeouts(cfg, seconds: float):
 # id: (world faults, server action at event 2 and phase, variant, expected exit paths,
 #      words the error must contain)
 ROWS = {
-    "drop-supply": (None, ("supply", Phase.CHARGE, _server("supply", drop_connection_after=1)),
+    "drop-supply": (None, ("supply", Phase.CHARGE, _server("supply", drop_connection_after=1, drop_unanswered=True)),
                     None, {ExitPath.CONNECTION, ExitPath.TIMEOUT}, ["supply"]),
-    "drop-switch": (None, ("switch", Phase.CHARGE, _server("switch", drop_connection_after=1)),
+    "drop-switch": (None, ("switch", Phase.CHARGE, _server("switch", drop_connection_after=1, drop_unanswered=True)),
                     None, {ExitPath.CONNECTION, ExitPath.TIMEOUT}, ["switch"]),
-    "drop-scope": (None, ("scope", Phase.ARM, _server("scope", drop_connection_after=1)),
+    "drop-scope": (None, ("scope", Phase.ARM, _server("scope", drop_connection_after=1, drop_unanswered=True)),
                    None, {ExitPath.CONNECTION, ExitPath.TIMEOUT}, ["scope"]),
-    "drop-meter": (None, ("meter", Phase.SETUP, _server("meter", drop_connection_after=1)),
+    "drop-meter": (None, ("meter", Phase.SETUP, _server("meter", drop_connection_after=1, drop_unanswered=True)),
                    "modes", {ExitPath.CONNECTION, ExitPath.TIMEOUT}, ["meter"]),
     "slow-scope": (None, ("scope", Phase.ARM, _server("scope", slow_answer_s=0.6)),
                    None, {ExitPath.TIMEOUT}, ["scope"]),

@@ -135,6 +135,8 @@ def test_every_profile_command_is_accepted(inst: dict, bench: SimBench, form: st
         assert error_codes(i) == [], (role, form)
     for name in ("common",):
         for template in PROFILE[name].values():
+            if not isinstance(template, str):
+                continue  # compound = true: how messages are built, not a command
             for i in inst.values():
                 cmd = variant(template)
                 if "?" in cmd:

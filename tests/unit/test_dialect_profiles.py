@@ -91,6 +91,7 @@ def _edit(name: str, old: str, new: str) -> str:
         ),
         ("scope-c", 'scaling = "DATA:SCALE? {ch}"', "", "scope.scaling", "either"),
         ("relay-line", "baud_rate = 19200", "baud_rate = 0", "link.baud_rate", "> 0"),
+        ("scpi1999", "compound = true", 'compound = "yes"', "common.compound", "true or false"),
         (
             "relay-line",
             "error_reply = 'ERR (?P<code>",
@@ -129,6 +130,7 @@ def test_layout_2_mistakes_name_file_and_key(tmp_path, name, old, new, key, word
             "error_reply: acknowledged commands need",
         ),
         ("supply-b", 'interlock_closed = "CLOSED"', "", "interlock_closed: give it together"),
+        ("scope-c", 'next_error = "SYSTem:ERRor?"', "compound = true", "compound: it joins"),
         ("supply-b", 'disable_output = "HV:ARM 0"', "", "enable_output: give it together"),
         (
             "switch-b",

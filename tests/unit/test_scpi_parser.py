@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 from pyvisa.util import from_ieee_block, to_ieee_block
 
+from drivers.dialect import compound_message
 from drivers.sim.scpi import (
     QUEUE_DEPTH,
     Block,
@@ -111,6 +112,16 @@ def test_numeric_suffix_defaults_to_one(dev: _Probe) -> None:
     assert match_nodes(parse_header_pattern("INPut#:COUPling"), ["INPU2", "COUP"]) is None
 
 
+def test_headers_added_later_are_found_after_earlier_lookups(dev: _Probe) -> None:
+    # the device remembers resolved headers; a registration must not leave a stale answer
+    dev.execute(b"SYST:BEEP:VOL 3")
+    assert _errors(dev) == [-113]
+    dev.add("SYSTem:BEEPer:VOLume", set=lambda c: dev.log.append(("beepvol", 3)))
+    dev.execute(b"SYST:BEEP:VOL 3;:INP2:COUP?;:INP:COUP?")
+    assert dev.log[-1] == ("beepvol", 3) and _errors(dev) == []
+    assert dev.execute(b"INP2:COUP?;:INP:COUP?;:INP2:COUP?") == ["2", "1", "2"]
+
+
 # -- compound messages ----------------------------------------------------------------------------
 
 
@@ -148,6 +159,35 @@ def test_command_error_skips_the_rest_execution_error_does_not(dev: _Probe) -> N
     dev.execute(b"VOLT 5000;:VOLT 7")  # -222 is an execution error: the next unit still runs
     assert dev.volts == 7.0
     assert _errors(dev) == [-222]
+
+
+def test_checked_command_and_error_query_as_one_message(dev: _Probe) -> None:
+    # IEEE 488.2-1992 7.1 (from memory): a program message is program message units separated
+    # by ';', executed in order, so the error query after a command sees what that command
+    # queued; its answer is the message's only response. The session joins them this way
+    # (drivers.dialect.compound_message).
+    msg = compound_message("ROUT:CLOS (@4,5)", "SYSTem:ERRor:NEXT?")
+    assert dev.execute(msg.encode()) == ['0,"No error"']
+    assert dev.log[-1] == ("close", (4, 5))
+    # an execution error (-222) queues and the message goes on: the query reports it
+    assert dev.execute(compound_message("VOLT 5000", "SYST:ERR?").encode())[0].startswith("-222,")
+    assert dev.volts == 0.0
+    assert _errors(dev) == []
+    # SCPI-1999 Vol. 1 6.2.4 (from memory): without the ':' the query would be looked up under
+    # the command's path (ROUTe:SYSTem:ERRor) and be an undefined header
+    assert dev.execute(b"ROUT:CLOS (@4);SYST:ERR?") == []
+    assert _errors(dev) == [-113]
+    # a common query needs no ':' (IEEE 488.2-1992 7.6.1.2, from memory: no path involved)
+    assert dev.execute(compound_message("VOLT 5", "*OPC?").encode()) == ["1"]
+    assert dev.volts == 5.0
+
+
+def test_command_error_discards_the_error_query_of_its_message(dev: _Probe) -> None:
+    # IEEE 488.2-1992 6.1.6.1.1 (from memory): after a command error the rest of the message
+    # is skipped, the joined error query too: no answer comes, the entry stays queued (the
+    # session's timeout recovery reads it from the queue)
+    assert dev.execute(compound_message("BOGUS 1", "SYST:ERR?").encode()) == []
+    assert _errors(dev) == [-113]
 
 
 # -- parameters ----------------------------------------------------------------------------------

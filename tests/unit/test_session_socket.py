@@ -13,12 +13,14 @@ import socket
 import threading
 import time
 from collections.abc import Callable, Iterator
+from dataclasses import replace
 
 import numpy as np
 import pytest
 from pyvisa import util as visa_util
 from pyvisa.errors import VisaIOError
 
+from drivers.dialect import compound_message
 from drivers.profile import Profile
 from drivers.session import ScpiSession, parse_block_header, parse_error_reply
 from rigbase.errors import (
@@ -29,7 +31,9 @@ from rigbase.errors import (
     ScpiError,
 )
 
-PROFILE = Profile.load("scpi1999")
+COMPOUND = Profile.load("scpi1999")  # the shipped profile: [common] compound = true
+# the same dialect without compound messages: the tests below that follow each exchange use it
+PROFILE = replace(COMPOUND, dialect=replace(COMPOUND.dialect, compound=False))
 NEXT_ERROR = PROFILE.command("common", "next_error")
 
 Handler = Callable[["FakeInstrument", socket.socket, str], None]
@@ -46,6 +50,13 @@ class FakeInstrument:
     - ``SLOWONCE?`` answers ``first`` after ``self.delay_s`` the first time, ``second`` after.
     - ``HANGUP?`` closes the connection without answering. ``REFUSE?`` queues -230 and sends
       nothing (as IEEE 488.2 instruments do for a query they cannot answer).
+    - ``DROP`` closes the connection without doing anything the first ``drop_times`` times.
+    - ``SYNTAX`` queues -102 and, as a command error, discards the rest of its message.
+
+    A line may hold several units separated by ``;`` (IEEE 488.2-1992, 7.1 compound program
+    messages); a unit's leading ``:`` (back to the root) is dropped, as these headers have no
+    path; the answers of the queries go back as one line, separated by ``;`` (8.4.1, response
+    message unit separator, from memory). ``received`` has the lines as they came.
     """
 
     def __init__(self) -> None:
@@ -62,6 +73,7 @@ class FakeInstrument:
         self.connections = 0
         self.count = 0
         self.slow_seen = 0
+        self.drop_times = 0
         self.received: list[str] = []
         self.clients: list[socket.socket] = []
         self._lock = threading.Lock()
@@ -90,15 +102,33 @@ class FakeInstrument:
                 buf += data
                 while b"\n" in buf:
                     line, buf = buf.split(b"\n", 1)
-                    if not self._handle(conn, line.decode().strip()):
+                    if not self._message(conn, line.decode().strip()):
                         return
         except OSError:
             return
         finally:
             conn.close()
 
-    def _handle(self, conn: socket.socket, cmd: str) -> bool:
-        self.received.append(cmd)
+    def _message(self, conn: socket.socket, line: str) -> bool:
+        """One program message: its units in order, their answers sent as one line."""
+        self.received.append(line)
+        if ";" not in line:
+            return self._handle(conn, line)
+        answers: list[bytes] = []
+        for unit in line.split(";"):  # no test command carries a ';' inside a string
+            unit = unit.strip().removeprefix(":")
+            if unit == "SYNTAX":
+                self.errors.append((-102, "Syntax error"))
+                break  # IEEE 488.2-1992 6.1.6.1.1 (from memory): the rest is discarded
+            sent: list[bytes] = []
+            if not self._handle(_Collect(sent), unit):
+                return False
+            answers += [b.rstrip(b"\n") for b in sent]
+        if answers:
+            conn.sendall(b";".join(answers) + b"\n")
+        return True
+
+    def _handle(self, conn: socket.socket | _Collect, cmd: str) -> bool:
         reply: bytes | None = None
         if cmd == "*IDN?":
             reply = b"TEST,FAKE,0,1\n"
@@ -129,6 +159,11 @@ class FakeInstrument:
                 reply = b"second\n"
         elif cmd == "HANGUP?":
             return False
+        elif cmd == "DROP" and self.drop_times > 0:
+            self.drop_times -= 1
+            return False
+        elif cmd == "SYNTAX":
+            self.errors.append((-102, "Syntax error"))
         elif cmd == "REFUSE?":
             self.errors.append((-230, "Data corrupt or stale"))
         if reply is not None:
@@ -156,6 +191,16 @@ class FakeInstrument:
         self.listener.close()
         self._thread.join(2.0)  # a connection accepted just before is in `clients` now
         self.drop_clients()
+
+
+class _Collect:
+    """Stands in for the socket while the units of one compound message are answered."""
+
+    def __init__(self, out: list[bytes]) -> None:
+        self.out = out
+
+    def sendall(self, data: bytes) -> None:
+        self.out.append(data)
 
 
 @pytest.fixture
@@ -432,3 +477,110 @@ def test_dead_port_raises_connection_lost() -> None:
         ) as s:
             s.identify()
     assert info.value.instrument == "ghost"
+
+
+# -- checked writes as one compound message ([common] compound) ---------------------------
+
+
+def _open(server: FakeInstrument, profile: Profile, **kw: object) -> ScpiSession:
+    return ScpiSession(
+        server.resource, "fake", profile=profile, timeout_s=0.2, reconnect_backoff_s=0.01, **kw
+    )
+
+
+def _sent(profile: Profile, command: str) -> str:
+    """The line a checked ``command`` travels in."""
+    return compound_message(command, NEXT_ERROR) if profile.dialect.compound else command
+
+
+def test_only_the_generic_profile_joins_commands_and_the_joiner_follows_4882() -> None:
+    assert COMPOUND.dialect.compound and not PROFILE.dialect.compound
+    others = ("scope-b", "scope-c", "supply-b", "supply-c", "switch-b", "relay-line")
+    assert not any(Profile.load(n).dialect.compound for n in others)
+    # IEEE 488.2-1992 7.1: units separated by ';'; SCPI-1999 Vol. 1 6.2.4 (from memory): a
+    # leading ':' takes the next header back to the root; a common command needs none
+    assert compound_message("ROUT:CLOS (@4)", "SYST:ERR?") == "ROUT:CLOS (@4);:SYST:ERR?"
+    assert compound_message("VOLT 1", "*ESR?") == "VOLT 1;*ESR?"
+
+
+def test_checked_write_is_one_exchange_unchecked_write_stays_alone(server: FakeInstrument) -> None:
+    with _open(server, COMPOUND) as s:
+        before = s.messages_sent
+        s.write("*CLS")
+        assert server.received == [f"*CLS;:{NEXT_ERROR}"]
+        s.write("*CLS", check=False)
+        assert server.received[-1] == "*CLS"
+        assert s.messages_sent == before + 2
+
+
+def test_profile_without_compound_keeps_separate_exchanges(server: FakeInstrument) -> None:
+    with _open(server, PROFILE) as s:
+        before = s.messages_sent
+        s.write("*CLS")
+        assert server.received == ["*CLS", NEXT_ERROR]
+        assert s.messages_sent == before + 2
+
+
+def test_compound_write_raises_the_instruments_error(server: FakeInstrument) -> None:
+    with _open(server, COMPOUND) as s:
+        with pytest.raises(ScpiError) as info:
+            s.write("BAD2")
+        err = info.value
+        assert (err.instrument, err.command, err.code, err.message) == (
+            "fake",
+            "BAD2",
+            -113,
+            "Undefined header",
+        )
+        assert any("-222" in note for note in err.__notes__)
+        # the first entry came with the command; the rest is read until the queue is empty
+        assert server.received == [f"BAD2;:{NEXT_ERROR}", NEXT_ERROR, NEXT_ERROR]
+        assert server.errors == []
+        s.write("*CLS")  # the session goes on
+
+
+def test_command_error_that_discards_the_error_query_is_still_reported(
+    server: FakeInstrument,
+) -> None:
+    # no answer comes (the rest of the message was discarded): the timeout recovery reads
+    # the queue and reports its entry instead of sending the command again
+    with _open(server, COMPOUND) as s:
+        with pytest.raises(ScpiError) as info:
+            s.write("SYNTAX")
+        assert info.value.code == -102 and info.value.command == "SYNTAX"
+        assert isinstance(info.value.__cause__, InstrumentTimeout)
+        assert server.received.count(f"SYNTAX;:{NEXT_ERROR}") == 1
+        assert s.query("ECHO? after") == "after"
+
+
+@pytest.mark.parametrize("profile", [PROFILE, COMPOUND], ids=["separate", "compound"])
+def test_link_lost_after_sending_resends_a_repeatable_write_once(
+    server: FakeInstrument, profile: Profile
+) -> None:
+    server.drop_times = 1
+    calls: list[int] = []
+    with _open(server, profile, setup=lambda s: calls.append(1)) as s:
+        s.write("DROP")
+        assert server.received.count(_sent(profile, "DROP")) == 2
+        assert calls == [1] and server.connections == 2
+
+
+@pytest.mark.parametrize("profile", [PROFILE, COMPOUND], ids=["separate", "compound"])
+def test_link_lost_after_sending_a_write_that_must_not_repeat(
+    server: FakeInstrument, profile: Profile
+) -> None:
+    server.drop_times = 1
+    with _open(server, profile) as s:
+        with pytest.raises(ConnectionLost, match="delivery unknown"):
+            s.write("DROP", repeatable=False)
+        assert server.received.count(_sent(profile, "DROP")) == 1
+        s.write("*CLS")  # the reopened link works
+
+
+@pytest.mark.parametrize("profile", [PROFILE, COMPOUND], ids=["separate", "compound"])
+def test_link_lost_twice_after_sending_gives_up(server: FakeInstrument, profile: Profile) -> None:
+    server.drop_times = 2
+    with _open(server, profile) as s:
+        with pytest.raises(ConnectionLost, match="delivery unknown"):
+            s.write("DROP")
+        assert server.received.count(_sent(profile, "DROP")) == 2

@@ -304,3 +304,33 @@ def test_thread_safe_under_concurrent_calls() -> None:
     assert not errors
     times = [t for t, _ in w.history()]
     assert times == sorted(times)
+
+
+def test_unfiltered_inputs_over_old_segments_follow_the_rc_decay(tmp_path: Path) -> None:
+    # scope inputs without a bandwidth limit carry no filter state from segment to segment;
+    # read back over segments that later switching left behind, the divider input still
+    # follows the first-order decay v = V0 exp(-t / RC) (Horowitz & Hill, The Art of
+    # Electronics, 3rd ed., 1.4.2; section from memory), R = (R_bleed + contact) || R_divider
+    wiring = BenchWiring()
+    w, clk = _world(tmp_path, wiring=wiring, bounce=BounceSpec(max_bounces=0))
+    w.relay_set([1], True)
+    w.supply_program(volts=100.0, amps=0.1, output=True)
+    clk.sleep(1.0)  # 1 s = 10 time constants of the 101 kohm charge path: fully charged
+    w.supply_program(volts=0.0, output=False)
+    w.relay_set([1], False)
+    v0 = w.meter_input_volts()
+    t_bleed = clk.now()
+    w.relay_set([3], True)
+    clk.sleep(0.02)
+    for _ in range(5):  # later segments: the bleed window becomes history
+        w.relay_set([2], True)
+        clk.sleep(1e-4)
+        w.relay_set([2], False)
+        clk.sleep(1e-4)
+    r = 1.0 / (1.0 / (wiring.bleed_ohms + 0.05) + 1.0 / wiring.divider_ohms)
+    t = t_bleed + np.linspace(0.0, 0.02, 201)
+    divider = w.scope_inputs(t, [None, None])[1]
+    expected = v0 * np.exp(-(t - t_bleed) / (r * 1e-6)) / wiring.divider_ratio
+    np.testing.assert_allclose(divider, expected, rtol=1e-6, atol=1e-12)
+    # the same instants asked again, now from the kept filter states, give the same numbers
+    assert np.array_equal(w.scope_inputs(t, [None, None])[1], divider)

@@ -89,6 +89,8 @@ class Call:
 _HEADER = re.compile(r"^:?[A-Za-z][A-Za-z0-9_]*(?::[A-Za-z][A-Za-z0-9_]*)*\??$")
 _COMMON = re.compile(r"^\*[A-Za-z]+\??$")
 _INVALID_CHAR = re.compile(r"[\x7f-\xff]")
+# distinct typed headers a device remembers (bounded: a client may send anything)
+_RESOLVED_MAX = 4096
 _HEADER_SPLIT = re.compile(r"^([^\x00-\x09\x0b-\x20]+)[\x00-\x09\x0b-\x20]*(.*)$", re.S)
 
 UnitFilter = Callable[[str], "CommandRejected | None"]
@@ -107,6 +109,9 @@ class ScpiDevice:
         self.queue_depth = queue_depth
         self.lock = threading.RLock()
         self._commands: list[Command] = []
+        # typed header -> (command, suffixes): a bench sends the same few headers thousands
+        # of times, and matching walks every registered pattern (emptied by add())
+        self._resolved: dict[tuple[str, ...], tuple[Command | None, dict[str, int]]] = {}
         self._errors: deque[tuple[int, str]] = deque()
         self.esr = ESR_POWER_ON  # 488.2: PON is set at power-on
         self.ese = 0
@@ -133,6 +138,7 @@ class ScpiDevice:
             raise ValueError(f"{pattern}: needs a set or a query handler")
         nodes = parse_header_pattern(pattern)
         self._commands.append(Command(pattern, nodes, set, query, set_args, query_args))
+        self._resolved.clear()
 
     def headers(self) -> list[str]:
         """Every registered header pattern with ``?`` where a query form exists."""
@@ -305,11 +311,18 @@ class ScpiDevice:
         return new_path
 
     def _lookup(self, typed: list[str]) -> tuple[Command | None, dict[str, int]]:
-        for command in self._commands:
-            suffixes = match_nodes(command.nodes, typed)
-            if suffixes is not None:
-                return command, suffixes
-        return None, {}
+        key = tuple(typed)
+        hit = self._resolved.get(key)
+        if hit is None:
+            hit = None, {}
+            for command in self._commands:
+                suffixes = match_nodes(command.nodes, typed)
+                if suffixes is not None:
+                    hit = command, suffixes
+                    break
+            if len(self._resolved) < _RESOLVED_MAX:
+                self._resolved[key] = hit
+        return hit[0], dict(hit[1])
 
     # -- IEEE 488.2 common commands and SCPI required commands -------------------------------
 
