@@ -6,6 +6,8 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
+import sys
 from pathlib import Path
 from typing import Any
 
@@ -34,7 +36,25 @@ EXIT_OK, EXIT_NO, EXIT_INPUT, EXIT_BENCH, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
 
 def _out(text: str = "") -> None:
-    print(text, flush=True)
+    try:
+        print(text, flush=True)
+    except BrokenPipeError:
+        _stdout_gone()
+
+
+def _stdout_gone() -> None:
+    """The reader of the standard output has gone (``rig run ... | head``). The command goes
+    on, since a run's events, safe state, analysis and report matter more than its printed
+    lines; the rest of its output is dropped, stdout pointed at the null device so that no
+    later write or the final flush fails (Python's ``signal`` documentation, "Note on
+    SIGPIPE")."""
+    try:
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, sys.stdout.fileno())
+        os.close(null)
+    except (OSError, ValueError):  # no file descriptor behind stdout (captured in tests)
+        pass
+    print("rig: standard output closed; going on without printing", file=sys.stderr)
 
 
 def _now_iso() -> str:
