@@ -1,7 +1,7 @@
 """The self-contained HTML report of a run: its tables loaded from the run folder (`data`),
 the judgements at a glance (`glance`), the detail tables (`tables`), the figures (`figures`,
-`plots`), the HTML pieces and style (`html`), the page assembly (`page`), and the report with the certificate made together, their figures
-drawn in worker processes (`documents`).
+`plots`), the HTML pieces and style (`html`), the page assembly (`page`), and the report and
+the certificate made together, their figures drawn in worker processes (`documents`).
 """
 
 from rig.report.certificate import (

@@ -176,15 +176,16 @@ def _sections(
     ``pool`` (inherited by the workers, not pickled to each, when shared before they fork)."""
     out = run / FIGURES
     ms = pool.share(m)
-    if baseline_dir is not None:  # read before the first job forks the workers: inherited
-        bms = pool.share(_load_metrics(Path(baseline_dir)))
+    # the baseline's table is read before the first job forks the workers, so they inherit it
+    base = Path(baseline_dir) if baseline_dir is not None else None
+    bms = pool.share(_load_metrics(base)) if base is not None else None
     meters = list(dict.fromkeys(m["meter"]))
     colours = F.colour_map(meters)
     modes = list(dict.fromkeys(m["mode"]))
     waves = _section_waveforms(run, ms, modes, colours, out, pool)
     overlays = None
-    if baseline_dir is not None:
-        overlays = _section_baseline(run, ms, Path(baseline_dir), bms, modes, colours, out, pool)
+    if base is not None and bms is not None:
+        overlays = _section_baseline(run, ms, base, bms, modes, colours, out, pool)
 
     # Peaks (and pulses) from the capture with the finest sample interval, charges from the
     # one with the longest record (decided from dt_s and record_s, see capture_roles); the
